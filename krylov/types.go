@@ -1,0 +1,178 @@
+package krylov
+
+import (
+	"errors"
+	"fmt"
+	"time"
+)
+
+// Operator is a linear map y = A·x. *sparse.CSR satisfies it, and so can a
+// matrix-free operator. MulVec must not keep x or dst, and must give bitwise
+// identical results for identical inputs (the solvers' determinism rests on it).
+type Operator interface {
+	// Dims returns the number of rows and columns of A.
+	Dims() (rows, cols int)
+	// MulVec sets dst = A·x. len(dst) == rows, len(x) == cols.
+	MulVec(dst, x []float64)
+}
+
+// TransOperator is an Operator that can also apply its transpose, as the
+// least-squares methods need.
+type TransOperator interface {
+	Operator
+	// MulVecTrans sets dst = Aᵀ·x. len(dst) == cols, len(x) == rows.
+	MulVecTrans(dst, x []float64)
+}
+
+// Preconditioner applies the inverse of an approximation M of A:
+// dst = M⁻¹·r. For CG, M must be symmetric positive definite. Precondition
+// must not keep r or dst and must not allocate.
+type Preconditioner interface {
+	Precondition(dst, r []float64)
+}
+
+// Status says how a solve ended. Only Converged means the answer met the
+// tolerance; every other status is a normal outcome, not a Go error, except
+// Breakdown, which comes with an error saying what gave it away.
+type Status int
+
+const (
+	// Converged: the true residual met the stopping test.
+	Converged Status = iota + 1
+	// IterationLimit: the iteration cap was reached first.
+	IterationLimit
+	// TimeLimit: the wall-time budget ran out first.
+	TimeLimit
+	// Cancelled: the context was cancelled or its deadline passed.
+	Cancelled
+	// Stagnated: the iterates stopped improving before meeting the test
+	// (for example the true residual cannot be pushed below the tolerance in
+	// floating point).
+	Stagnated
+	// Breakdown: a quantity the method divides by, or needs positive, was
+	// not (the matrix or preconditioner is not SPD, or a NaN or Inf appeared).
+	Breakdown
+)
+
+var statusNames = map[Status]string{
+	Converged:      "converged",
+	IterationLimit: "iteration-limit",
+	TimeLimit:      "time-limit",
+	Cancelled:      "cancelled",
+	Stagnated:      "stagnated",
+	Breakdown:      "breakdown",
+}
+
+// String returns the status's stable lower-case name, used in JSON output and
+// on the wire.
+func (s Status) String() string {
+	if n, ok := statusNames[s]; ok {
+		return n
+	}
+	return fmt.Sprintf("status(%d)", int(s))
+}
+
+// Named reasons for a Breakdown, for errors.Is.
+var (
+	// ErrNotPositiveDefinite: pᵀA·p ≤ 0, so A is not positive definite.
+	ErrNotPositiveDefinite = errors.New("matrix is not positive definite")
+	// ErrPreconditionerNotSPD: rᵀM⁻¹r ≤ 0, so the preconditioner is not SPD.
+	ErrPreconditionerNotSPD = errors.New("preconditioner is not positive definite")
+	// ErrNotFinite: a NaN or Inf appeared in a vector or scalar.
+	ErrNotFinite = errors.New("NaN or Inf appeared")
+)
+
+// BreakdownError says which quantity broke a method down, its value and at
+// which iteration. It wraps one of the named reasons above.
+type BreakdownError struct {
+	Iteration int
+	Quantity  string  // e.g. "pᵀAp", "rᵀz", "residual vector"
+	Value     float64 // the offending value (NaN or ±Inf for ErrNotFinite)
+	Err       error
+}
+
+func (e *BreakdownError) Error() string {
+	return fmt.Sprintf("%v (%s = %.3g at iteration %d)", e.Err, e.Quantity, e.Value, e.Iteration)
+}
+
+func (e *BreakdownError) Unwrap() error { return e.Err }
+
+// Progress is one row of a convergence history. It means the same for every
+// method: Iteration counts products with the operator inside the loop (0 is
+// the initial residual), Elapsed is wall time since the solve started,
+// ResidualNorm is ‖b − A·x‖₂ as the method tracks it (recursively between
+// true-residual refreshes), RelResidual is ResidualNorm/‖b‖₂ (or ResidualNorm
+// itself when b = 0). Least-squares methods also fill NormalResidualNorm,
+// ‖Aᵀr‖₂ (zero for CG).
+type Progress struct {
+	Iteration          int
+	Elapsed            time.Duration
+	ResidualNorm       float64
+	RelResidual        float64
+	NormalResidualNorm float64
+}
+
+// Recorder receives a solve's progress. Record is called at iteration 0 with
+// the initial residual and after every iteration; Finish once at the end with
+// the final result. An error from Record stops the solve with status
+// Cancelled and that error returned.
+type Recorder interface {
+	Record(p Progress) error
+	Finish(r *Result)
+}
+
+// Settings control a CG solve. The zero value works; each field's comment
+// gives its default, and Result.Settings echoes the values actually used.
+//
+// The one stopping test is on the unpreconditioned true residual:
+//
+//	‖b − A·x‖₂ ≤ max(RelTol·‖b‖₂, AbsTol)
+type Settings struct {
+	// RelTol is the relative tolerance. Default 1e-8.
+	RelTol float64
+	// AbsTol is the absolute tolerance. Default 0.
+	AbsTol float64
+	// MaxIter caps the iterations. Default 10·n.
+	MaxIter int
+	// TimeLimit is a wall-time budget for the iterations. Default 0: none.
+	TimeLimit time.Duration
+	// X0 is the starting guess; nil means zero. It is never modified.
+	X0 []float64
+	// RefreshEvery is how often, in iterations, the recursive residual is
+	// replaced by the true residual b − A·x to stop drift. Default 50; a
+	// negative value turns periodic refresh off (the true residual is still
+	// computed before convergence is declared).
+	RefreshEvery int
+	// Recorder receives the progress; nil records nothing.
+	Recorder Recorder `json:"-"`
+}
+
+// Result describes a finished solve.
+type Result struct {
+	// Method names the method ("cg"); Preconditioner names the
+	// preconditioner ("none", "jacobi", "ic0", ...) as the caller set it.
+	Method         string
+	Preconditioner string
+	Status         Status
+	// Iterations counts products with A inside the loop.
+	Iterations int
+	// ResidualNorm is the method's recursive ‖r‖₂ at the end;
+	// TrueResidualNorm is ‖b − A·x‖₂ recomputed from the returned x.
+	ResidualNorm     float64
+	TrueResidualNorm float64
+	// RHSNorm is ‖b‖₂; RelResidual is TrueResidualNorm/RHSNorm (or
+	// TrueResidualNorm when b = 0).
+	RHSNorm     float64
+	RelResidual float64
+	// LambdaMin, LambdaMax and Cond estimate the extreme eigenvalues and the
+	// condition number of the preconditioned operator M⁻¹A from the Lanczos
+	// tridiagonal built from CG's coefficients. They are estimates: λmax and
+	// λmin are approached from inside, so Cond is a lower bound. Zero when
+	// fewer than two iterations ran.
+	LambdaMin, LambdaMax, Cond float64
+	// Setup is the preconditioner set-up time as the caller reports it;
+	// Solve the time in the iteration; PerIteration Solve/Iterations.
+	Setup, Solve, PerIteration time.Duration
+	// Settings are the settings used, defaults filled in.
+	Settings Settings
+}
