@@ -1,0 +1,291 @@
+package precond
+
+import (
+	"fmt"
+	"math"
+
+	"github.com/residua/residua/sparse"
+)
+
+// IC0Options control the IC(0) set-up. The zero value works; each field's
+// comment gives its default.
+type IC0Options struct {
+	// FirstShift is the first nonzero shift α tried, in A + α·diag(A), after
+	// the unshifted factorization meets a pivot that is not positive.
+	// Default 1e-3.
+	FirstShift float64
+	// Growth is the factor by which α grows at each further try. Default 10.
+	Growth float64
+	// MaxTries caps the factorizations attempted, the unshifted one
+	// included. Default 8, so the last shift tried is 1e-3·10⁶ = 1e3.
+	MaxTries int
+}
+
+// Defaults of IC0Options.
+const (
+	DefaultFirstShift = 1e-3
+	DefaultGrowth     = 10
+	DefaultMaxTries   = 8
+)
+
+func (o IC0Options) withDefaults() IC0Options {
+	if o.FirstShift <= 0 {
+		o.FirstShift = DefaultFirstShift
+	}
+	if o.Growth <= 1 {
+		o.Growth = DefaultGrowth
+	}
+	if o.MaxTries <= 0 {
+		o.MaxTries = DefaultMaxTries
+	}
+	return o
+}
+
+// IC0 is the zero-fill incomplete Cholesky preconditioner, IC(0)
+// (Meijerink and van der Vorst, Math. Comp. 31, 1977; Saad, 2nd ed., §10.3).
+// It is held as M = (I + L)·D·(I + L)ᵀ with L strictly lower triangular on
+// the pattern of A's strict lower triangle and D diagonal; the usual
+// Cholesky-like factor is (I + L)·D^½.
+//
+// Precondition reads the factor and writes only dst, so one IC0 may serve
+// several solves at once.
+type IC0 struct {
+	n int
+	// Forward solve with I + L: row i's strictly lower entries, columns
+	// increasing, so the entry next to the diagonal (the one on the critical
+	// path of the recurrence) is subtracted last.
+	lPtr []int32
+	lCol []int32
+	lVal []float64
+	// Backward solve with (I + L)ᵀ: row i of Lᵀ (column i of L), columns
+	// decreasing, again so the entry next to the diagonal comes last.
+	uPtr []int32
+	uCol []int32
+	uVal []float64
+	// dInv is D⁻¹, inverted once at set-up.
+	dInv []float64
+
+	shift    float64
+	tries    int
+	minPivot float64
+}
+
+// NewIC0 computes the IC(0) factor of the symmetric matrix a, reading only
+// its lower triangle (diagonal included); the caller vouches for symmetry.
+//
+// It refuses a missing, zero, negative or non-finite diagonal entry with a
+// *DiagonalError, since a matrix with one is not positive definite. When a
+// pivot is not positive it retries with the diagonal shift A + α·diag(A),
+// α = opt.FirstShift·opt.Growth^(t−1) at try t (Manteuffel, Math. Comp. 34,
+// 1980), and reports the α that worked (Shift) and the tries used (Tries).
+// After opt.MaxTries failures it returns a *BreakdownError; it never falls
+// back to another preconditioner by itself.
+func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
+	opt = opt.withDefaults()
+	diag, err := diagonal(a)
+	if err != nil {
+		return nil, err
+	}
+	n := a.Rows
+	// Strict lower triangle of A, in CSR with int32 pointers.
+	lPtr := make([]int32, n+1)
+	nnz := 0
+	for i := 0; i < n; i++ {
+		lo, hi := a.RowPtr[i], a.RowPtr[i+1]
+		k, _ := searchInt32(a.ColIdx[lo:hi], int32(i))
+		nnz += k
+		if nnz > math.MaxInt32 {
+			return nil, fmt.Errorf("precond: IC(0) of a %d×%d matrix: %w", n, n, ErrTooLarge)
+		}
+		lPtr[i+1] = int32(nnz)
+	}
+	lCol := make([]int32, nnz)
+	aVal := make([]float64, nnz)
+	for i := 0; i < n; i++ {
+		lo := a.RowPtr[i]
+		p, q := lPtr[i], lPtr[i+1]
+		copy(lCol[p:q], a.ColIdx[lo:lo+int(q-p)])
+		copy(aVal[p:q], a.Val[lo:lo+int(q-p)])
+	}
+
+	m := &IC0{n: n, lPtr: lPtr, lCol: lCol, lVal: make([]float64, nnz), dInv: make([]float64, n)}
+	pos := make([]int32, n)
+	for i := range pos {
+		pos[i] = -1
+	}
+	alpha := 0.0
+	var last *BreakdownError
+	for t := 1; t <= opt.MaxTries; t++ {
+		if t == 2 {
+			alpha = opt.FirstShift
+		} else if t > 2 {
+			alpha *= opt.Growth
+		}
+		row, piv := m.factor(aVal, diag, alpha, pos)
+		if row < 0 {
+			m.shift, m.tries = alpha, t
+			m.transpose()
+			return m, nil
+		}
+		last = &BreakdownError{Row: row, Pivot: piv, Shift: alpha, Tries: t}
+	}
+	return nil, last
+}
+
+// factor computes L and D for the shifted matrix A + alpha·diag(A) into
+// m.lVal and m.dInv (as D⁻¹). It returns the first row whose pivot is not
+// positive and finite, with that pivot, or −1 when every pivot is.
+//
+// This is the row-by-row (left-looking, "IKJ") form of incomplete Gaussian
+// elimination restricted to the pattern of A (Saad, 2nd ed., §10.3.2,
+// Algorithm 10.4), written for the symmetric LDLᵀ form: for j < i in the
+// pattern of row i, in increasing j,
+//
+//	u_ij = a_ij − Σ_k u_ik·L_jk   (k < j in the patterns of rows i and j)
+//	L_ij = u_ij / d_j
+//	d_i  = (1+α)·a_ii − Σ_k u_ik·L_ik
+//
+// Entries outside A's pattern are dropped (zero fill). The sums run in
+// increasing k, so the result is bitwise reproducible. pos is scratch of
+// length n holding −1 everywhere, and is left that way.
+func (m *IC0) factor(aVal, diag []float64, alpha float64, pos []int32) (int, float64) {
+	lPtr, lCol, lVal, dInv := m.lPtr, m.lCol, m.lVal, m.dInv
+	for i := 0; i < m.n; i++ {
+		p, q := lPtr[i], lPtr[i+1]
+		cols := lCol[p:q]
+		vals := lVal[p:q]
+		for k, j := range cols {
+			pos[j] = p + int32(k)
+		}
+		di := diag[i] + alpha*diag[i]
+		for k, j := range cols {
+			// vals[:k] hold u_ik for the columns before j.
+			u := aVal[p+int32(k)]
+			jp, jq := lPtr[j], lPtr[j+1]
+			jv := lVal[jp:jq]
+			for kk, c := range lCol[jp:jq] {
+				if x := pos[c]; x >= 0 {
+					u -= lVal[x] * jv[kk]
+				}
+			}
+			vals[k] = u
+		}
+		// Turn u_ik into L_ik = u_ik/d_k and take the pivot.
+		for k, j := range cols {
+			u := vals[k]
+			l := u * dInv[j]
+			di -= u * l
+			vals[k] = l
+			pos[j] = -1
+		}
+		if !(di > 0) || math.IsInf(di, 1) {
+			return i, di
+		}
+		dInv[i] = 1 / di
+	}
+	return -1, 0
+}
+
+// transpose builds the row-wise copy of Lᵀ used by the backward solve, each
+// row's columns in decreasing order.
+func (m *IC0) transpose() {
+	n := m.n
+	nnz := len(m.lCol)
+	uPtr := make([]int32, n+1)
+	for _, j := range m.lCol {
+		uPtr[j+1]++
+	}
+	for i := 0; i < n; i++ {
+		uPtr[i+1] += uPtr[i]
+	}
+	uCol := make([]int32, nnz)
+	uVal := make([]float64, nnz)
+	// Walking the rows of L from the last to the first fills each row of Lᵀ
+	// in decreasing column order.
+	next := make([]int32, n)
+	copy(next, uPtr[:n])
+	for i := n - 1; i >= 0; i-- {
+		for p := m.lPtr[i]; p < m.lPtr[i+1]; p++ {
+			j := m.lCol[p]
+			x := next[j]
+			uCol[x] = int32(i)
+			uVal[x] = m.lVal[p]
+			next[j] = x + 1
+		}
+	}
+	m.uPtr, m.uCol, m.uVal = uPtr, uCol, uVal
+}
+
+// Shift returns the shift α of the factorization in use: M approximates
+// A + α·diag(A). Zero when plain IC(0) succeeded.
+func (m *IC0) Shift() float64 { return m.shift }
+
+// Tries returns how many factorizations were attempted, the unshifted one
+// included; 1 when plain IC(0) succeeded.
+func (m *IC0) Tries() int { return m.tries }
+
+// Size returns the matrix order n.
+func (m *IC0) Size() int { return m.n }
+
+// Bytes returns the memory the preconditioner holds: both copies of the
+// factor (row-wise L and row-wise Lᵀ) and D⁻¹.
+func (m *IC0) Bytes() int64 {
+	return int64(len(m.lPtr)+len(m.lCol)+len(m.uPtr)+len(m.uCol))*4 +
+		int64(len(m.lVal)+len(m.uVal)+len(m.dInv))*8
+}
+
+// Precondition sets dst = M⁻¹·r with M = (I + L)·D·(I + L)ᵀ: a forward
+// solve with I + L, then, row by row from the last, z_i = d_i⁻¹·w_i minus
+// the known part of row i of Lᵀ (Saad, 2nd ed., §10.3, applied as two
+// triangular solves). Both passes work in dst, so dst and r may be the same
+// slice; nothing else is written and nothing is allocated. It panics if
+// len(dst) or len(r) is not the matrix order.
+func (m *IC0) Precondition(dst, r []float64) {
+	n := m.n
+	if len(dst) != n || len(r) != n {
+		panic(fmt.Sprintf("precond: IC0.Precondition: len(dst)=%d, len(r)=%d, want %d", len(dst), len(r), n))
+	}
+	m.forward(dst, r)
+	m.backward(dst)
+}
+
+// forward solves (I + L)·w = r into w. The recurrence's critical path is one
+// multiply and one subtract per row (the entry next to the diagonal comes
+// last), the rest of the row overlaps with it.
+func (m *IC0) forward(w, r []float64) {
+	ptr, col, val := m.lPtr, m.lCol, m.lVal
+	r = r[:len(w)]
+	p := ptr[0]
+	for i := range w {
+		q := ptr[i+1]
+		s := r[i]
+		cs := col[p:q]
+		vs := val[p:q]
+		vs = vs[:len(cs)]
+		for k, j := range cs {
+			s -= vs[k] * w[j]
+		}
+		w[i] = s
+		p = q
+	}
+}
+
+// backward solves D·(I + L)ᵀ·z = w in place: z_i = d_i⁻¹·w_i − Σ_{j>i} L_ji·z_j
+// from the last row to the first.
+func (m *IC0) backward(z []float64) {
+	ptr, col, val, dInv := m.uPtr, m.uCol, m.uVal, m.dInv
+	dInv = dInv[:len(z)]
+	q := ptr[len(z)]
+	for i := len(z) - 1; i >= 0; i-- {
+		p := ptr[i]
+		s := z[i] * dInv[i]
+		cs := col[p:q]
+		vs := val[p:q]
+		vs = vs[:len(cs)]
+		for k, j := range cs {
+			s -= vs[k] * z[j]
+		}
+		z[i] = s
+		q = p
+	}
+}
