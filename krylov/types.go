@@ -32,8 +32,10 @@ type Preconditioner interface {
 }
 
 // Status says how a solve ended. Only Converged means the answer met the
-// tolerance; every other status is a normal outcome, not a Go error, except
-// Breakdown, which comes with an error saying what gave it away.
+// tolerance. IterationLimit, TimeLimit and Stagnated are normal outcomes that
+// come with a nil error; Breakdown always comes with a *BreakdownError saying
+// what gave it away; Cancelled comes with the context's error (ctx.Err()) or
+// the error the Recorder returned.
 type Status int
 
 const (
@@ -43,11 +45,12 @@ const (
 	IterationLimit
 	// TimeLimit: the wall-time budget ran out first.
 	TimeLimit
-	// Cancelled: the context was cancelled or its deadline passed.
+	// Cancelled: the context was cancelled or its deadline passed, or the
+	// Recorder returned an error.
 	Cancelled
 	// Stagnated: the iterates stopped improving before meeting the test
 	// (for example the true residual cannot be pushed below the tolerance in
-	// floating point).
+	// floating point). Each method documents its rule.
 	Stagnated
 	// Breakdown: a quantity the method divides by, or needs positive, was
 	// not (the matrix or preconditioner is not SPD, or a NaN or Inf appeared).
@@ -121,20 +124,23 @@ type Recorder interface {
 	Finish(r *Result)
 }
 
-// Settings control a CG solve. The zero value works; each field's comment
+// Settings control a solve. The zero value works; each field's comment
 // gives its default, and Result.Settings echoes the values actually used.
+// Negative tolerances, MaxIter or TimeLimit are programmer mistakes: the
+// methods panic on them.
 //
 // The one stopping test is on the unpreconditioned true residual:
 //
 //	‖b − A·x‖₂ ≤ max(RelTol·‖b‖₂, AbsTol)
 type Settings struct {
-	// RelTol is the relative tolerance. Default 1e-8.
+	// RelTol is the relative tolerance. Default (when 0) 1e-8.
 	RelTol float64
 	// AbsTol is the absolute tolerance. Default 0.
 	AbsTol float64
-	// MaxIter caps the iterations. Default 10·n.
+	// MaxIter caps the iterations. Default (when 0) 10·n.
 	MaxIter int
-	// TimeLimit is a wall-time budget for the iterations. Default 0: none.
+	// TimeLimit is a wall-time budget for the iterations, checked once per
+	// iteration. Default 0: none.
 	TimeLimit time.Duration
 	// X0 is the starting guess; nil means zero. It is never modified.
 	X0 []float64
@@ -149,13 +155,21 @@ type Settings struct {
 
 // Result describes a finished solve.
 type Result struct {
-	// Method names the method ("cg"); Preconditioner names the
-	// preconditioner ("none", "jacobi", "ic0", ...) as the caller set it.
+	// Method names the method ("cg", also when preconditioned).
+	// Preconditioner names the preconditioner ("none", "jacobi", "ic0",
+	// ...): a method only sees the Preconditioner interface, so it sets
+	// "none" when there is none and leaves the field empty otherwise, for
+	// the caller, who chose it, to fill in.
 	Method         string
 	Preconditioner string
 	Status         Status
 	// Iterations counts products with A inside the loop.
 	Iterations int
+	// Products counts every product with A: Iterations, plus the initial
+	// residual's product (when a start X0 is given), plus each true-residual
+	// recomputation (periodic refreshes, checks before convergence is
+	// declared, and the final check that fills TrueResidualNorm).
+	Products int
 	// ResidualNorm is the method's recursive ‖r‖₂ at the end;
 	// TrueResidualNorm is ‖b − A·x‖₂ recomputed from the returned x.
 	ResidualNorm     float64
@@ -165,13 +179,16 @@ type Result struct {
 	RHSNorm     float64
 	RelResidual float64
 	// LambdaMin, LambdaMax and Cond estimate the extreme eigenvalues and the
-	// condition number of the preconditioned operator M⁻¹A from the Lanczos
-	// tridiagonal built from CG's coefficients. They are estimates: λmax and
-	// λmin are approached from inside, so Cond is a lower bound. Zero when
-	// fewer than two iterations ran.
+	// condition number of the preconditioned operator M⁻¹A (A itself without
+	// a preconditioner) from the Lanczos tridiagonal built from CG's
+	// coefficients. They are estimates: λmax and λmin are approached from
+	// inside, so Cond is a lower bound. Zero when fewer than two iterations
+	// ran. Methods that do not estimate them leave them zero.
 	LambdaMin, LambdaMax, Cond float64
-	// Setup is the preconditioner set-up time as the caller reports it;
-	// Solve the time in the iteration; PerIteration Solve/Iterations.
+	// Setup is the preconditioner set-up time: the methods cannot know it
+	// and leave it zero for the caller to fill in. Solve is the wall time
+	// of the whole solve call (initial residual, iterations and final
+	// check); PerIteration is Solve/Iterations (zero without iterations).
 	Setup, Solve, PerIteration time.Duration
 	// Settings are the settings used, defaults filled in.
 	Settings Settings
