@@ -374,4 +374,3 @@ func tickLabel(v float64) string {
 	}
 	return s
 }
-
