@@ -1,0 +1,260 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+)
+
+// Exit statuses, documented in the package comment, in every command's
+// --help and in the README.
+const (
+	exitOK           = 0
+	exitFailure      = 1 // anything else
+	exitUsage        = 2 // bad usage, unreadable or malformed input
+	exitNotConverged = 3 // cap, time limit, stagnation, cancelled
+	exitBreakdown    = 4 // not positive definite, NaN/Inf
+)
+
+// exitError carries the exit status an error maps to. quiet means the
+// message has already been shown (for example a summary that says why the
+// solve stopped), so main prints nothing more.
+type exitError struct {
+	code  int
+	err   error
+	quiet bool
+}
+
+func (e *exitError) Error() string { return e.err.Error() }
+func (e *exitError) Unwrap() error { return e.err }
+
+// usageErrorf reports bad usage: exit status 2.
+func usageErrorf(format string, args ...any) error {
+	return &exitError{code: exitUsage, err: fmt.Errorf(format, args...)}
+}
+
+// inputError marks err (unreadable or malformed input) for exit status 2.
+func inputError(err error) error {
+	if err == nil {
+		return nil
+	}
+	return &exitError{code: exitUsage, err: err}
+}
+
+// exitStatus maps the error run returned to the process exit status and
+// prints its message on stderr (unless it has been shown already).
+func exitStatus(err error, stderr io.Writer) int {
+	if err == nil {
+		return exitOK
+	}
+	code := exitFailure
+	var ee *exitError
+	if errors.As(err, &ee) {
+		code = ee.code
+		if ee.quiet {
+			return code
+		}
+	}
+	fmt.Fprintf(stderr, "residua: %v\n", err)
+	return code
+}
+
+// env is what a command may touch besides its arguments.
+type env struct {
+	stdin          io.Reader
+	stdout, stderr io.Writer
+}
+
+// command is one subcommand of the residua binary.
+type command struct {
+	name    string
+	summary string // one line for "residua help"
+	run     func(ctx context.Context, e *env, args []string) error
+}
+
+// commands lists the subcommands in the order "residua help" shows them. It
+// is filled by init functions in the commands' files.
+var commands []*command
+
+func register(c *command) { commands = append(commands, c) }
+
+func lookup(name string) *command {
+	for _, c := range commands {
+		if c.name == name {
+			return c
+		}
+	}
+	return nil
+}
+
+// run is the whole program: it dispatches args[0] to a subcommand. It
+// returns nil on success and otherwise an error that exitStatus maps to an
+// exit status.
+func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
+	e := &env{stdin: stdin, stdout: stdout, stderr: stderr}
+	if len(args) == 0 {
+		printOverview(stderr)
+		return &exitError{code: exitUsage, err: errors.New("no command given"), quiet: true}
+	}
+	name := args[0]
+	switch name {
+	case "help", "-h", "-help", "--help":
+		if len(args) > 1 && name == "help" {
+			c := lookup(args[1])
+			if c == nil {
+				return usageErrorf("help: unknown command %q (run 'residua help')", args[1])
+			}
+			return c.run(ctx, e, []string{"--help"})
+		}
+		printOverview(stdout)
+		return nil
+	}
+	c := lookup(name)
+	if c == nil {
+		return usageErrorf("unknown command %q (run 'residua help' for the list)", name)
+	}
+	return c.run(ctx, e, args[1:])
+}
+
+func printOverview(w io.Writer) {
+	fmt.Fprintf(w, "residua solves sparse SPD systems and least-squares problems with Krylov methods.\n\n")
+	fmt.Fprintf(w, "Usage: residua COMMAND [arguments and flags]\n\nCommands:\n")
+	for _, c := range commands {
+		fmt.Fprintf(w, "  %-9s %s\n", c.name, c.summary)
+	}
+	fmt.Fprintf(w, "  %-9s %s\n", "help", "this text; 'residua help COMMAND' or 'residua COMMAND --help' for one command")
+	fmt.Fprintf(w, "\n%s", exitStatusText)
+}
+
+// exitStatusText is appended to every command's help.
+const exitStatusText = `Exit status:
+  0  success (solve, lsq: the answer met the tolerance)
+  1  anything else (I/O failure, server unreachable, internal error)
+  2  bad usage, or an unreadable or malformed input file (the message names file and line)
+  3  the solve stopped without converging: iteration cap, time limit, stagnation,
+     or cancelled (SIGINT/SIGTERM)
+  4  breakdown: the matrix or preconditioner is not positive definite, or NaN/Inf appeared
+`
+
+// cmdFlags is a subcommand's flag set with its help text.
+type cmdFlags struct {
+	*flag.FlagSet
+	usage string // "residua solve A.mtx [flags]"
+	about string // paragraphs after the usage line
+}
+
+func newFlags(name, usage, about string) *cmdFlags {
+	fs := flag.NewFlagSet(name, flag.ContinueOnError)
+	fs.SetOutput(io.Discard)
+	return &cmdFlags{FlagSet: fs, usage: usage, about: about}
+}
+
+// errHelp is returned by parse when --help was asked for and printed; the
+// command returns nil.
+var errHelp = errors.New("help shown")
+
+// parse parses args, allowing flags after positional arguments (flag stops at
+// the first non-flag argument, so the remaining arguments are parsed again
+// after each positional one); "--" ends the flags. On --help it prints the
+// help on stdout and returns errHelp; on a bad flag a usage error.
+func (f *cmdFlags) parse(e *env, args []string) ([]string, error) {
+	var pos []string
+	for {
+		err := f.Parse(args)
+		if errors.Is(err, flag.ErrHelp) {
+			f.printHelp(e.stdout)
+			return nil, errHelp
+		}
+		if err != nil {
+			return nil, usageErrorf("%s: %v (run 'residua %s --help')", f.Name(), err, f.Name())
+		}
+		rest := f.Args()
+		used := len(args) - len(rest)
+		if used > 0 && args[used-1] == "--" {
+			return append(pos, rest...), nil
+		}
+		if len(rest) == 0 {
+			return pos, nil
+		}
+		pos = append(pos, rest[0])
+		args = rest[1:]
+	}
+}
+
+// printHelp writes the command's usage, description, flags and exit statuses.
+func (f *cmdFlags) printHelp(w io.Writer) {
+	fmt.Fprintf(w, "Usage: %s\n\n", f.usage)
+	if f.about != "" {
+		fmt.Fprintf(w, "%s\n\n", strings.TrimSpace(f.about))
+	}
+	type row struct{ left, right string }
+	var rows []row
+	width := 0
+	f.VisitAll(func(fl *flag.Flag) {
+		name, usage := flag.UnquoteUsage(fl)
+		dash := "--"
+		if len(fl.Name) == 1 {
+			dash = "-"
+		}
+		left := dash + fl.Name
+		if name != "" {
+			left += " " + name
+		}
+		if fl.DefValue != "" && fl.DefValue != "0" && fl.DefValue != "false" && fl.DefValue != "0s" {
+			usage += " (default " + fl.DefValue + ")"
+		}
+		rows = append(rows, row{left, usage})
+		width = max(width, len(left))
+	})
+	sort.SliceStable(rows, func(i, j int) bool {
+		return strings.TrimLeft(rows[i].left, "-") < strings.TrimLeft(rows[j].left, "-")
+	})
+	if len(rows) > 0 {
+		fmt.Fprintf(w, "Flags:\n")
+		for _, r := range rows {
+			fmt.Fprintf(w, "  %-*s  %s\n", width, r.left, r.right)
+		}
+		fmt.Fprintf(w, "  %-*s  %s\n\n", width, "-h, --help", "this text")
+	}
+	fmt.Fprint(w, exitStatusText)
+}
+
+// writeFileAtomic writes path through a temporary file in the same folder
+// that is renamed over path only when write succeeded, so an interrupted or
+// failed run never leaves a half-written file and never touches an
+// existing one.
+func writeFileAtomic(path string, write func(w io.Writer) error) (err error) {
+	dir, base := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if err != nil {
+			tmp.Close()
+			os.Remove(tmp.Name())
+		}
+	}()
+	if err = write(tmp); err != nil {
+		return err
+	}
+	if err = tmp.Chmod(0o644); err != nil {
+		return err
+	}
+	if err = tmp.Sync(); err != nil {
+		return err
+	}
+	if err = tmp.Close(); err != nil {
+		return err
+	}
+	return os.Rename(tmp.Name(), path)
+}
