@@ -2,9 +2,13 @@ package krylov
 
 import (
 	"context"
+	"errors"
 	"math"
 	"math/rand/v2"
+	"slices"
+	"strings"
 	"testing"
+	"time"
 
 	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
@@ -228,7 +232,7 @@ var lsqMethods = []LSQMethod{LSQR, CGLS}
 // and gonum's QR of the augmented system [A; λI]·x ≈ [b; 0] (damped).
 func TestLSQRandom(t *testing.T) {
 	cases := []struct {
-		name string
+		name    string
 		m, n    int
 		lam     float64
 		decades float64
@@ -303,5 +307,441 @@ func checkMinNorm(t *testing.T, a *mat.Dense, b, x []float64, info svdInfo) {
 	leak := 1e3 * 0x1p-53 * (info.sv[0] / sr) * xn
 	if diff := floats.Distance(x, info.minNorm, 2); diff > bound+leak {
 		t.Errorf("‖x − x⁺‖ = %.3g > %.3g + %.3g", diff, bound, leak)
+	}
+}
+
+// historyRecorder keeps every row and the finished result.
+type historyRecorder struct {
+	rows     []Progress
+	finished []*Result
+	onRecord func(p Progress) error
+}
+
+func (h *historyRecorder) Record(p Progress) error {
+	h.rows = append(h.rows, p)
+	if h.onRecord != nil {
+		return h.onRecord(p)
+	}
+	return nil
+}
+
+func (h *historyRecorder) Finish(r *Result) { h.finished = append(h.finished, r) }
+
+// TestLSQConsistent: for b = A·x* with A of full column rank the methods
+// stop by the residual rule and x is within ‖r‖/σ_min of x*, because
+// x − x* = A⁺·(A·x − b) when A has full column rank (Björck 1996, §1.2).
+func TestLSQConsistent(t *testing.T) {
+	a, _ := randProblem(7, 60, 20, 2)
+	rng := rand.New(rand.NewPCG(8, 1))
+	xs := make([]float64, 20)
+	for j := range xs {
+		xs[j] = rng.NormFloat64()
+	}
+	b := make([]float64, 60)
+	denseOp{a}.MulVec(b, xs)
+	info := svdSolve(t, a, b)
+	for _, meth := range lsqMethods {
+		for _, lam := range []float64{0} {
+			t.Run(meth.String(), func(t *testing.T) {
+				x := make([]float64, 20)
+				res, err := LSQ(context.Background(), normedOp{denseOp{a}}, b, x, LSQSettings{Method: meth, Damp: lam})
+				if err != nil {
+					t.Fatal(err)
+				}
+				checkResult(t, res, a, b, x, 0)
+				if res.StoppedBy != RuleResidual {
+					t.Errorf("stopped by %q, want %q", res.StoppedBy, RuleResidual)
+				}
+				if d, bound := floats.Distance(x, xs, 2), res.ResidualNorm/info.sv[len(info.sv)-1]; d > bound {
+					t.Errorf("‖x − x*‖ = %.3g > ‖r‖/σ_min = %.3g", d, bound)
+				}
+			})
+		}
+	}
+}
+
+// TestLSQZeroColumn: a zero column makes A rank deficient. With column
+// scaling it is found and reported by index, left unscaled, and its entry of
+// x keeps x0's value, so that from x0 = 0 the result is the minimum-norm
+// solution (against gonum's SVD). With damping the minimiser has a zero
+// there, whatever x0 (the term λ²x_j² is the only one that involves x_j).
+func TestLSQZeroColumn(t *testing.T) {
+	a, b := randProblem(11, 40, 12, 2)
+	zero := []int{5, 9}
+	for _, j := range zero {
+		for i := range 40 {
+			a.Set(i, j, 0)
+		}
+	}
+	info := svdSolve(t, a, b)
+	if info.rank != 10 {
+		t.Fatalf("gonum SVD rank %d, want 10", info.rank)
+	}
+	x0 := make([]float64, 12)
+	x0[5], x0[9] = 3, -2
+	for _, meth := range lsqMethods {
+		for _, sc := range []Scaling{ScaleAuto, ScaleColumns} {
+			t.Run(meth.String()+"/"+sc.String(), func(t *testing.T) {
+				x := make([]float64, 12)
+				res, err := LSQ(context.Background(), normedOp{denseOp{a}}, b, x, LSQSettings{Method: meth, Scaling: sc})
+				if err != nil {
+					t.Fatal(err)
+				}
+				if res.Scaling != "colscale" || !slices.Equal(res.ZeroColumns, zero) {
+					t.Fatalf("scaling %q, zero columns %v; want colscale, %v", res.Scaling, res.ZeroColumns, zero)
+				}
+				checkResult(t, res, a, b, x, 0)
+				if x[5] != 0 || x[9] != 0 {
+					t.Errorf("x[5], x[9] = %g, %g, want exactly 0", x[5], x[9])
+				}
+				checkMinNorm(t, a, b, x, info)
+
+				// Warm start: the zero columns' entries keep x0's values
+				// and the others are the unique minimiser's.
+				res, err = LSQ(context.Background(), normedOp{denseOp{a}}, b, x, LSQSettings{Method: meth, Scaling: sc, X0: x0})
+				if err != nil {
+					t.Fatal(err)
+				}
+				checkResult(t, res, a, b, x, 0)
+				if x[5] != 3 || x[9] != -2 {
+					t.Errorf("warm start: x[5], x[9] = %g, %g, want x0's 3, -2", x[5], x[9])
+				}
+				want := slices.Clone(info.minNorm)
+				want[5], want[9] = 3, -2
+				checkMinNorm(t, a, b, x, svdInfo{sv: info.sv, rank: info.rank, minNorm: want})
+
+				// Damped: the unique minimiser, against gonum's QR of
+				// [A; λI]; its zero-column entries are 0.
+				const lam = 0.1
+				res, err = LSQ(context.Background(), normedOp{denseOp{a}}, b, x, LSQSettings{Method: meth, Scaling: sc, X0: x0, Damp: lam})
+				if err != nil {
+					t.Fatal(err)
+				}
+				checkResult(t, res, a, b, x, lam)
+				aa, bb := augmented(a, b, lam)
+				checkAgainst(t, a, b, x, qrSolve(t, aa, bb), lam, 0, info.sv[0])
+			})
+		}
+	}
+}
+
+// TestLSQZeroRHS: b = 0 (and x0 = 0) is solved by x = 0 at iteration 0,
+// converged; x is overwritten.
+func TestLSQZeroRHS(t *testing.T) {
+	a, _ := randProblem(3, 20, 8, 1)
+	for _, meth := range lsqMethods {
+		for _, lam := range []float64{0, 0.5} {
+			x := []float64{1, 2, 3, 4, 5, 6, 7, 8}
+			rec := &historyRecorder{}
+			res, err := LSQ(context.Background(), normedOp{denseOp{a}}, make([]float64, 20), x, LSQSettings{Method: meth, Damp: lam, Recorder: rec})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if res.Status != Converged || res.Iterations != 0 || res.StoppedBy != RuleResidual {
+				t.Errorf("%v, λ=%g: %v by %q after %d iterations; want converged by residual at 0", meth, lam, res.Status, res.StoppedBy, res.Iterations)
+			}
+			if floats.Norm(x, 2) != 0 || res.ResidualNorm != 0 || res.NormalResidualNorm != 0 || res.RelResidual != 0 {
+				t.Errorf("%v, λ=%g: x = %v, ‖r‖ %g, ‖g‖ %g, rel %g; want all zero", meth, lam, x, res.ResidualNorm, res.NormalResidualNorm, res.RelResidual)
+			}
+			if len(rec.rows) != 1 || rec.rows[0].Iteration != 0 || len(rec.finished) != 1 {
+				t.Errorf("%v: recorder got %d rows and %d finishes, want 1 and 1", meth, len(rec.rows), len(rec.finished))
+			}
+		}
+	}
+}
+
+// TestLSQStops covers the ways to end without converging: the iteration
+// cap, cancellation (seen within one iteration), a Recorder error and the
+// time budget. None of them looks like success.
+func TestLSQStops(t *testing.T) {
+	a, b := randProblem(21, 60, 25, 3)
+	errStop := errors.New("recorder says stop")
+	for _, meth := range lsqMethods {
+		t.Run(meth.String()+"/cap", func(t *testing.T) {
+			x := make([]float64, 25)
+			res, err := LSQ(context.Background(), denseOp{a}, b, x, LSQSettings{Method: meth, MaxIter: 3})
+			if err != nil || res.Status != IterationLimit || res.Iterations != 3 || res.StoppedBy != "" {
+				t.Errorf("got %v by %q after %d, err %v; want iteration-limit after 3, nil", res.Status, res.StoppedBy, res.Iterations, err)
+			}
+			g, r := gradient(a, b, x, 0)
+			if res.ResidualNorm != floats.Norm(r, 2) && math.Abs(res.ResidualNorm-floats.Norm(r, 2)) > 1e-12*floats.Norm(b, 2) {
+				t.Errorf("ResidualNorm %g is not the true ‖b − A·x‖ %g", res.ResidualNorm, floats.Norm(r, 2))
+			}
+			_ = g
+		})
+		t.Run(meth.String()+"/cancel", func(t *testing.T) {
+			ctx, cancel := context.WithCancel(context.Background())
+			defer cancel()
+			rec := &historyRecorder{onRecord: func(p Progress) error {
+				if p.Iteration == 4 {
+					cancel()
+				}
+				return nil
+			}}
+			x := make([]float64, 25)
+			res, err := LSQ(ctx, denseOp{a}, b, x, LSQSettings{Method: meth, Recorder: rec})
+			if !errors.Is(err, context.Canceled) || res.Status != Cancelled || res.Iterations != 4 {
+				t.Errorf("got %v after %d, err %v; want cancelled after 4, context.Canceled", res.Status, res.Iterations, err)
+			}
+			if len(rec.finished) != 1 || rec.finished[0].Status != Cancelled {
+				t.Errorf("Finish calls %d", len(rec.finished))
+			}
+		})
+		t.Run(meth.String()+"/recorder-error", func(t *testing.T) {
+			rec := &historyRecorder{onRecord: func(p Progress) error {
+				if p.Iteration == 2 {
+					return errStop
+				}
+				return nil
+			}}
+			x := make([]float64, 25)
+			res, err := LSQ(context.Background(), denseOp{a}, b, x, LSQSettings{Method: meth, Recorder: rec})
+			if err != errStop || res.Status != Cancelled || res.Iterations != 2 {
+				t.Errorf("got %v after %d, err %v; want cancelled after 2, %v", res.Status, res.Iterations, err, errStop)
+			}
+		})
+		t.Run(meth.String()+"/time", func(t *testing.T) {
+			x := make([]float64, 25)
+			res, err := LSQ(context.Background(), denseOp{a}, b, x, LSQSettings{Method: meth, TimeLimit: time.Nanosecond})
+			if err != nil || res.Status != TimeLimit || res.Iterations != 0 {
+				t.Errorf("got %v after %d, err %v; want time-limit after 0", res.Status, res.Iterations, err)
+			}
+		})
+	}
+}
+
+// TestLSQHistory: the recorder sees iteration 0 with ‖b‖ and ‖Aᵀb‖ (x0 = 0),
+// then one row per iteration; a capped run's last row holds the method's
+// recursive estimates of ‖r‖ and ‖Aᵀr − λ²x‖ (Paige and Saunders 1982,
+// §5.1), which match the true values the result recomputes from x, to 1e-9
+// relative on this well-conditioned problem (the estimates are exact in
+// exact arithmetic; the allowance is for their drift, common practice).
+func TestLSQHistory(t *testing.T) {
+	a, b := randProblem(31, 50, 20, 1)
+	atb := make([]float64, 20)
+	denseOp{a}.MulVecTrans(atb, b)
+	x0 := make([]float64, 20)
+	for j := range x0 {
+		x0[j] = 0.1 * float64(j)
+	}
+	for _, meth := range lsqMethods {
+		for _, c := range []struct {
+			name string
+			s    LSQSettings
+		}{
+			{"plain", LSQSettings{Scaling: ScaleNone}},
+			{"scaled", LSQSettings{Scaling: ScaleColumns}},
+			{"damped-warm", LSQSettings{Scaling: ScaleColumns, Damp: 2, X0: x0}},
+		} {
+			t.Run(meth.String()+"/"+c.name, func(t *testing.T) {
+				for k := 1; k <= 12; k++ {
+					rec := &historyRecorder{}
+					s := c.s
+					s.Method, s.MaxIter, s.Recorder = meth, k, rec
+					x := make([]float64, 20)
+					res, err := LSQ(context.Background(), normedOp{denseOp{a}}, b, x, s)
+					if err != nil || res.Status != IterationLimit {
+						t.Fatalf("k=%d: %v, %v", k, res.Status, err)
+					}
+					if len(rec.rows) != k+1 || len(rec.finished) != 1 {
+						t.Fatalf("k=%d: %d rows, %d finishes", k, len(rec.rows), len(rec.finished))
+					}
+					for i, p := range rec.rows {
+						if p.Iteration != i {
+							t.Fatalf("row %d has iteration %d", i, p.Iteration)
+						}
+					}
+					if c.s.X0 == nil {
+						r0 := rec.rows[0]
+						if r0.ResidualNorm != floats.Norm(b, 2) || math.Abs(r0.NormalResidualNorm-floats.Norm(atb, 2)) > 1e-12*floats.Norm(atb, 2) {
+							t.Errorf("row 0: ‖r‖ %g, ‖Aᵀr‖ %g; want ‖b‖ %g, ‖Aᵀb‖ %g", r0.ResidualNorm, r0.NormalResidualNorm, floats.Norm(b, 2), floats.Norm(atb, 2))
+						}
+					}
+					last := rec.rows[k]
+					if math.Abs(last.ResidualNorm-res.ResidualNorm) > 1e-9*res.ResidualNorm ||
+						math.Abs(last.NormalResidualNorm-res.NormalResidualNorm) > 1e-9*res.NormalResidualNorm {
+						t.Errorf("k=%d: estimates ‖r‖ %.12g, ‖g‖ %.12g; true %.12g, %.12g", k,
+							last.ResidualNorm, last.NormalResidualNorm, res.ResidualNorm, res.NormalResidualNorm)
+					}
+					if rel := last.ResidualNorm / floats.Norm(b, 2); last.RelResidual != rel {
+						t.Errorf("RelResidual %g, want %g", last.RelResidual, rel)
+					}
+				}
+			})
+		}
+	}
+}
+
+// TestLSQWarmStart: a warm start reaches the same minimiser (within the
+// bound of checkAgainst), in fewer iterations from a good guess, and never
+// modifies X0; x may be X0 itself.
+func TestLSQWarmStart(t *testing.T) {
+	a, b := randProblem(41, 70, 30, 2)
+	info := svdSolve(t, a, b)
+	for _, meth := range lsqMethods {
+		for _, lam := range []float64{0, 0.5} {
+			t.Run(meth.String()+"/"+map[bool]string{true: "damped", false: "undamped"}[lam > 0], func(t *testing.T) {
+				aa, bb := augmented(a, b, lam)
+				ref := qrSolve(t, aa, bb)
+				x := make([]float64, 30)
+				cold, err := LSQ(context.Background(), normedOp{denseOp{a}}, b, x, LSQSettings{Method: meth, Damp: lam})
+				if err != nil {
+					t.Fatal(err)
+				}
+				x0 := slices.Clone(ref)
+				for j := range x0 {
+					x0[j] *= 1 + 1e-3*float64(j%3-1)
+				}
+				keep := slices.Clone(x0)
+				warm, err := LSQ(context.Background(), normedOp{denseOp{a}}, b, x, LSQSettings{Method: meth, Damp: lam, X0: x0})
+				if err != nil {
+					t.Fatal(err)
+				}
+				checkResult(t, warm, a, b, x, lam)
+				checkAgainst(t, a, b, x, ref, lam, info.sv[len(info.sv)-1], info.sv[0])
+				if !slices.Equal(x0, keep) {
+					t.Error("X0 was modified")
+				}
+				if warm.Iterations >= cold.Iterations {
+					t.Errorf("warm start took %d iterations, cold %d", warm.Iterations, cold.Iterations)
+				}
+				// x aliasing X0.
+				res, err := LSQ(context.Background(), normedOp{denseOp{a}}, b, x0, LSQSettings{Method: meth, Damp: lam, X0: x0})
+				if err != nil {
+					t.Fatal(err)
+				}
+				checkResult(t, res, a, b, x0, lam)
+				checkAgainst(t, a, b, x0, ref, lam, info.sv[len(info.sv)-1], info.sv[0])
+			})
+		}
+	}
+}
+
+// TestLSQSettingsEcho: the zero settings get the documented defaults, and
+// the result says what was used.
+func TestLSQSettingsEcho(t *testing.T) {
+	a, b := randProblem(51, 30, 12, 1)
+	cases := []struct {
+		name    string
+		op      TransOperator
+		m, n    int
+		s       LSQSettings
+		want    LSQSettings
+		scaling string
+	}{
+		{"tall", normedOp{denseOp{a}}, 30, 12, LSQSettings{},
+			LSQSettings{ATol: 1e-8, BTol: 1e-8, MaxIter: 120, Scaling: ScaleColumns, Method: LSQR}, "colscale"},
+		{"tall-no-norms", denseOp{a}, 30, 12, LSQSettings{},
+			LSQSettings{ATol: 1e-8, BTol: 1e-8, MaxIter: 120, Scaling: ScaleNone, Method: LSQR}, "none"},
+		{"wide", normedOp{denseOp{mat.DenseCopyOf(a.T())}}, 12, 30, LSQSettings{},
+			LSQSettings{ATol: 1e-8, BTol: 1e-8, MaxIter: 120, Scaling: ScaleNone, Method: LSQR}, "none"},
+		{"wide-damped", normedOp{denseOp{mat.DenseCopyOf(a.T())}}, 12, 30, LSQSettings{Damp: 1, Method: CGLS},
+			LSQSettings{Damp: 1, ATol: 1e-8, BTol: 1e-8, MaxIter: 300, Scaling: ScaleNone, Method: CGLS}, "none"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			bb := b
+			if c.m != 30 {
+				bb = b[:c.m]
+			}
+			res, err := LSQ(context.Background(), c.op, bb, make([]float64, c.n), c.s)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if got := res.Settings; got.Damp != c.want.Damp || got.ATol != c.want.ATol || got.BTol != c.want.BTol ||
+				got.MaxIter != c.want.MaxIter || got.Scaling != c.want.Scaling || got.Method != c.want.Method {
+				t.Errorf("settings %+v, want %+v", res.Settings, c.want)
+			}
+			if res.Scaling != c.scaling || res.Method != c.want.Method.String() {
+				t.Errorf("result names %q, %q", res.Method, res.Scaling)
+			}
+		})
+	}
+	// Column scaling asked of an operator that cannot give column norms.
+	x := []float64{7, 7, 7, 7, 7, 7, 7, 7, 7, 7, 7, 7}
+	if _, err := LSQ(context.Background(), denseOp{a}, b, x, LSQSettings{Scaling: ScaleColumns}); err != ErrNoColumnNorms {
+		t.Errorf("err %v, want ErrNoColumnNorms", err)
+	}
+}
+
+// nanOp turns a product into NaN after a few calls.
+type nanOp struct {
+	denseOp
+	calls *int
+}
+
+func (o nanOp) MulVec(dst, x []float64) {
+	o.denseOp.MulVec(dst, x)
+	if *o.calls++; *o.calls > 3 {
+		dst[0] = math.NaN()
+	}
+}
+
+// TestLSQBreakdown: a NaN from the operator ends the solve with status
+// Breakdown and a *BreakdownError wrapping ErrNotFinite.
+func TestLSQBreakdown(t *testing.T) {
+	a, b := randProblem(61, 30, 10, 1)
+	for _, meth := range lsqMethods {
+		calls := 0
+		x := make([]float64, 10)
+		res, err := LSQ(context.Background(), nanOp{denseOp{a}, &calls}, b, x, LSQSettings{Method: meth})
+		var be *BreakdownError
+		if res.Status != Breakdown || !errors.Is(err, ErrNotFinite) || !errors.As(err, &be) || be.Iteration < 1 {
+			t.Errorf("%v: status %v, err %v; want breakdown with ErrNotFinite at iteration ≥ 1", meth, res.Status, err)
+		}
+	}
+}
+
+// TestLSQPanics: wrong lengths and invalid settings are programmer mistakes.
+func TestLSQPanics(t *testing.T) {
+	a, b := randProblem(71, 10, 4, 1)
+	op := denseOp{a}
+	cases := []struct {
+		name string
+		b, x []float64
+		s    LSQSettings
+	}{
+		{"short b", b[:9], make([]float64, 4), LSQSettings{}},
+		{"long x", b, make([]float64, 5), LSQSettings{}},
+		{"short X0", b, make([]float64, 4), LSQSettings{X0: make([]float64, 3)}},
+		{"negative damp", b, make([]float64, 4), LSQSettings{Damp: -1}},
+		{"NaN atol", b, make([]float64, 4), LSQSettings{ATol: math.NaN()}},
+		{"negative MaxIter", b, make([]float64, 4), LSQSettings{MaxIter: -1}},
+		{"unknown method", b, make([]float64, 4), LSQSettings{Method: 9}},
+		{"unknown scaling", b, make([]float64, 4), LSQSettings{Scaling: 9}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			defer func() {
+				msg, _ := recover().(string)
+				if !strings.HasPrefix(msg, "krylov: ") {
+					t.Errorf("panic %q, want one prefixed \"krylov: \"", msg)
+				}
+			}()
+			LSQ(context.Background(), op, c.b, c.x, c.s)
+		})
+	}
+}
+
+// TestLSQAllocs: the iterations allocate nothing: a run of 40 iterations
+// allocates exactly as much as a run of 4 (set-up only).
+func TestLSQAllocs(t *testing.T) {
+	a, b := randProblem(81, 200, 100, 3)
+	op := normedOp{denseOp{a}}
+	x := make([]float64, 100)
+	for _, meth := range lsqMethods {
+		for _, lam := range []float64{0, 0.1} {
+			run := func(k int) float64 {
+				return testing.AllocsPerRun(3, func() {
+					res, _ := LSQ(context.Background(), op, b, x, LSQSettings{Method: meth, MaxIter: k, Damp: lam, ATol: 1e-20, BTol: 1e-20})
+					if res.Iterations != k {
+						t.Fatalf("ran %d iterations, want %d", res.Iterations, k)
+					}
+				})
+			}
+			if few, many := run(4), run(40); few != many {
+				t.Errorf("%v, λ=%g: %v allocations for 4 iterations, %v for 40", meth, lam, few, many)
+			}
+		}
 	}
 }
