@@ -1,0 +1,62 @@
+// Package matrixio reads and writes sparse matrices and vectors in the Matrix
+// Market exchange format (R. F. Boisvert, R. Pozo, K. Remington, "The Matrix
+// Market Exchange Formats: Initial Design", NIST, 1996).
+//
+// # Reading
+//
+// ReadMatrix and ReadVector parse a plain Matrix Market stream;
+// ReadMatrixFile, ReadVectorFile and ReadBundleRHS open files, undo gzip
+// compression and find the members of the collection's bundles
+// (NAME.tar.gz holding NAME/NAME.mtx and NAME/NAME_b.mtx) without unpacking
+// them to disk. Compression and archives are the loader's business; the
+// parser only ever sees text.
+//
+// Everything the format defines for real data is accepted: objects matrix
+// and vector, formats coordinate and array (column-major; one triangle by
+// columns for symmetric and skew-symmetric arrays), fields real, double,
+// integer (any int64, rounded to the nearest float64 beyond 2^53) and
+// pattern (every value 1), symmetries general, symmetric and
+// skew-symmetric. Complex data and the hermitian symmetry are refused with
+// ErrComplex: residua solves real systems.
+//
+// The reader is lenient where the format allows it (keywords in any case,
+// blanks around fields, blank lines, CRLF line ends, comment lines anywhere
+// before the size line) and strict on the data: indices are 1-based and in
+// range, the number of entries equals the size line's (a file that ends
+// early is io.ErrUnexpectedEOF), values are finite numbers, and a symmetric
+// file must store one triangle only (entries on both sides of the diagonal
+// are an error, not silently doubled). Duplicate entries are summed, the
+// finite-element assembly convention, and counted in Info.Duplicates.
+//
+// A result is in CSR form (package sparse) with full storage: symmetric and
+// skew-symmetric files are expanded to both triangles, the diagonal stored
+// once. Explicit zeros are kept unless Options.DropZeros is set.
+//
+// # Limits and memory
+//
+// Options.Limits bounds rows, columns, stored entries and bytes of text. The
+// sizes are checked against the size line before anything is allocated, and
+// storage then grows only with the entries actually read, so a short file
+// that claims a huge matrix costs nothing. The text is never held whole: it
+// is parsed as it streams in.
+//
+// # Writing
+//
+// WriteMatrix writes coordinate real files, general or (for exactly symmetric
+// matrices) the lower triangle only; WriteVector writes array files. Values
+// are written in the shortest form that reads back to the same float64, so a
+// write→read round trip is exact. WriteMatrixFile and WriteVectorFile write
+// through a temporary file in the target's folder and rename it into place
+// after an fsync, so an interrupted run never leaves a half-written file.
+//
+// # Errors
+//
+// Defects of the input are returned as *ParseError, which carries the file
+// name, the line, the column and a reason that wraps one of the Err...
+// values (test with errors.Is); its message says what was expected and what
+// was found. Programmer mistakes, such as writing a nil matrix, panic with a
+// message that starts with "matrixio:".
+//
+// No function keeps a reference to its arguments; results are newly
+// allocated and owned by the caller.
+package matrixio

@@ -1,0 +1,175 @@
+package matrixio
+
+import (
+	"archive/tar"
+	"bufio"
+	"bytes"
+	"compress/gzip"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"github.com/residua/residua/sparse"
+)
+
+// ReadMatrixFile reads a Matrix Market matrix from a file: plain text, gzip
+// compressed (recognised by its content, whatever the name), or one of the
+// collection's bundles NAME.tar.gz holding NAME/NAME.mtx, which is read
+// straight from the archive without unpacking it to disk. Errors name the
+// file (for a bundle, "path!NAME/NAME.mtx").
+func ReadMatrixFile(path string, opt *Options) (*sparse.CSR, Info, error) {
+	var a *sparse.CSR
+	var info Info
+	err := openText(path, "", func(r io.Reader, name string) error {
+		var err error
+		a, info, err = readMatrix(r, name, opt)
+		return err
+	})
+	return a, info, err
+}
+
+// ReadVectorFile reads a Matrix Market vector (see ReadVector) from a plain
+// or gzip-compressed file. For a bundle NAME.tar.gz it reads the right-hand
+// side NAME/NAME_b.mtx, like ReadBundleRHS.
+func ReadVectorFile(path string, opt *Options) ([]float64, Info, error) {
+	var x []float64
+	var info Info
+	err := openText(path, "_b", func(r io.Reader, name string) error {
+		var err error
+		x, info, err = readVector(r, name, opt)
+		return err
+	})
+	return x, info, err
+}
+
+// ReadBundleRHS reads the right-hand side NAME/NAME_b.mtx of a collection
+// bundle NAME.tar.gz. If the bundle holds none, the error wraps ErrNoRHS.
+func ReadBundleRHS(path string, opt *Options) ([]float64, Info, error) {
+	return ReadVectorFile(path, opt)
+}
+
+// bundleName returns NAME for a path ending in NAME.tar.gz or NAME.tgz.
+func bundleName(path string) string {
+	base := filepath.Base(path)
+	for _, ext := range []string{".tar.gz", ".tgz", ".tar"} {
+		if strings.HasSuffix(base, ext) {
+			return strings.TrimSuffix(base, ext)
+		}
+	}
+	return strings.TrimSuffix(base, filepath.Ext(base))
+}
+
+// openText opens path, undoes gzip compression and, for a tar bundle, finds
+// the member NAME/NAME<suffix>.mtx, then hands the text and the name to use
+// in messages to read.
+func openText(path, suffix string, read func(r io.Reader, name string) error) error {
+	f, err := os.Open(path)
+	if err != nil {
+		return err
+	}
+	defer f.Close()
+	br := bufio.NewReaderSize(f, 1<<20)
+	var r io.Reader = br
+	if magic, _ := br.Peek(2); len(magic) == 2 && magic[0] == 0x1f && magic[1] == 0x8b {
+		gz, err := gzip.NewReader(br)
+		if err != nil {
+			return &ParseError{File: path, Line: 1, Err: fmt.Errorf("reading gzip header: %w", err)}
+		}
+		defer gz.Close()
+		r = gz
+	}
+	tb := bufio.NewReaderSize(r, 1<<20)
+	if head, _ := tb.Peek(512); len(head) == 512 && bytes.HasPrefix(head[257:], []byte("ustar")) {
+		name := bundleName(path)
+		want := name + "/" + name + suffix + ".mtx"
+		tr := tar.NewReader(tb)
+		for {
+			hdr, err := tr.Next()
+			if err == io.EOF {
+				if suffix == "_b" {
+					return fmt.Errorf("matrixio: %s: no member %s: %w", path, want, ErrNoRHS)
+				}
+				return fmt.Errorf("matrixio: %s: no member %s: %w", path, want, os.ErrNotExist)
+			}
+			if err != nil {
+				return fmt.Errorf("matrixio: %s: reading the archive: %w", path, err)
+			}
+			if strings.TrimPrefix(hdr.Name, "./") == want && hdr.Typeflag == tar.TypeReg {
+				return read(tr, path+"!"+want)
+			}
+		}
+	}
+	return read(tb, path)
+}
+
+// writeFileAtomic writes a file through a temporary file in the same folder:
+// write, flush, fsync, close, rename. A run interrupted at any point leaves
+// either the old file or the complete new one, never a part. A path ending
+// in ".gz" is written gzip-compressed.
+func writeFileAtomic(path string, write func(w io.Writer) error) (err error) {
+	dir, base := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if err != nil {
+			tmp.Close()
+			os.Remove(tmp.Name())
+		}
+	}()
+	bw := bufio.NewWriterSize(tmp, 1<<20)
+	var w io.Writer = bw
+	var gz *gzip.Writer
+	if strings.HasSuffix(base, ".gz") {
+		gz = gzip.NewWriter(bw)
+		w = gz
+	}
+	if err = write(w); err != nil {
+		return err
+	}
+	if gz != nil {
+		if err = gz.Close(); err != nil {
+			return err
+		}
+	}
+	if err = bw.Flush(); err != nil {
+		return err
+	}
+	if err = tmp.Chmod(0o644); err != nil {
+		return err
+	}
+	if err = tmp.Sync(); err != nil {
+		return err
+	}
+	if err = tmp.Close(); err != nil {
+		return err
+	}
+	if err = os.Rename(tmp.Name(), path); err != nil {
+		return err
+	}
+	// Make the rename itself durable. Not every system can sync a folder,
+	// and the file is complete either way, so a failure here is ignored.
+	if d, derr := os.Open(dir); derr == nil {
+		_ = d.Sync()
+		d.Close()
+	}
+	return nil
+}
+
+// WriteMatrixFile writes a as WriteMatrix does, atomically (see
+// writeFileAtomic): gzip-compressed if path ends in ".gz".
+func WriteMatrixFile(path string, a *sparse.CSR, sym sparse.Symmetry) error {
+	return writeFileAtomic(path, func(w io.Writer) error { return WriteMatrix(w, a, sym) })
+}
+
+// WriteVectorFile writes x as WriteVector does, atomically: gzip-compressed if
+// path ends in ".gz".
+func WriteVectorFile(path string, x []float64) error {
+	return writeFileAtomic(path, func(w io.Writer) error { return WriteVector(w, x) })
+}

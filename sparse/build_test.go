@@ -1,0 +1,250 @@
+package sparse
+
+import (
+	"errors"
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// buildDense returns the dense row-major form of a, for comparisons.
+func buildDense(a *CSR) []float64 {
+	d := make([]float64, a.Rows*a.Cols)
+	for r := 0; r < a.Rows; r++ {
+		for p := a.RowPtr[r]; p < a.RowPtr[r+1]; p++ {
+			d[r*a.Cols+int(a.ColIdx[p])] += a.Val[p]
+		}
+	}
+	return d
+}
+
+// Duplicates are summed in the order given (the finite-element assembly
+// convention that the Matrix Market format leaves to the reader; Boisvert,
+// Pozo, Remington, NIST 1996, say nothing against repeats) and counted once
+// per merged triplet.
+func TestFromTripletsDuplicates(t *testing.T) {
+	i := []int32{0, 1, 0, 0, 1, 2}
+	j := []int32{1, 1, 1, 0, 1, 2}
+	v := []float64{1, 2, 10, 3, 20, -5}
+	a, st, err := FromTriplets(3, 3, i, j, v, BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := a.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	want := []float64{3, 11, 0, 0, 22, 0, 0, 0, -5}
+	got := buildDense(a)
+	for k := range want {
+		if got[k] != want[k] {
+			t.Fatalf("dense = %v, want %v", got, want)
+		}
+	}
+	if st.Duplicates != 2 || a.NNZ() != 4 {
+		t.Errorf("%d duplicates and %d entries, want 2 and 4", st.Duplicates, a.NNZ())
+	}
+}
+
+// Summation order: a duplicate sequence whose floating-point sum depends on
+// the order must give the left-to-right sum of the given order.
+func TestFromTripletsSumOrder(t *testing.T) {
+	v := []float64{1e16, 1, -1e16, 1}
+	i := []int32{0, 0, 0, 0}
+	a, _, err := FromTriplets(1, 1, i, i, v, BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// IEEE 754 double arithmetic left to right: 1e16+1 is a tie between
+	// 1e16 and 1e16+2 and rounds to even (1e16), so the sum is 1, whereas
+	// exact arithmetic (or another order) would give 2.
+	want := 0.0
+	for _, x := range v {
+		want += x
+	}
+	if a.Val[0] != want {
+		t.Errorf("sum = %v, want %v", a.Val[0], want)
+	}
+}
+
+// Symmetric expansion against a dense reference built by the definition
+// a(j,i) = a(i,j) (skew: -a(i,j)), with duplicates, for random lower and
+// upper triangles; the diagonal must not be doubled.
+func TestFromTripletsSymmetricVsDense(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	for _, sym := range []Symmetry{Symmetric, SkewSymmetric} {
+		for _, upper := range []bool{false, true} {
+			for trial := 0; trial < 50; trial++ {
+				n := 1 + rng.IntN(12)
+				m := rng.IntN(3 * n * n)
+				var ii, jj []int32
+				var vv []float64
+				ref := make([]float64, n*n)
+				for k := 0; k < m; k++ {
+					r, c := rng.IntN(n), rng.IntN(n)
+					if sym == SkewSymmetric && r == c {
+						continue
+					}
+					if (r < c) != upper && r != c {
+						r, c = c, r
+					}
+					x := float64(rng.IntN(7) - 3)
+					ii, jj, vv = append(ii, int32(r)), append(jj, int32(c)), append(vv, x)
+					ref[r*n+c] += x
+					if r != c {
+						if sym == SkewSymmetric {
+							x = -x
+						}
+						ref[c*n+r] += x
+					}
+				}
+				a, _, err := FromTriplets(n, n, ii, jj, vv, BuildOptions{Symmetry: sym})
+				if err != nil {
+					t.Fatal(err)
+				}
+				if err := a.Validate(); err != nil {
+					t.Fatal(err)
+				}
+				got := buildDense(a)
+				for k := range ref {
+					if got[k] != ref[k] {
+						t.Fatalf("%v upper=%v trial %d: entry (%d,%d) = %v, want %v", sym, upper, trial, k/n, k%n, got[k], ref[k])
+					}
+				}
+			}
+		}
+	}
+}
+
+// A 2×2 symmetric example worked by hand: lower triangle (1,0)=4 and the
+// diagonal; the full matrix holds 4 at (0,1) and (1,0), the diagonal once.
+func TestFromTripletsSymmetricSmall(t *testing.T) {
+	a, st, err := FromTriplets(2, 2, []int32{0, 1, 1}, []int32{0, 0, 1}, []float64{2, 4, 3}, BuildOptions{Symmetry: Symmetric})
+	if err != nil {
+		t.Fatal(err)
+	}
+	wantPtr, wantCol, wantVal := []int{0, 2, 4}, []int32{0, 1, 0, 1}, []float64{2, 4, 4, 3}
+	for k := range wantPtr {
+		if a.RowPtr[k] != wantPtr[k] {
+			t.Fatalf("RowPtr = %v, want %v", a.RowPtr, wantPtr)
+		}
+	}
+	for k := range wantCol {
+		if a.ColIdx[k] != wantCol[k] || a.Val[k] != wantVal[k] {
+			t.Fatalf("ColIdx, Val = %v, %v; want %v, %v", a.ColIdx, a.Val, wantCol, wantVal)
+		}
+	}
+	if st != (BuildStats{}) {
+		t.Errorf("stats = %+v, want zero", st)
+	}
+	// A duplicated off-diagonal triplet counts once, not once per triangle.
+	_, st, err = FromTriplets(2, 2, []int32{1, 1}, []int32{0, 0}, []float64{1, 1}, BuildOptions{Symmetry: Symmetric})
+	if err != nil || st.Duplicates != 1 {
+		t.Errorf("duplicates = %d (err %v), want 1", st.Duplicates, err)
+	}
+}
+
+func TestFromTripletsZeros(t *testing.T) {
+	i := []int32{0, 1, 1, 2}
+	j := []int32{0, 1, 1, 0}
+	v := []float64{0, 1, -1, math.Copysign(0, -1)}
+	a, st, err := FromTriplets(3, 3, i, j, v, BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// (0,0)=0, (1,1)=1+(-1)=0, (2,0)=-0: three explicit zeros kept.
+	if a.NNZ() != 3 || st.ExplicitZeros != 3 || st.Dropped != 0 || st.Duplicates != 1 {
+		t.Errorf("nnz %d, stats %+v; want 3 entries, 3 zeros, none dropped, 1 duplicate", a.NNZ(), st)
+	}
+	if !math.Signbit(a.Val[2]) {
+		t.Errorf("negative zero lost its sign: %v", a.Val)
+	}
+	a, st, err = FromTriplets(3, 3, i, j, v, BuildOptions{DropZeros: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := a.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	if a.NNZ() != 0 || st.ExplicitZeros != 3 || st.Dropped != 3 {
+		t.Errorf("nnz %d, stats %+v; want 0 entries, 3 zeros, 3 dropped", a.NNZ(), st)
+	}
+}
+
+func TestFromTripletsErrors(t *testing.T) {
+	tests := []struct {
+		name       string
+		rows, cols int
+		i, j       []int32
+		v          []float64
+		sym        Symmetry
+		want       error
+	}{
+		{"row too large", 2, 2, []int32{2}, []int32{0}, []float64{1}, General, ErrIndexRange},
+		{"negative column", 2, 2, []int32{0}, []int32{-1}, []float64{1}, General, ErrIndexRange},
+		{"negative dimension", -1, 2, nil, nil, nil, General, ErrIndexRange},
+		{"symmetric not square", 2, 3, nil, nil, nil, Symmetric, ErrNotSquare},
+		{"both triangles", 3, 3, []int32{1, 0}, []int32{0, 2}, []float64{1, 1}, Symmetric, ErrBothTriangles},
+		{"skew diagonal", 3, 3, []int32{1}, []int32{1}, []float64{2}, SkewSymmetric, ErrSkewDiagonal},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			_, _, err := FromTriplets(tc.rows, tc.cols, tc.i, tc.j, tc.v, BuildOptions{Symmetry: tc.sym})
+			if !errors.Is(err, tc.want) {
+				t.Errorf("err = %v, want %v", err, tc.want)
+			}
+		})
+	}
+	// A zero on the diagonal of a skew-symmetric matrix is an explicit zero, not an error.
+	if _, st, err := FromTriplets(1, 1, []int32{0}, []int32{0}, []float64{0}, BuildOptions{Symmetry: SkewSymmetric}); err != nil || st.ExplicitZeros != 1 {
+		t.Errorf("skew zero diagonal: %v, %+v", err, st)
+	}
+}
+
+func TestFromTripletsPanicsOnLengths(t *testing.T) {
+	defer func() {
+		if recover() == nil {
+			t.Error("no panic for triplet arrays of different lengths")
+		}
+	}()
+	FromTriplets(2, 2, []int32{0}, []int32{0, 1}, []float64{1}, BuildOptions{})
+}
+
+// Blocks give the same result as the joined triplets, and are released.
+func TestFromTripletBlocks(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	n, m := 40, 600
+	ii, jj, vv := make([]int32, m), make([]int32, m), make([]float64, m)
+	for k := range ii {
+		r, c := rng.IntN(n), rng.IntN(n)
+		if r < c {
+			r, c = c, r
+		}
+		ii[k], jj[k], vv[k] = int32(r), int32(c), rng.NormFloat64()
+	}
+	want, wst, err := FromTriplets(n, n, ii, jj, vv, BuildOptions{Symmetry: Symmetric})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var blocks []Triplets
+	for lo := 0; lo < m; lo += 77 {
+		hi := min(lo+77, m)
+		blocks = append(blocks, Triplets{I: ii[lo:hi], J: jj[lo:hi], V: vv[lo:hi]})
+	}
+	got, gst, err := FromTripletBlocks(n, n, blocks, BuildOptions{Symmetry: Symmetric})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if gst != wst || got.NNZ() != want.NNZ() {
+		t.Fatalf("blocks: %+v, %d entries; joined: %+v, %d", gst, got.NNZ(), wst, want.NNZ())
+	}
+	for p := range want.Val {
+		if got.ColIdx[p] != want.ColIdx[p] || math.Float64bits(got.Val[p]) != math.Float64bits(want.Val[p]) {
+			t.Fatalf("entry %d differs", p)
+		}
+	}
+	for b := range blocks {
+		if blocks[b].I != nil || blocks[b].V != nil {
+			t.Fatalf("block %d not released", b)
+		}
+	}
+}
