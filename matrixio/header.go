@@ -237,7 +237,7 @@ func (h *headReader) parseBanner(line []byte) (*header, error) {
 		return nil, h.errorf(ln, 1, ErrBanner, "expected %s, found %q", bannerWant, clip(found))
 	}
 	if len(w) != 5 {
-		return nil, h.errorf(ln, 1, ErrBanner, "expected 5 words %s, found %d", bannerWant, len(w))
+		return nil, h.errorf(ln, 1, ErrBanner, "expected 5 words %s, found %d words", bannerWant, len(w))
 	}
 	for k := 1; k < 5; k++ {
 		w[k] = strings.ToLower(w[k])

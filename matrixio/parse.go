@@ -15,6 +15,11 @@ import (
 type chunk struct {
 	text []byte
 
+	final   bool          // the last chunk of the input
+	readErr error         // final only: the read error that ended the input early
+	tooLong bool          // final only: a line longer than maxLine was met
+	done    chan struct{} // closed when parsed (pipeline only)
+
 	t       sparse.Triplets // coordinate entries, 0-based (vectors use I only)
 	vals    []float64       // array values, in file order
 	lines   int             // lines in text (a last line without '\n' counts)
@@ -99,7 +104,7 @@ func (p *dataParser) parse(c *chunk) {
 				q++
 			}
 			if q == len(ln) {
-				c.fail(line, q+1, ErrEntryFields, "expected %d fields (%s), found %d", len(fields), joinFields(fields), nf)
+				c.fail(line, q+1, ErrEntryFields, "expected %s, found %d", fieldList(fields), nf)
 				return
 			}
 			start := q
@@ -140,7 +145,7 @@ func (p *dataParser) parse(c *chunk) {
 			q++
 		}
 		if q < len(ln) {
-			c.fail(line, q+1, ErrEntryFields, "expected %d fields (%s), found more: %q", len(fields), joinFields(fields), clip(string(ln[q:])))
+			c.fail(line, q+1, ErrEntryFields, "expected %s, found more: %q", fieldList(fields), clip(string(ln[q:])))
 			return
 		}
 		if hd.field == fieldPattern {
@@ -180,12 +185,17 @@ func (p *dataParser) parse(c *chunk) {
 	c.lines = line
 }
 
-func joinFields(f []string) string {
+// fieldList describes the fields of an entry line, as "3 fields (row,
+// column, value)" or "1 field (value)".
+func fieldList(f []string) string {
 	s := f[0]
 	for _, x := range f[1:] {
 		s += ", " + x
 	}
-	return s
+	if len(f) == 1 {
+		return "1 field (" + s + ")"
+	}
+	return strconv.Itoa(len(f)) + " fields (" + s + ")"
 }
 
 // parseIndex parses a decimal unsigned integer, saturating at a value above

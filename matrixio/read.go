@@ -5,6 +5,8 @@ import (
 	"bytes"
 	"fmt"
 	"io"
+	"runtime"
+	"sync"
 
 	"github.com/residua/residua/sparse"
 )
@@ -171,72 +173,163 @@ type dataReader struct {
 	lowerRC, upperRC     [2]int
 }
 
-// chunkSize is the amount of text parsed as one piece.
+// chunkSize is the amount of text parsed as one piece. Pieces are parsed in
+// parallel; a few of them are in flight at a time, so the text held at once
+// stays near (3·GOMAXPROCS+2)·chunkSize however large the file.
 const chunkSize = 1 << 20
 
-// next reads the next chunk of whole lines; it returns nil at the end of
-// the input. A read error other than io.EOF is returned after the last
-// complete data.
-func (d *dataReader) next(carry []byte) (c *chunk, rest []byte, readErr error) {
-	buf := make([]byte, chunkSize+len(carry))
-	n := copy(buf, carry)
-	m, err := io.ReadFull(d.h.br, buf[n:])
-	n += m
-	buf = buf[:n]
-	if err == io.EOF || err == io.ErrUnexpectedEOF {
-		err = io.EOF
-	}
-	if n == 0 {
-		return nil, nil, err
-	}
-	if err == nil {
-		cut := bytes.LastIndexByte(buf, '\n')
-		if cut < 0 {
-			// One line longer than a chunk: keep reading it.
-			return nil, buf, nil
-		}
-		rest = append([]byte(nil), buf[cut+1:]...)
-		buf = buf[:cut+1]
-	}
-	return &chunk{text: buf}, rest, err
+// chunker cuts the data section into chunks of whole lines.
+type chunker struct {
+	r     io.Reader
+	carry []byte      // start of a line that the previous chunk cut
+	free  chan []byte // buffers handed back by the consumer, or nil
 }
 
-// each parses the data chunk by chunk and hands each to use in order.
-func (d *dataReader) each(use func(c *chunk) error) error {
-	p := &dataParser{hd: d.hd}
-	var carry []byte
+// next returns the next chunk. The last chunk has final set; it carries the
+// read error that ended the input early (readErr) or a line longer than
+// maxLine (tooLong), if any.
+func (k *chunker) next() *chunk {
 	for {
-		c, rest, err := d.next(carry)
-		carry = rest
-		if c == nil && err == nil {
-			if len(carry) > maxLine {
-				return d.h.errorf(d.line+1, 0, ErrEntryFields, "expected an entry, found a line longer than %d bytes", maxLine)
-			}
-			continue
+		var buf []byte
+		select {
+		case buf = <-k.free:
+		default:
 		}
-		if c != nil {
-			if lim := d.h.limits.MaxBytes; lim > 0 && d.h.bytes+int64(len(c.text)) > lim {
-				over := int(lim - d.h.bytes)
-				return d.h.errorf(d.line+1+bytes.Count(c.text[:over], []byte{'\n'}), 0, ErrLimit, "input longer than the limit of %d bytes", lim)
-			}
-			d.h.bytes += int64(len(c.text))
-			p.parse(c)
-			if e := d.accept(c); e != nil {
-				return e
-			}
-			if c.err == nil {
-				if e := use(c); e != nil {
-					return e
+		if cap(buf) < chunkSize+len(k.carry) {
+			buf = make([]byte, 0, chunkSize+len(k.carry)+chunkSize/16)
+		}
+		buf = append(buf[:0], k.carry...)
+		n, err := fill(k.r, buf[len(buf):chunkSize+len(buf)])
+		buf = buf[:len(buf)+n]
+		switch {
+		case err == nil:
+			cut := bytes.LastIndexByte(buf, '\n')
+			if cut < 0 {
+				if len(buf) > maxLine {
+					return &chunk{final: true, tooLong: true}
 				}
+				k.carry = buf // a line longer than a chunk: read on
+				continue
 			}
-		}
-		if err != nil {
-			if err == io.EOF {
-				return d.atEnd(nil)
-			}
-			return d.atEnd(err)
+			k.carry = append(k.carry[:0:0], buf[cut+1:]...)
+			return &chunk{text: buf[:cut+1]}
+		case err == io.EOF:
+			// The last line may lack its '\n'; it is complete all the same.
+			return &chunk{text: buf, final: true}
+		default:
+			// Parse the complete lines; the cut one is where the input broke.
+			cut := bytes.LastIndexByte(buf, '\n')
+			return &chunk{text: buf[:cut+1], final: true, readErr: err}
 		}
 	}
+}
+
+// fill reads until buf is full or the reader fails; it returns io.EOF only
+// at the end of the input, and passes any other error (a truncated gzip
+// stream's io.ErrUnexpectedEOF among them) through unchanged.
+func fill(r io.Reader, buf []byte) (int, error) {
+	n := 0
+	for n < len(buf) {
+		m, err := r.Read(buf[n:])
+		n += m
+		if err != nil {
+			return n, err
+		}
+	}
+	return n, nil
+}
+
+// each parses the data chunk by chunk and hands each chunk, in file order,
+// to use.
+//
+// Input that fits one chunk is parsed on the caller's goroutine. Longer input
+// goes through a pipeline: one goroutine reads chunks, GOMAXPROCS goroutines
+// parse them, and the caller checks them in order (accept) and hands them to
+// use. The first error in file order stops the reading; every goroutine has
+// ended when each returns.
+func (d *dataReader) each(use func(c *chunk) error) error {
+	p := &dataParser{hd: d.hd}
+	k := &chunker{r: d.h.br, free: make(chan []byte, 4)}
+	first := k.next()
+	if first.final {
+		p.parse(first)
+		return d.consume(first, use)
+	}
+	workers := runtime.GOMAXPROCS(0)
+	work := make(chan *chunk, workers)
+	order := make(chan *chunk, 2*workers)
+	stop := make(chan struct{})
+	var wg sync.WaitGroup
+	for range workers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for c := range work {
+				p.parse(c)
+				close(c.done)
+			}
+		}()
+	}
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		defer close(order)
+		defer close(work)
+		c := first
+		for {
+			c.done = make(chan struct{})
+			work <- c
+			order <- c
+			if c.final {
+				return
+			}
+			select {
+			case <-stop:
+				return
+			default:
+			}
+			c = k.next()
+		}
+	}()
+	var err error
+	for c := range order {
+		<-c.done
+		if err == nil {
+			if err = d.consume(c, use); err != nil {
+				close(stop)
+			}
+		}
+		select {
+		case k.free <- c.text:
+		default:
+		}
+		c.text = nil
+	}
+	wg.Wait()
+	return err
+}
+
+// consume checks a parsed chunk in file order and hands it to use; after
+// the final chunk it checks the entry count.
+func (d *dataReader) consume(c *chunk, use func(c *chunk) error) error {
+	if lim := d.h.limits.MaxBytes; lim > 0 && d.h.bytes+int64(len(c.text)) > lim {
+		over := int(lim - d.h.bytes)
+		return d.h.errorf(d.line+1+bytes.Count(c.text[:over], []byte{'\n'}), 0, ErrLimit, "input longer than the limit of %d bytes", lim)
+	}
+	d.h.bytes += int64(len(c.text))
+	if err := d.accept(c); err != nil {
+		return err
+	}
+	if err := use(c); err != nil {
+		return err
+	}
+	if !c.final {
+		return nil
+	}
+	if c.tooLong {
+		return d.h.errorf(d.line+1, 0, ErrEntryFields, "expected an entry, found a line longer than %d bytes", maxLine)
+	}
+	return d.atEnd(c.readErr)
 }
 
 // maxLine bounds the length of a data line.
@@ -276,9 +369,9 @@ func (d *dataReader) accept(c *chunk) error {
 		}
 		if lo > 0 && up > 0 {
 			if lo > up {
-				pick(cand{lo, 1, reason(ErrBothTriangles, "expected entries on one side of the diagonal as line %d (a(%d,%d), upper triangle), found a(%d,%d) in the lower triangle", up, upRC[0], upRC[1], loRC[0], loRC[1])})
+				pick(cand{lo, 1, reason(ErrBothTriangles, "expected upper-triangle entries only, like a(%d,%d) on line %d, found a(%d,%d) below the diagonal", upRC[0], upRC[1], up, loRC[0], loRC[1])})
 			} else {
-				pick(cand{up, 1, reason(ErrBothTriangles, "expected entries on one side of the diagonal as line %d (a(%d,%d), lower triangle), found a(%d,%d) in the upper triangle", lo, loRC[0], loRC[1], upRC[0], upRC[1])})
+				pick(cand{up, 1, reason(ErrBothTriangles, "expected lower-triangle entries only, like a(%d,%d) on line %d, found a(%d,%d) above the diagonal", loRC[0], loRC[1], lo, upRC[0], upRC[1])})
 			}
 		}
 		d.lowerLine, d.upperLine, d.lowerRC, d.upperRC = lo, up, loRC, upRC
@@ -317,7 +410,7 @@ func entryLine(text []byte, k int) int {
 // error that ended it early, if any.
 func (d *dataReader) atEnd(readErr error) error {
 	if readErr != nil {
-		return &ParseError{File: d.h.file, Line: d.line + 1, Err: fmt.Errorf("reading after line %d (%d of %d entries read): %w", d.line, d.entries, d.hd.entries, readErr)}
+		return &ParseError{File: d.h.file, Line: d.line + 1, Err: fmt.Errorf("input broke off after line %d (%d of %d entries read): %w", d.line, d.entries, d.hd.entries, readErr)}
 	}
 	if d.entries < d.hd.entries {
 		return &ParseError{File: d.h.file, Line: d.line + 1, Err: fmt.Errorf("%w: expected %d entries as the size line says, found %d", io.ErrUnexpectedEOF, d.hd.entries, d.entries)}
