@@ -166,18 +166,19 @@ func gradient(a *mat.Dense, b, x []float64, lam float64) (g, r []float64) {
 // 4th ed., §5.3.7, and the backward stability of Householder QR and of the
 // SVD, §5.3.8 and §8.6); the constant 1e3 covers the dimension factors of the
 // backward error (common practice).
-func checkAgainst(t *testing.T, a *mat.Dense, b, x, xRef []float64, lam, sigmaMin, sigmaMax float64) {
+func checkAgainst(t *testing.T, a *mat.Dense, b, x, xRef []float64, lam, sigmaMin, sigmaMax float64) (diff, bound float64) {
 	t.Helper()
 	g, r := gradient(a, b, x, lam)
 	s2 := sigmaMin*sigmaMin + lam*lam
-	bound := floats.Norm(g, 2) / s2
+	bound = floats.Norm(g, 2) / s2
 	kappa := math.Sqrt(sigmaMax*sigmaMax+lam*lam) / math.Sqrt(s2)
 	xn := floats.Norm(xRef, 2)
 	refErr := 1e3 * 0x1p-53 * (kappa + kappa*kappa*floats.Norm(r, 2)/(sigmaMax*xn)) * xn
-	diff := floats.Distance(x, xRef, 2)
+	diff = floats.Distance(x, xRef, 2)
 	if diff > bound+refErr {
 		t.Errorf("‖x − x_ref‖ = %.3g > ‖g‖/σ²_min + ref. error = %.3g + %.3g (κ = %.3g)", diff, bound, refErr, kappa)
 	}
+	return diff, bound + refErr
 }
 
 // checkResult checks the figures a converged result reports against the
