@@ -1,0 +1,149 @@
+package metrics
+
+import (
+	"net/http"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+)
+
+// Outcomes are the values of the outcome label of
+// residua_solves_finished_total.
+var Outcomes = []string{"converged", "iteration-limit", "time-limit", "stagnated", "breakdown", "cancelled", "failed", "other"}
+
+// Metrics is the set of the service's metrics. Make one with New.
+type Metrics struct {
+	reg          *prometheus.Registry
+	started      prometheus.Counter
+	finished     *prometheus.CounterVec
+	iterations   prometheus.Counter
+	duration     prometheus.Histogram
+	uploadBytes  prometheus.Counter
+	matrixBytes  prometheus.Gauge
+	precondBytes prometheus.Gauge
+}
+
+// New returns a Metrics registered in a registry of its own.
+func New() *Metrics {
+	m := &Metrics{
+		reg: prometheus.NewRegistry(),
+		started: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "residua_solves_started_total",
+			Help: "Solve jobs accepted by the service.",
+		}),
+		finished: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "residua_solves_finished_total",
+			Help: "Solve jobs that ended, by outcome (a krylov status, or failed).",
+		}, []string{"outcome"}),
+		iterations: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "residua_iterations_total",
+			Help: "Krylov iterations done by all solves.",
+		}),
+		// Buckets from 10 ms to about 44 minutes by factors of 4: a small
+		// system solves in milliseconds, a large badly conditioned one in
+		// tens of minutes.
+		duration: prometheus.NewHistogram(prometheus.HistogramOpts{
+			Name:    "residua_solve_duration_seconds",
+			Help:    "Wall time of a solve job from its start to its end.",
+			Buckets: prometheus.ExponentialBuckets(0.01, 4, 10),
+		}),
+		uploadBytes: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "residua_upload_bytes_total",
+			Help: "Bytes received by matrix and vector uploads.",
+		}),
+		matrixBytes: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "residua_stored_matrix_bytes",
+			Help: "Bytes of the matrices the service stores.",
+		}),
+		precondBytes: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "residua_cached_preconditioner_bytes",
+			Help: "Bytes of the preconditioners the service keeps cached.",
+		}),
+	}
+	m.reg.MustRegister(m.started, m.finished, m.iterations, m.duration, m.uploadBytes, m.matrixBytes, m.precondBytes,
+		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	// Every outcome appears from the start, at zero, so that rates over
+	// them work before the first job of that outcome.
+	for _, o := range Outcomes {
+		m.finished.WithLabelValues(o)
+	}
+	return m
+}
+
+// Handler serves the metrics in the Prometheus text format (or another
+// format the scraper asks for).
+func (m *Metrics) Handler() http.Handler {
+	return promhttp.HandlerFor(m.reg, promhttp.HandlerOpts{Registry: m.reg})
+}
+
+// Gatherer returns the registry, for tests and for serving elsewhere.
+func (m *Metrics) Gatherer() prometheus.Gatherer { return m.reg }
+
+// SolveStarted counts a job accepted.
+func (m *Metrics) SolveStarted() {
+	if m == nil {
+		return
+	}
+	m.started.Inc()
+}
+
+// SolveFinished counts a job that ended with the given outcome (one of
+// Outcomes) after running for d (from its start, not its queueing).
+func (m *Metrics) SolveFinished(outcome string, d time.Duration) {
+	if m == nil {
+		return
+	}
+	known := false
+	for _, o := range Outcomes {
+		known = known || o == outcome
+	}
+	if !known {
+		outcome = "other"
+	}
+	m.finished.WithLabelValues(outcome).Inc()
+	m.duration.Observe(d.Seconds())
+}
+
+// IterationsDone adds n iterations (call it once per finished right-hand
+// side with its iteration count, or as progress arrives).
+func (m *Metrics) IterationsDone(n int) {
+	if m == nil || n <= 0 {
+		return
+	}
+	m.iterations.Add(float64(n))
+}
+
+// UploadBytes adds n bytes received by an upload.
+func (m *Metrics) UploadBytes(n int64) {
+	if m == nil || n <= 0 {
+		return
+	}
+	m.uploadBytes.Add(float64(n))
+}
+
+// SetStoredBytes sets the bytes of stored matrices and of cached
+// preconditioners.
+func (m *Metrics) SetStoredBytes(matrices, preconditioners int64) {
+	if m == nil {
+		return
+	}
+	m.matrixBytes.Set(float64(matrices))
+	m.precondBytes.Set(float64(preconditioners))
+}
+
+// ObserveQueue makes residua_solves_queued and residua_solves_running read
+// f at each scrape (api's Registry.Counts has this signature). Call it
+// once.
+func (m *Metrics) ObserveQueue(f func() (queued, running int)) {
+	if m == nil {
+		return
+	}
+	m.reg.MustRegister(
+		prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "residua_solves_queued", Help: "Solve jobs waiting for a slot."},
+			func() float64 { q, _ := f(); return float64(q) }),
+		prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "residua_solves_running", Help: "Solve jobs running now."},
+			func() float64 { _, r := f(); return float64(r) }),
+	)
+}
