@@ -25,8 +25,11 @@
 //
 // and it is only ever declared met on the true residual b − A·x recomputed
 // from x, never on the recursively updated one alone: when the recursive
-// residual meets the test, the true one is computed; if it falls short, it
-// replaces the recursive one and the iteration goes on. If the true residual
+// residual meets the test, the true one is computed; if it falls short, the
+// iteration goes on, with the true residual replacing the recursive one when
+// they have drifted apart by more than a quarter of the tolerance (the same
+// check runs every Settings.RefreshEvery iterations; replacing
+// unconditionally would perturb CG's recurrences and cost iterations). If the true residual
 // then stops improving while the recursive one still falls (CG's rule is
 // documented beside cgStagnationStrikes in cg.go: three true-residual
 // recomputations that fail to halve the best true residual so far, each a

@@ -1,71 +1,60 @@
 package krylov
 
-// The vector sweeps conjugate gradients needs, each fusing what one pass over
-// memory can do. They run sequentially, one loop each, so their sums are added
-// in index order and are bitwise reproducible.
+import "github.com/residua/residua/sparse"
 
-// dot returns xᵀy.
-func cgDot(x, y []float64) float64 {
-	y = y[:len(x)]
-	var s float64
-	for i, v := range x {
-		s += v * y[i]
-	}
-	return s
+// The vector sweeps of conjugate gradients run on sparse's fused kernels
+// (sparse/vec.go), which split each vector into fixed blocks over sparse's
+// worker pool and add the block sums in block order: every result is bitwise
+// identical run to run, at any worker count. Each call below is one pass over
+// memory:
+//
+//	q = A·p and pᵀq            (*sparse.CSR).MulVecDot, or MulVec then Dot
+//	r −= α·q and rᵀr            sparse.AxpyDot
+//	x += α·p, p = z + β·p       sparse.Step
+//	r = b − A·x and rᵀr         (*sparse.CSR).Residual, or MulVec, Triad, Dot
+
+// mulVecDotter is an operator that can form y = A·x and xᵀy in one sweep,
+// as *sparse.CSR does.
+type mulVecDotter interface {
+	MulVecDot(dst, x []float64) float64
+}
+
+// residualer is an operator that can form r = b − A·x and rᵀr in one sweep,
+// as *sparse.CSR does.
+type residualer interface {
+	Residual(dst, b, x []float64) float64
+}
+
+// cgOperator is A with the fused forms it offers looked up once per solve.
+type cgOperator struct {
+	a   Operator
+	mvd mulVecDotter // nil when A has no fused product
+	res residualer   // nil when A has no fused residual
+}
+
+func newCGOperator(a Operator) cgOperator {
+	op := cgOperator{a: a}
+	op.mvd, _ = a.(mulVecDotter)
+	op.res, _ = a.(residualer)
+	return op
 }
 
 // mulVecDot sets q = A·p and returns pᵀq.
-func cgMulVecDot(a Operator, q, p []float64) float64 {
-	a.MulVec(q, p)
-	return cgDot(p, q)
+func (op *cgOperator) mulVecDot(q, p []float64) float64 {
+	if op.mvd != nil {
+		return op.mvd.MulVecDot(q, p)
+	}
+	op.a.MulVec(q, p)
+	return sparse.Dot(p, q)
 }
 
-// residualUpdate sets r −= α·q and returns the new rᵀr.
-func cgResidualUpdate(r, q []float64, alpha float64) float64 {
-	q = q[:len(r)]
-	var s float64
-	for i := range r {
-		v := r[i] - alpha*q[i]
-		r[i] = v
-		s += v * v
+// residual sets r = b − A·x and returns rᵀr. Both paths do the same
+// arithmetic (b − y, summed like sparse.Dot), so they agree bit for bit.
+func (op *cgOperator) residual(r, b, x []float64) float64 {
+	if op.res != nil {
+		return op.res.Residual(r, b, x)
 	}
-	return s
-}
-
-// residualFrom sets r = b − q (q holding A·x) and returns rᵀr.
-func cgResidualFrom(r, b, q []float64) float64 {
-	b, q = b[:len(r)], q[:len(r)]
-	var s float64
-	for i := range r {
-		v := b[i] - q[i]
-		r[i] = v
-		s += v * v
-	}
-	return s
-}
-
-// stepUpdate sets x += α·p, then p = z + β·p, in one sweep.
-func cgStepUpdate(x, p, z []float64, alpha, beta float64) {
-	p, z = p[:len(x)], z[:len(x)]
-	for i := range x {
-		pi := p[i]
-		x[i] += alpha * pi
-		p[i] = z[i] + beta*pi
-	}
-}
-
-// directionUpdate sets p = z + β·p.
-func cgDirectionUpdate(p, z []float64, beta float64) {
-	z = z[:len(p)]
-	for i := range p {
-		p[i] = z[i] + beta*p[i]
-	}
-}
-
-// axpy sets y += α·x.
-func cgAxpy(y []float64, alpha float64, x []float64) {
-	x = x[:len(y)]
-	for i := range y {
-		y[i] += alpha * x[i]
-	}
+	op.a.MulVec(r, x)
+	sparse.Triad(r, b, r, -1) // b + (−1)·y is exactly b − y
+	return sparse.Dot(r, r)
 }

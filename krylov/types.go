@@ -144,8 +144,10 @@ type Settings struct {
 	TimeLimit time.Duration
 	// X0 is the starting guess; nil means zero. It is never modified.
 	X0 []float64
-	// RefreshEvery is how often, in iterations, the recursive residual is
-	// replaced by the true residual b − A·x to stop drift. Default 50; a
+	// RefreshEvery is how often, in iterations, the true residual b − A·x
+	// is recomputed (one product with A) to catch the drift of the
+	// recursive residual, which it replaces when the drift has grown large
+	// enough to matter (CG: a quarter of the tolerance). Default 50; a
 	// negative value turns periodic refresh off (the true residual is still
 	// computed before convergence is declared).
 	RefreshEvery int
