@@ -62,8 +62,8 @@ func (s Scaling) String() string {
 // augmented [A; λI]·D (Jacobi scaling of the normal equations; Björck 1996,
 // §7.2.1). It returns the indices of the zero columns of A; their factor is
 // 1 when λ = 0 (left unscaled, never divided by zero) and 1/λ otherwise. A
-// norm that is negative, NaN or infinite is bad data: its index is returned
-// in bad (−1 when there is none).
+// norm that is negative, NaN or infinite is bad data: the first one's index
+// is returned in bad (−1 when there is none) and its entry is left as it was.
 func columnScale(d []float64, lam float64) (zero []int, bad int) {
 	bad = -1
 	lam2 := lam * lam
@@ -77,9 +77,8 @@ func columnScale(d []float64, lam float64) (zero []int, bad int) {
 			}
 		case math.IsNaN(c) || math.IsInf(c, 0) || c < 0:
 			if bad < 0 {
-				bad = j
+				bad = j // left as it is, for the error message
 			}
-			d[j] = 1
 		default:
 			d[j] = 1 / math.Sqrt(c*c+lam2)
 		}

@@ -94,11 +94,13 @@ type LSQResult struct {
 	ResidualNorm       float64
 	NormalResidualNorm float64
 	XNorm              float64
-	// ANormEstimate is the Frobenius-norm estimate of the operator the
-	// iteration saw (Ā = [A·D; λD], with D the column scaling or I), a
-	// lower bound that grows with the iterations; CondEstimate estimates
-	// Ā's condition number ‖Ā‖_F·‖Ā⁺‖_F from the same recurrences, also from
-	// below (Paige and Saunders 1982, §5.1). Zero when no iteration ran.
+	// ANormEstimate is the Frobenius-norm estimate ‖B_k‖_F of the operator
+	// the iteration saw (Ā = [A·D; λD], with D the column scaling or I);
+	// CondEstimate estimates Ā's condition number ‖Ā‖_F·‖Ā⁺‖_F from the same
+	// recurrences (Paige and Saunders 1982, §5.1 and §5.3). In exact
+	// arithmetic both grow towards their targets from below; in floating
+	// point, once the bidiagonalization loses orthogonality, they can pass
+	// them. Zero when no iteration ran.
 	ANormEstimate, CondEstimate float64
 	// RHSNorm is ‖b‖₂; RelResidual is ResidualNorm/RHSNorm (or ResidualNorm
 	// when b = 0).
@@ -170,6 +172,9 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 	if s.Method != LSQR && s.Method != CGLS {
 		panic(fmt.Sprintf("krylov: unknown least-squares method %v", s.Method))
 	}
+	if s.Scaling != ScaleAuto && s.Scaling != ScaleColumns && s.Scaling != ScaleNone {
+		panic(fmt.Sprintf("krylov: unknown scaling %v", s.Scaling))
+	}
 
 	p := &lsqProblem{
 		ctx: ctx, start: start, a: a, m: m, n: n, b: b, x: x, x0: s.X0,
@@ -187,9 +192,8 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 		zero, bad := columnScale(d, s.Damp)
 		res.ZeroColumns = zero
 		if bad >= 0 {
-			p.s.Scaling = ScaleNone // recorded in the result below
 			res.Settings = p.s
-			return p.fail(res, &BreakdownError{Quantity: fmt.Sprintf("‖A(:, %d)‖", bad), Value: math.NaN(), Err: ErrNotFinite})
+			return p.fail(res, &BreakdownError{Quantity: fmt.Sprintf("‖A(:, %d)‖", bad), Value: d[bad], Err: ErrNotFinite})
 		}
 	}
 	switch s.Scaling {
@@ -203,9 +207,6 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 		if !hasNorms {
 			return LSQResult{Settings: s}, ErrNoColumnNorms
 		}
-	case ScaleNone:
-	default:
-		panic(fmt.Sprintf("krylov: unknown scaling %v", s.Scaling))
 	}
 	if s.Scaling == ScaleColumns {
 		p.d = d
@@ -251,18 +252,19 @@ type lsqProblem struct {
 	nextCheck int     // first iteration at which another check may run
 }
 
-// stop reports whether the context is done or the time budget has run out,
-// with the status to end with. It allocates nothing.
-func (p *lsqProblem) stop(done <-chan struct{}) (Status, error, bool) {
+// interrupted reports, by a nonzero status, whether the context is done or
+// the time budget has run out; the error is the context's. It allocates
+// nothing.
+func (p *lsqProblem) interrupted(done <-chan struct{}) (Status, error) {
 	select {
 	case <-done:
-		return Cancelled, p.ctx.Err(), true
+		return Cancelled, p.ctx.Err()
 	default:
 	}
 	if p.s.TimeLimit > 0 && time.Since(p.start) > p.s.TimeLimit {
-		return TimeLimit, nil, true
+		return TimeLimit, nil
 	}
-	return 0, nil, false
+	return 0, nil
 }
 
 // record sends one row of progress to the recorder, if any.
@@ -299,6 +301,15 @@ func (p *lsqProblem) passes(rbar, arbar, anorm, znorm float64) string {
 		return RuleNormalResidual
 	}
 	return ""
+}
+
+// atFloor reports whether the relative quantities of the two rules have
+// fallen to the unit roundoff, below which no tolerance can be met (Paige
+// and Saunders 1982, §6, their tests with 1 + test ≤ 1): when the true
+// state then fails the rules, the solve has stagnated.
+func (p *lsqProblem) atFloor(rbar, arbar, anorm, znorm float64) bool {
+	const u = 0x1p-53
+	return rbar <= u*(p.bnorm+anorm*znorm) || arbar <= u*anorm*rbar
 }
 
 // trueState is the state recomputed from x: r = b − A·x and g = Aᵀr − λ²x.
@@ -357,17 +368,22 @@ const (
 // iteration it: it recomputes the true state of x (which the caller has
 // written) and applies the rules to it. The recursive ‖r̄‖ and ‖Āᵀr̄‖ drift
 // from the true ones in floating point, most on ill-conditioned problems, so
-// convergence is declared on the true state only. After a failed check the
+// convergence is declared on the true state only. When the estimates are at
+// the rounding floor (atFloor) a failed check ends the solve as Stagnated.
+// Otherwise, after a failed check the
 // next one waits max(10, it/10) iterations; three failed checks in a row in
 // which the true ‖Āᵀr̄‖ did not halve end the solve as Stagnated: the
 // iterates have reached the accuracy that rounding allows.
-func (p *lsqProblem) verify(it int, anorm float64, tm, tn []float64) (trueState, string, verifyOutcome) {
+func (p *lsqProblem) verify(it int, anorm float64, floor bool, tm, tn []float64) (trueState, string, verifyOutcome) {
 	t := p.recompute(tm, tn)
 	if !t.finite {
 		return t, "", verifyStagnated
 	}
 	if rule := p.passes(t.rbar, t.arbar, anorm, t.znorm); rule != "" {
 		return t, rule, verifyConverged
+	}
+	if floor {
+		return t, "", verifyStagnated
 	}
 	if p.checks > 0 && t.arbar > 0.5*p.lastCheck {
 		p.checks++

@@ -82,7 +82,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	var beta, alphaOld, betaOld float64
 	var anorm2, ddnorm, anorm, cond float64
 	for it := 1; it <= p.s.MaxIter; it++ {
-		if st, err, stop := p.stop(done); stop {
+		if st, err := p.interrupted(done); st != 0 {
 			return p.end(res, st, err, it-1, anorm, cond, tm, tn)
 		}
 		// p = s + β·p and t = D·p (β = 0 at the first iteration).
@@ -147,9 +147,10 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 			exhausted = gamma == 0
 		}
 
-		rbar := math.Sqrt(rr + lam2*xx)
-		if (exhausted || p.passes(rbar, math.Sqrt(gamma), anorm, math.Sqrt(zz)) != "") && (exhausted || it >= p.nextCheck) {
-			t, rule, out := p.verify(it, anorm, tm, tn)
+		rbar, arbar, znorm := math.Sqrt(rr+lam2*xx), math.Sqrt(gamma), math.Sqrt(zz)
+		floor := p.atFloor(rbar, arbar, anorm, znorm)
+		if exhausted || floor || (p.passes(rbar, arbar, anorm, znorm) != "" && it >= p.nextCheck) {
+			t, rule, out := p.verify(it, anorm, floor, tm, tn)
 			if exhausted && out == verifyContinue {
 				out = verifyStagnated
 			}
@@ -162,6 +163,20 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 			case verifyStagnated:
 				return p.endWith(res, Stagnated, nil, it, anorm, cond, t, "")
 			}
+			// The recursive residual has drifted from the true one, which
+			// the check left in tm (and Aᵀr in tn): replace r and s by them
+			// and go on with the same direction (residual replacement, as
+			// CG does it; common practice).
+			// β = γ_k/γ_{k−1} takes the new γ_k.
+			copy(r, tm)
+			rec := gamma
+			gamma = 0
+			for j, tj := range tn {
+				sj := d[j] * (tj - lam2*x[j])
+				s[j] = sj
+				gamma += sj * sj
+			}
+			beta *= gamma / rec
 			continue
 		}
 		if err := p.record(it, math.Sqrt(rr), math.Sqrt(gg)); err != nil {

@@ -113,7 +113,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 	var anorm, cond float64
 
 	for it := 1; it <= p.s.MaxIter; it++ {
-		if st, err, stop := p.stop(done); stop {
+		if st, err := p.interrupted(done); st != 0 {
 			return p.end(res, st, err, it-1, anorm, cond, tm, tn)
 		}
 		// β_{i+1}·u_{i+1} = Ā·v_i − α_i·u_i (PS 1982, eq. (3.2)). The lower
@@ -210,9 +210,11 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 		rnorm := math.Sqrt(max(0, rbar*rbar-lam*lam*xx))
 		gnorm := phibar * math.Abs(c) * math.Sqrt(g2)
 		exhausted := alpha == 0 || beta == 0
+		znorm := math.Sqrt(zz)
+		floor := p.atFloor(rbar, arbar, anorm, znorm)
 
-		if (exhausted || p.passes(rbar, arbar, anorm, math.Sqrt(zz)) != "") && (exhausted || it >= p.nextCheck) {
-			t, rule, out := p.verify(it, anorm, tm, tn)
+		if exhausted || floor || (p.passes(rbar, arbar, anorm, znorm) != "" && it >= p.nextCheck) {
+			t, rule, out := p.verify(it, anorm, floor, tm, tn)
 			if exhausted && out == verifyContinue {
 				// The bidiagonalization has ended; nothing more can be
 				// gained.
