@@ -183,7 +183,12 @@ type chunker struct {
 	r     io.Reader
 	carry []byte      // start of a line that the previous chunk cut
 	free  chan []byte // buffers handed back by the consumer, or nil
+	size  int         // size of the next chunk: doubles from firstChunk up to chunkSize
 }
+
+// firstChunk is the size of the first chunk, so that a small input (a
+// request to the server, a test file) does not cost a full chunk buffer.
+const firstChunk = 64 << 10
 
 // next returns the next chunk. The last chunk has final set; it carries the
 // read error that ended the input early (readErr) or a line longer than
@@ -195,11 +200,16 @@ func (k *chunker) next() *chunk {
 		case buf = <-k.free:
 		default:
 		}
-		if cap(buf) < chunkSize+len(k.carry) {
-			buf = make([]byte, 0, chunkSize+len(k.carry)+chunkSize/16)
+		if k.size == 0 {
+			k.size = firstChunk
+		}
+		size := k.size
+		k.size = min(2*k.size, chunkSize)
+		if cap(buf) < size+len(k.carry) {
+			buf = make([]byte, 0, size+len(k.carry)+size/16)
 		}
 		buf = append(buf[:0], k.carry...)
-		n, err := fill(k.r, buf[len(buf):chunkSize+len(buf)])
+		n, err := fill(k.r, buf[len(buf):size+len(buf)])
 		buf = buf[:len(buf)+n]
 		switch {
 		case err == nil:
