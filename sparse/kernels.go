@@ -1,26 +1,42 @@
 package sparse
 
+import "fmt"
+
 // The serial loops that the parallel kernels run on each block. They are
 // the only places where the arithmetic happens, so the order of every
 // floating-point operation is fixed here.
 
 // mulRows sets dst[i] = Σ_k a(i, k)·x[k] for lo ≤ i < hi, each row summed in
-// column order from 0.0.
+// column order from 0.0. The entry position p runs on from row to row, so a
+// row costs one row-pointer load. Measured in cache on one core (minimum of
+// 400 runs, banded 64000×64000, 7 entries a row): 0.48 ns per entry
+// against 0.66 for slicing each row; the same loop with unsafe pointers and
+// no bounds checks took 0.41, not enough to give up the checks for.
 func mulRows(a *CSR, dst, x []float64, lo, hi int) {
 	rowPtr := a.RowPtr[lo : hi+1]
 	colIdx, val := a.ColIdx, a.Val
+	val = val[:len(colIdx)]
 	dst = dst[lo:hi]
+	p := rowPtr[0]
 	for i := range dst {
-		p0, p1 := rowPtr[i], rowPtr[i+1]
-		cols := colIdx[p0:p1]
-		vals := val[p0:p1]
-		vals = vals[:len(cols)]
+		end := rowPtr[i+1]
+		if end > len(val) {
+			badRowPtr(end, len(val))
+		}
 		s := 0.0
-		for k, c := range cols {
-			s += vals[k] * x[c]
+		for ; p < end; p++ {
+			s += val[p] * x[colIdx[p]]
 		}
 		dst[i] = s
 	}
+}
+
+// badRowPtr panics: only a CSR that fails Validate gets here. Kept out of
+// line so that the kernel's loop keeps its registers.
+//
+//go:noinline
+func badRowPtr(end, nnz int) {
+	panic(fmt.Sprintf("sparse: row pointer %d beyond the %d stored entries", end, nnz))
 }
 
 // dotBlock returns xᵀy for one block: four partial sums over the elements

@@ -3,36 +3,42 @@ package sparse
 import (
 	"runtime"
 	"sync"
+	"sync/atomic"
 )
 
 // How the kernels split their work.
 //
 // A persistent pool of helper goroutines, started on the first parallel
 // call and sized by GOMAXPROCS at that moment (Workers), runs the large
-// kernels; the calling goroutine always does part 0 itself, so P workers
-// means P−1 helpers. A call hands each helper one plain job value over its
-// own buffered channel and waits for P−1 completion signals; nothing is
+// kernels; the calling goroutine works too, so P workers means P−1 helpers.
+// A call fills one of the pool's preallocated call records and hands its
+// pointer to each helper over the helper's own buffered channel; nothing is
 // allocated and no goroutine is started per call. Work below a threshold
 // (inlineWork) runs on the caller alone, and so does every call made while
 // another goroutine is using the pool (the pool serves one call at a time;
 // a second concurrent caller does not queue, it computes by itself).
 //
 // Vectors are cut into fixed blocks of blockLen elements, and matrices into
-// fixed blocks of blockLen rows. A reduction (a dot product, or the norm
-// that a fused kernel returns) first sums each block with dotBlock, then
-// adds the block sums in block order, left to right, on the caller. The
-// blocks do not depend on the number of workers (a worker gets a
-// contiguous run of whole blocks), so every result is bitwise identical run
-// to run at any worker count, and whether it ran in parallel or inline.
+// fixed blocks of blockLen rows. The work is split into P parts, each a
+// contiguous run of whole blocks: for vectors part k holds blocks
+// k·nb/P ≤ b < (k+1)·nb/P; for matrix products the parts are balanced by
+// work rather than by rows: part k starts at the first block boundary at or
+// after the row r where RowPtr[r] + r reaches k/P of nnz + rows (one unit
+// per stored entry and one per row, for the row's pointer load and result
+// store). Worker k (the caller is worker 0) takes the blocks of part k in
+// order, one at a time from an atomic counter, then helps with what is left
+// of parts k+1, k+2, ...: without interference each worker does exactly its
+// own part; on a busy machine a worker that is not running delays nobody.
+// The partition is a pure function of RowPtr and P, recomputed on each call
+// by P binary searches over RowPtr (tens of nanoseconds), so it is fixed
+// without being stored on the matrix and can never go stale.
 //
-// Row ranges for matrix products are balanced by work rather than by rows:
-// part k of P starts at the first block boundary at or after the row r where
-// RowPtr[r] + r reaches k/P of nnz + rows (one unit per stored entry and one
-// per row, for the row's pointer load and result store). The partition is a
-// pure function of RowPtr and P, recomputed on each call by P binary
-// searches over RowPtr (tens of nanoseconds), so it is fixed without being
-// stored on the matrix and can never go stale. A product's rows do not
-// depend on it anyway: each dst[i] is summed over row i in column order.
+// Reductions (a dot product, or the norm that a fused kernel returns) sum
+// each block with dotBlock into its own slot, and the caller then adds the
+// block sums in block order, left to right. A product's dst[i] is the sum of
+// row i in column order. Neither depends on the partition, on which worker
+// did which block, or on the number of workers, so every result is bitwise
+// identical run to run at any worker count, parallel or inline.
 
 // blockLen is the length of the fixed blocks (elements or rows) that the
 // reductions sum separately. 2048 float64 are 16 KiB, so a fused kernel's
@@ -59,30 +65,47 @@ const (
 	opStep
 )
 
-// job is one part of one kernel call. lo and hi are a range of blocks for
-// the vector kernels and of rows for the matrix kernels. Block sums go to
+// job is one kernel call's operation and operands. Block sums go to
 // sums[b] for block b.
 type job struct {
 	op      opKind
 	a       *CSR
 	d, x, y []float64
 	s, t    float64
-	lo, hi  int
 	sums    []float64
+}
+
+// call is the shared state of one parallel kernel call. Each part k of the
+// partition owns the blocks bounds[k] ≤ b < bounds[k+1] and hands them out
+// one at a time through next[k]; a goroutine works through its own part
+// first, then takes what is left of the following parts, so a helper that
+// the operating system has not scheduled yet (this machine is shared) delays
+// nothing: the caller does its blocks. Which goroutine computes a block
+// changes nothing in the result.
+//
+// A call is reused only when refs is zero: refs counts the hand-offs to
+// helpers not yet finished with it, so a helper that wakes up late still
+// finds its call intact (with no block left to claim).
+type call struct {
+	j      job
+	nb     int            // number of blocks
+	bounds []int          // part boundaries in blocks, parts+1 entries
+	next   []atomic.Int64 // next unclaimed block of each part
+	done   atomic.Int64   // blocks completed
+	refs   atomic.Int32   // hand-offs to helpers not yet finished
 }
 
 type workerPool struct {
 	parts   int
-	blk     int           // block length, blockLen except in tests
-	minWork int           // inline below this much work, inlineWork except in tests
-	jobs    []chan job    // one per helper, capacity 1
-	done    chan struct{} // helpers signal completion here
+	blk     int          // block length, blockLen except in tests
+	minWork int          // inline below this much work, inlineWork except in tests
+	jobs    []chan *call // one per helper, capacity 1
 
-	// mu is held by the one call using the helpers; it guards sums and
-	// bounds.
-	mu     sync.Mutex
-	sums   []float64 // block sums of the current call
-	bounds []int     // part boundaries of the current call, parts+1 entries
+	// mu is held by the one caller using the helpers; it guards calls and
+	// sums (the helpers reach them only through a call handed to them).
+	mu    sync.Mutex
+	calls []*call   // 2·parts+1: each helper holds at most two (one running, one queued)
+	sums  []float64 // block sums, grown to the longest call seen
 }
 
 var (
@@ -111,39 +134,80 @@ func newPool(parts, blk, minWork int) *workerPool {
 		parts:   parts,
 		blk:     blk,
 		minWork: minWork,
-		jobs:    make([]chan job, parts-1),
-		done:    make(chan struct{}, parts),
-		bounds:  make([]int, parts+1),
+		jobs:    make([]chan *call, parts-1),
 	}
-	for k := range p.jobs {
-		ch := make(chan job, 1)
-		p.jobs[k] = ch
+	for range 2*parts + 1 {
+		p.calls = append(p.calls, &call{bounds: make([]int, parts+1), next: make([]atomic.Int64, parts)})
+	}
+	for h := range p.jobs {
+		ch := make(chan *call, 1)
+		p.jobs[h] = ch
 		go func() {
-			for j := range ch {
-				j.run(p.blk)
-				p.done <- struct{}{}
+			for c := range ch {
+				c.work(h+1, p.blk)
+				c.refs.Add(-1)
 			}
 		}()
 	}
 	return p
 }
 
-// runParts runs j over the ranges p.bounds[k]..p.bounds[k+1], part 0 on the
-// caller, the others on the helpers, and waits for all. p.mu must be held.
-func (p *workerPool) runParts(j job) {
-	for k := 1; k < p.parts; k++ {
-		jk := j
-		jk.lo, jk.hi = p.bounds[k], p.bounds[k+1]
-		p.jobs[k-1] <- jk
-	}
-	j.lo, j.hi = p.bounds[0], p.bounds[1]
-	j.run(p.blk)
-	for k := 1; k < p.parts; k++ {
-		<-p.done
+// work claims and computes blocks, starting with part k.
+func (c *call) work(k, blk int) {
+	parts := len(c.next)
+	for i := range parts {
+		part := (k + i) % parts
+		end := int64(c.bounds[part+1])
+		for {
+			b := c.next[part].Add(1) - 1
+			if b >= end {
+				break
+			}
+			c.j.sums[b] = c.j.block(int(b), blk)
+			c.done.Add(1)
+		}
 	}
 }
 
-// sumBlocks adds sums[0:nb] in block order.
+// run hands c to the helpers, works on it, and waits until every block is
+// done. p.mu must be held and c filled in except for the counters.
+func (p *workerPool) run(c *call) float64 {
+	for k := range c.next {
+		c.next[k].Store(int64(c.bounds[k]))
+	}
+	c.done.Store(0)
+	for _, ch := range p.jobs {
+		c.refs.Add(1)
+		select {
+		case ch <- c:
+		default:
+			// The helper still has an earlier call queued; it is busy or
+			// not scheduled, and will find this one's blocks taken anyway.
+			c.refs.Add(-1)
+		}
+	}
+	c.work(0, p.blk)
+	// Wait for blocks that helpers have claimed but not finished: at most
+	// one block each, a few microseconds.
+	for spin := 0; c.done.Load() < int64(c.nb); spin++ {
+		if spin > 100 {
+			runtime.Gosched()
+		}
+	}
+	return sumBlocks(c.j.sums)
+}
+
+// freeCall returns a call that no helper holds, or nil.
+func (p *workerPool) freeCall() *call {
+	for _, c := range p.calls {
+		if c.refs.Load() == 0 {
+			return c
+		}
+	}
+	return nil
+}
+
+// sumBlocks adds the block sums in block order.
 func sumBlocks(sums []float64) float64 {
 	s := 0.0
 	for _, v := range sums {
@@ -160,12 +224,16 @@ func (p *workerPool) vecOp(j job, n int) float64 {
 		return j.inline(nb, p.blk)
 	}
 	defer p.mu.Unlock()
-	for k := 0; k <= p.parts; k++ {
-		p.bounds[k] = k * nb / p.parts
+	c := p.freeCall()
+	if c == nil {
+		return j.inline(nb, p.blk)
+	}
+	for k := range c.bounds {
+		c.bounds[k] = k * nb / p.parts
 	}
 	j.sums = p.blockSums(nb)
-	p.runParts(j)
-	return sumBlocks(j.sums)
+	c.j, c.nb = j, nb
+	return p.run(c)
 }
 
 // matOp runs a matrix kernel over the rows of j.a and returns the sum of its
@@ -174,13 +242,17 @@ func (p *workerPool) matOp(j job) float64 {
 	a := j.a
 	nb := (a.Rows + p.blk - 1) / p.blk
 	if a.NNZ()+a.Rows < p.minWork || p.parts == 1 || !p.mu.TryLock() {
-		return j.inlineRows(a.Rows, p.blk)
+		return j.inline(nb, p.blk)
 	}
 	defer p.mu.Unlock()
-	rowPartition(p.bounds, a.RowPtr, a.Rows, p.blk)
+	c := p.freeCall()
+	if c == nil {
+		return j.inline(nb, p.blk)
+	}
+	rowPartition(c.bounds, a.RowPtr, a.Rows, p.blk)
 	j.sums = p.blockSums(nb)
-	p.runParts(j)
-	return sumBlocks(j.sums)
+	c.j, c.nb = j, nb
+	return p.run(c)
 }
 
 // blockSums returns the pool's scratch for nb block sums, growing it when a
@@ -193,31 +265,26 @@ func (p *workerPool) blockSums(nb int) []float64 {
 	return p.sums[:nb]
 }
 
-// inline runs a vector kernel over all nb blocks on the caller, adding the
-// block sums in block order as they come: the same additions as vecOp.
+// inline runs a kernel over all nb blocks on the caller, adding the block
+// sums in block order as they come: the same additions as the parallel
+// path.
 func (j job) inline(nb, blk int) float64 {
 	s := 0.0
-	for b := 0; b < nb; b++ {
+	for b := range nb {
 		s += j.block(b, blk)
 	}
 	return s
 }
 
-// inlineRows runs a matrix kernel over all rows on the caller.
-func (j job) inlineRows(rows, blk int) float64 {
-	s := 0.0
-	for lo := 0; lo < rows; lo += blk {
-		s += j.rowBlock(lo, min(lo+blk, rows))
-	}
-	return s
-}
-
-// rowPartition fills bounds (P+1 entries) with row boundaries balanced by
-// entries plus rows, each rounded up to a multiple of the block length blk
-// (see the comment at the top of this file).
+// rowPartition fills bounds (P+1 entries) with block boundaries for the
+// parts of a matrix product, balanced by entries plus rows (see the comment
+// at the top of this file): part k starts at the block holding the first
+// row r with rowPtr[r] + r ≥ k/P of the total, rounded up to the next block
+// boundary.
 func rowPartition(bounds, rowPtr []int, rows, blk int) {
 	parts := len(bounds) - 1
 	work := rowPtr[rows] + rows
+	nb := (rows + blk - 1) / blk
 	bounds[0] = 0
 	for k := 1; k < parts; k++ {
 		target := int(int64(k) * int64(work) / int64(parts))
@@ -231,26 +298,9 @@ func rowPartition(bounds, rowPtr []int, rows, blk int) {
 				hi = m
 			}
 		}
-		r := (lo + blk - 1) / blk * blk
-		r = min(max(r, bounds[k-1]), rows)
-		bounds[k] = r
+		bounds[k] = min(max((lo+blk-1)/blk, bounds[k-1]), nb)
 	}
-	bounds[parts] = rows
-}
-
-// run executes one part of a kernel: blocks lo..hi of a vector kernel, or
-// rows lo..hi (block-aligned) of a matrix kernel, storing block sums.
-func (j job) run(blk int) {
-	switch j.op {
-	case opMulVec, opMulVecDot, opResidual:
-		for lo := j.lo; lo < j.hi; lo += blk {
-			j.sums[lo/blk] = j.rowBlock(lo, min(lo+blk, j.hi))
-		}
-	default:
-		for b := j.lo; b < j.hi; b++ {
-			j.sums[b] = j.block(b, blk)
-		}
-	}
+	bounds[parts] = nb
 }
 
 // rowBlock computes rows lo..hi of a matrix kernel and returns the block's
@@ -268,9 +318,13 @@ func (j job) rowBlock(lo, hi int) float64 {
 	return 0
 }
 
-// block computes block b of a vector kernel and returns its sum.
+// block computes block b of a kernel (rows or elements b·blk up to
+// (b+1)·blk) and returns its sum (zero for kernels without a reduction).
 func (j job) block(b, blk int) float64 {
 	lo := b * blk
+	if j.a != nil {
+		return j.rowBlock(lo, min(lo+blk, j.a.Rows))
+	}
 	hi := min(lo+blk, len(j.d))
 	switch j.op {
 	case opDot:
