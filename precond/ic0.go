@@ -82,17 +82,24 @@ type IC0 struct {
 // back to another preconditioner by itself.
 func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
 	opt = opt.withDefaults()
-	diag, err := diagonal(a)
-	if err != nil {
-		return nil, err
+	if a.Rows != a.Cols {
+		return nil, fmt.Errorf("precond: %w (%d×%d)", ErrNotSquare, a.Rows, a.Cols)
 	}
 	n := a.Rows
-	// Strict lower triangle of A, in CSR with int32 pointers.
+	// Row i's strict lower triangle is the first lPtr[i+1]−lPtr[i] entries
+	// of row i of A (columns are sorted), and its diagonal entry the next.
 	lPtr := make([]int32, n+1)
 	nnz := 0
 	for i := 0; i < n; i++ {
 		lo, hi := a.RowPtr[i], a.RowPtr[i+1]
-		k, _ := searchInt32(a.ColIdx[lo:hi], int32(i))
+		k, ok := searchInt32(a.ColIdx[lo:hi], int32(i))
+		var d float64
+		if ok {
+			d = a.Val[lo+k]
+		}
+		if err := checkDiagonal(i, d, ok); err != nil {
+			return nil, err
+		}
 		nnz += k
 		if nnz > math.MaxInt32 {
 			return nil, fmt.Errorf("precond: IC(0) of a %d×%d matrix: %w", n, n, ErrTooLarge)
@@ -100,19 +107,15 @@ func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
 		lPtr[i+1] = int32(nnz)
 	}
 	lCol := make([]int32, nnz)
-	aVal := make([]float64, nnz)
 	for i := 0; i < n; i++ {
-		lo := a.RowPtr[i]
-		p, q := lPtr[i], lPtr[i+1]
-		copy(lCol[p:q], a.ColIdx[lo:lo+int(q-p)])
-		copy(aVal[p:q], a.Val[lo:lo+int(q-p)])
+		src := a.ColIdx[a.RowPtr[i]:]
+		dst := lCol[lPtr[i]:lPtr[i+1]]
+		for k := range dst {
+			dst[k] = src[k]
+		}
 	}
 
 	m := &IC0{n: n, lPtr: lPtr, lCol: lCol, lVal: make([]float64, nnz), dInv: make([]float64, n)}
-	pos := make([]int32, n)
-	for i := range pos {
-		pos[i] = -1
-	}
 	alpha := 0.0
 	var last *BreakdownError
 	for t := 1; t <= opt.MaxTries; t++ {
@@ -121,7 +124,7 @@ func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
 		} else if t > 2 {
 			alpha *= opt.Growth
 		}
-		row, piv := m.factor(aVal, diag, alpha, pos)
+		row, piv := m.factor(a, alpha)
 		if row < 0 {
 			m.shift, m.tries = alpha, t
 			m.transpose()
@@ -145,38 +148,47 @@ func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
 //	L_ij = u_ij / d_j
 //	d_i  = (1+α)·a_ii − Σ_k u_ik·L_ik
 //
-// Entries outside A's pattern are dropped (zero fill). The sums run in
-// increasing k, so the result is bitwise reproducible. pos is scratch of
-// length n holding −1 everywhere, and is left that way.
-func (m *IC0) factor(aVal, diag []float64, alpha float64, pos []int32) (int, float64) {
+// Entries outside A's pattern are dropped (zero fill). The common columns
+// k of rows i and j are found by merging the two sorted rows, and every sum
+// runs in increasing k, so the result is bitwise reproducible.
+func (m *IC0) factor(a *sparse.CSR, alpha float64) (int, float64) {
 	lPtr, lCol, lVal, dInv := m.lPtr, m.lCol, m.lVal, m.dInv
 	for i := 0; i < m.n; i++ {
 		p, q := lPtr[i], lPtr[i+1]
 		cols := lCol[p:q]
 		vals := lVal[p:q]
-		for k, j := range cols {
-			pos[j] = p + int32(k)
-		}
-		di := diag[i] + alpha*diag[i]
+		vals = vals[:len(cols)]
+		av := a.Val[a.RowPtr[i]:]
+		av = av[:len(cols)+1]
 		for k, j := range cols {
 			// vals[:k] hold u_ik for the columns before j.
-			u := aVal[p+int32(k)]
-			jp, jq := lPtr[j], lPtr[j+1]
-			jv := lVal[jp:jq]
-			for kk, c := range lCol[jp:jq] {
-				if x := pos[c]; x >= 0 {
-					u -= lVal[x] * jv[kk]
+			u := av[k]
+			jc := lCol[lPtr[j]:lPtr[j+1]]
+			jv := lVal[lPtr[j]:lPtr[j+1]]
+			jv = jv[:len(jc)]
+			x, y := 0, 0
+			for x < k && y < len(jc) {
+				switch cx, cy := cols[x], jc[y]; {
+				case cx < cy:
+					x++
+				case cx > cy:
+					y++
+				default:
+					u -= vals[x] * jv[y]
+					x++
+					y++
 				}
 			}
 			vals[k] = u
 		}
 		// Turn u_ik into L_ik = u_ik/d_k and take the pivot.
+		di := av[len(cols)]
+		di += alpha * di
 		for k, j := range cols {
 			u := vals[k]
 			l := u * dInv[j]
 			di -= u * l
 			vals[k] = l
-			pos[j] = -1
 		}
 		if !(di > 0) || math.IsInf(di, 1) {
 			return i, di
@@ -191,29 +203,30 @@ func (m *IC0) factor(aVal, diag []float64, alpha float64, pos []int32) (int, flo
 func (m *IC0) transpose() {
 	n := m.n
 	nnz := len(m.lCol)
-	uPtr := make([]int32, n+1)
+	// uPtr[j+2] counts row j's entries first; after the prefix sum uPtr[j+1]
+	// is row j's start and serves as its fill cursor, ending at row j's end.
+	uPtr := make([]int32, n+2)
 	for _, j := range m.lCol {
-		uPtr[j+1]++
+		uPtr[j+2]++
 	}
-	for i := 0; i < n; i++ {
-		uPtr[i+1] += uPtr[i]
+	for i := 2; i < n+2; i++ {
+		uPtr[i] += uPtr[i-1]
 	}
 	uCol := make([]int32, nnz)
 	uVal := make([]float64, nnz)
 	// Walking the rows of L from the last to the first fills each row of Lᵀ
 	// in decreasing column order.
-	next := make([]int32, n)
-	copy(next, uPtr[:n])
 	for i := n - 1; i >= 0; i-- {
-		for p := m.lPtr[i]; p < m.lPtr[i+1]; p++ {
-			j := m.lCol[p]
-			x := next[j]
+		p, q := m.lPtr[i], m.lPtr[i+1]
+		vs := m.lVal[p:q]
+		for k, j := range m.lCol[p:q] {
+			x := uPtr[j+1]
 			uCol[x] = int32(i)
-			uVal[x] = m.lVal[p]
-			next[j] = x + 1
+			uVal[x] = vs[k]
+			uPtr[j+1] = x + 1
 		}
 	}
-	m.uPtr, m.uCol, m.uVal = uPtr, uCol, uVal
+	m.uPtr, m.uCol, m.uVal = uPtr[:n+1], uCol, uVal
 }
 
 // Shift returns the shift α of the factorization in use: M approximates
@@ -249,12 +262,17 @@ func (m *IC0) Precondition(dst, r []float64) {
 	m.backward(dst)
 }
 
-// forward solves (I + L)·w = r into w. The recurrence's critical path is one
-// multiply and one subtract per row (the entry next to the diagonal comes
-// last), the rest of the row overlaps with it.
+// forward solves (I + L)·w = r into w.
+//
+// The recurrence's critical path runs through w_{i−1}: when row i has the
+// entry (i, i−1), as every row of a stencil matrix in natural order has,
+// w_{i−1} is taken from a register rather than reloaded from w, which would
+// add a store-to-load forwarding delay to every row. The other entries of the
+// row are summed first and overlap with the previous row's work.
 func (m *IC0) forward(w, r []float64) {
 	ptr, col, val := m.lPtr, m.lCol, m.lVal
 	r = r[:len(w)]
+	prev := 0.0 // w[i-1]
 	p := ptr[0]
 	for i := range w {
 		q := ptr[i+1]
@@ -262,19 +280,29 @@ func (m *IC0) forward(w, r []float64) {
 		cs := col[p:q]
 		vs := val[p:q]
 		vs = vs[:len(cs)]
-		for k, j := range cs {
-			s -= vs[k] * w[j]
+		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i-1 {
+			for t, j := range cs[:k] {
+				s -= vs[t] * w[j]
+			}
+			s -= vs[k] * prev
+		} else {
+			for t, j := range cs {
+				s -= vs[t] * w[j]
+			}
 		}
 		w[i] = s
+		prev = s
 		p = q
 	}
 }
 
 // backward solves D·(I + L)ᵀ·z = w in place: z_i = d_i⁻¹·w_i − Σ_{j>i} L_ji·z_j
-// from the last row to the first.
+// from the last row to the first, with z_{i+1} carried in a register as in
+// forward.
 func (m *IC0) backward(z []float64) {
 	ptr, col, val, dInv := m.uPtr, m.uCol, m.uVal, m.dInv
 	dInv = dInv[:len(z)]
+	next := 0.0 // z[i+1]
 	q := ptr[len(z)]
 	for i := len(z) - 1; i >= 0; i-- {
 		p := ptr[i]
@@ -282,10 +310,18 @@ func (m *IC0) backward(z []float64) {
 		cs := col[p:q]
 		vs := val[p:q]
 		vs = vs[:len(cs)]
-		for k, j := range cs {
-			s -= vs[k] * z[j]
+		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i+1 {
+			for t, j := range cs[:k] {
+				s -= vs[t] * z[j]
+			}
+			s -= vs[k] * next
+		} else {
+			for t, j := range cs {
+				s -= vs[t] * z[j]
+			}
 		}
 		z[i] = s
+		next = s
 		q = p
 	}
 }

@@ -1,0 +1,178 @@
+package precond
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"github.com/residua/residua/sparse"
+)
+
+// Choice is a preconditioner built for one matrix, with what was chosen and
+// why. It is built once and reused across solves (M is safe for concurrent
+// use).
+type Choice struct {
+	// Kind is the preconditioner built: KindNone, KindJacobi or KindIC0,
+	// never KindAuto.
+	Kind Kind
+	// Reason says in words why Kind was built, e.g.
+	// "ic0: factorization succeeded with shift 0".
+	Reason string
+	// Shift and Tries are IC(0)'s shift α and the factorizations attempted
+	// (zero unless IC(0) was attempted; under KindAuto they describe the
+	// attempt even when another kind was chosen).
+	Shift float64
+	Tries int
+	// Setup is the wall time New spent, attempts that were discarded
+	// included.
+	Setup time.Duration
+	// Bytes is the memory M holds (zero for none).
+	Bytes int64
+	// M applies the preconditioner; nil for KindNone, so that CG runs
+	// unpreconditioned.
+	M interface{ Precondition(dst, r []float64) }
+}
+
+// Thresholds of the automatic rule; see the package documentation.
+const (
+	// AutoMaxShift is the largest IC(0) shift that auto accepts.
+	AutoMaxShift = 0.1
+	// AutoDominance: rows whose off-diagonal absolute sum is at most this
+	// fraction of the diagonal make Jacobi good enough by itself.
+	AutoDominance = 0.5
+	// AutoFlatDiagonal: a diagonal whose largest entry is at most this
+	// multiple of its smallest counts as nearly constant.
+	AutoFlatDiagonal = 1e3
+)
+
+// New builds the preconditioner of the given kind for the square matrix a,
+// which is only read. For KindAuto it chooses by the rule in the package
+// documentation. It returns the *DiagonalError of a diagonal entry that is
+// missing, zero, negative or not finite for every kind except KindNone
+// (such a matrix is not SPD), a *BreakdownError when KindIC0 finds no
+// shift, and an error for an unknown kind.
+func New(a *sparse.CSR, kind Kind) (*Choice, error) {
+	start := time.Now()
+	var c *Choice
+	var err error
+	switch kind {
+	case KindNone:
+		if a.Rows != a.Cols {
+			return nil, fmt.Errorf("precond: %w (%d×%d)", ErrNotSquare, a.Rows, a.Cols)
+		}
+		c = &Choice{Kind: KindNone, Reason: "none: as requested"}
+	case KindJacobi:
+		c, err = newJacobiChoice(a, "jacobi: as requested")
+	case KindIC0:
+		var m *IC0
+		m, err = NewIC0(a, IC0Options{})
+		if err == nil {
+			c = ic0Choice(m, fmt.Sprintf("ic0: as requested; factorization succeeded with shift %g after %d %s", m.Shift(), m.Tries(), plural(m.Tries(), "try", "tries")))
+		}
+	case KindAuto:
+		c, err = auto(a)
+	default:
+		return nil, fmt.Errorf("precond: unknown preconditioner kind %q (want one of none, jacobi, ic0, auto)", string(kind))
+	}
+	if err != nil {
+		return nil, err
+	}
+	c.Setup = time.Since(start)
+	return c, nil
+}
+
+func newJacobiChoice(a *sparse.CSR, reason string) (*Choice, error) {
+	j, err := NewJacobi(a)
+	if err != nil {
+		return nil, err
+	}
+	return &Choice{Kind: KindJacobi, Reason: reason, Bytes: j.Bytes(), M: j}, nil
+}
+
+func ic0Choice(m *IC0, reason string) *Choice {
+	return &Choice{Kind: KindIC0, Reason: reason, Shift: m.Shift(), Tries: m.Tries(), Bytes: m.Bytes(), M: m}
+}
+
+// diagonalSummary describes a's diagonal and row dominance: the extreme
+// diagonal entries, the largest ratio of a row's off-diagonal absolute sum
+// to its diagonal entry, and whether any off-diagonal entry is stored.
+type diagonalSummary struct {
+	min, max  float64
+	dominance float64 // max_i Σ_{j≠i} |a_ij| / a_ii
+	offDiag   bool
+}
+
+func summarize(a *sparse.CSR) (diagonalSummary, error) {
+	s := diagonalSummary{min: math.Inf(1)}
+	if a.Rows != a.Cols {
+		return s, fmt.Errorf("precond: %w (%d×%d)", ErrNotSquare, a.Rows, a.Cols)
+	}
+	for i := 0; i < a.Rows; i++ {
+		var d, off float64
+		present := false
+		for p := a.RowPtr[i]; p < a.RowPtr[i+1]; p++ {
+			if int(a.ColIdx[p]) == i {
+				d, present = a.Val[p], true
+			} else {
+				off += math.Abs(a.Val[p])
+				s.offDiag = true
+			}
+		}
+		if err := checkDiagonal(i, d, present); err != nil {
+			return s, err
+		}
+		s.min, s.max = math.Min(s.min, d), math.Max(s.max, d)
+		s.dominance = math.Max(s.dominance, off/d)
+	}
+	return s, nil
+}
+
+// auto implements the rule documented in doc.go, step by step.
+func auto(a *sparse.CSR) (*Choice, error) {
+	s, err := summarize(a)
+	if err != nil {
+		return nil, err
+	}
+	if a.Rows == 0 {
+		return &Choice{Kind: KindNone, Reason: "none: the matrix is empty"}, nil
+	}
+	if !s.offDiag {
+		return newJacobiChoice(a, "jacobi: the matrix is diagonal, so Jacobi is its exact inverse")
+	}
+	if s.dominance <= AutoDominance {
+		return newJacobiChoice(a, fmt.Sprintf("jacobi: every row is diagonally dominant (off-diagonal sum ≤ %.3g × diagonal), so the Jacobi-preconditioned condition number is at most %.3g (Gershgorin) and IC(0) cannot save much",
+			s.dominance, (1+s.dominance)/(1-s.dominance)))
+	}
+	// Shifts 0, 1e-3, 1e-2, 1e-1: stop at AutoMaxShift.
+	tries := 1 + int(math.Round(math.Log10(AutoMaxShift/DefaultFirstShift))) + 1
+	m, err := NewIC0(a, IC0Options{MaxTries: tries})
+	if err == nil {
+		if m.Shift() == 0 {
+			return ic0Choice(m, "ic0: factorization succeeded with shift 0"), nil
+		}
+		return ic0Choice(m, fmt.Sprintf("ic0: factorization needed shift %g (%d tries), small enough to keep", m.Shift(), m.Tries())), nil
+	}
+	var be *BreakdownError
+	if !errors.As(err, &be) {
+		return nil, err
+	}
+	spread := s.max / s.min
+	why := fmt.Sprintf("ic0 broke down at every shift up to %g (%d tries; last pivot %.3g at row %d), so it would approximate A poorly", be.Shift, be.Tries, be.Pivot, be.Row+1)
+	if spread <= AutoFlatDiagonal {
+		return &Choice{Kind: KindNone, Reason: fmt.Sprintf("none: %s, and the diagonal is nearly constant (largest/smallest = %.3g), so Jacobi would only rescale", why, spread), Shift: be.Shift, Tries: be.Tries}, nil
+	}
+	c, err := newJacobiChoice(a, fmt.Sprintf("jacobi: %s; the diagonal varies (largest/smallest = %.3g), which Jacobi corrects", why, spread))
+	if err != nil {
+		return nil, err
+	}
+	c.Shift, c.Tries = be.Shift, be.Tries
+	return c, nil
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
+}

@@ -1,0 +1,118 @@
+// Package precond builds preconditioners for conjugate gradients on sparse
+// symmetric positive definite (SPD) matrices: Jacobi (the inverse diagonal),
+// IC(0) (zero-fill incomplete Cholesky), and an automatic choice between
+// them and none.
+//
+// # Using it
+//
+// New(a, kind) builds the preconditioner of a kind (KindNone, KindJacobi,
+// KindIC0, or KindAuto, which chooses by the rule below) and returns a
+// *Choice holding it (M), what was built and why (Kind, Reason), IC(0)'s
+// shift and tries, the set-up time and the memory held. M is nil for
+// KindNone, so that CG runs unpreconditioned. NewJacobi and NewIC0 build one
+// kind directly. Every preconditioner has
+//
+//	Precondition(dst, r []float64) // dst = M⁻¹·r
+//
+// which satisfies krylov.Preconditioner; this package does not import
+// krylov, which sits above it.
+//
+// The set-up is separate from the application and reusable: build once per
+// matrix and apply across any number of solves. Precondition reads only the
+// preconditioner's own arrays and writes only dst; it keeps no scratch state
+// and allocates nothing, so one preconditioner may serve several solves in
+// several goroutines at once.
+//
+// # Arguments and storage
+//
+// Matrices are *sparse.CSR with full symmetric storage (both triangles) and
+// sorted columns; they are only read, and the preconditioners keep no
+// reference to them. NewIC0 reads only the lower triangle (diagonal
+// included) and trusts the caller that A is symmetric.
+//
+// Precondition writes dst, and dst and r may be the same slice (both solves
+// run in dst, reading r[i] before writing dst[i]); partial overlap is not
+// allowed. It panics, with a message starting "precond:", if len(dst) or
+// len(r) is not the matrix order: that is a programmer's mistake. Bad matrix
+// data is an error: a missing, zero, negative or non-finite diagonal entry
+// gives a *DiagonalError naming the row (0-based in the field, 1-based in the
+// message), and an IC(0) factorization that finds no positive pivots at any
+// shift tried gives a *BreakdownError. A preconditioner's zero value is not
+// usable; build it with its constructor.
+//
+// # Jacobi
+//
+// M = diag(A) (Saad, Iterative Methods for Sparse Linear Systems, 2nd ed.,
+// §10.2). The diagonal is inverted once at set-up, so applying it is one
+// multiplication per entry.
+//
+// # IC(0)
+//
+// Zero-fill incomplete Cholesky (Meijerink and van der Vorst, Math. Comp. 31,
+// 1977; Saad §10.3): M = (I + L)·D·(I + L)ᵀ with L strictly lower triangular
+// on the pattern of A's strict lower triangle and D diagonal, computed by the
+// Cholesky recurrences with every entry outside A's pattern dropped, so that
+// M equals A on A's pattern. For an M-matrix or H-matrix the pivots are
+// positive (Meijerink and van der Vorst; Manteuffel), but for a general SPD
+// matrix one may be zero or negative. NewIC0 then factors the shifted matrix
+// A + α·diag(A) with α = 1e-3, 1e-2, ... (IC0Options), as Manteuffel proposed
+// (Math. Comp. 34, 1980); a large enough shift makes the matrix diagonally
+// dominant, which guarantees success. The shift that worked and the number
+// of factorizations tried are reported (Shift, Tries); after the last try it
+// returns a *BreakdownError and never falls back to another preconditioner by
+// itself.
+//
+// Storage: L row by row (for the forward solve) and Lᵀ row by row (for the
+// backward solve), each with int32 row pointers and column indices and its
+// values contiguous in the order the solve reads them, plus D⁻¹, inverted
+// once. That is 2·(12·nnz(L) + 4·n) + 8·n bytes (Bytes). Each row's entries
+// are ordered so that the one next to the diagonal, on which the
+// recurrence's critical path runs, comes last and is taken from a register.
+// The backward solve folds in D⁻¹, so one application is two passes.
+//
+// Sequential versus level-scheduled solves. The triangular solves run
+// sequentially. The package measured level scheduling (Anderson and Saad,
+// 1989; Saad §11.6.2), which splits each solve into levels of independent
+// rows separated by barriers (see BenchmarkLevels). On the 7-point 3D
+// Poisson matrix the levels are the anti-diagonal planes x+y+z = const:
+// about 3n levels for n³ unknowns, a few thousand rows each, whose rows lie
+// far apart in memory. On this machine (2 cores) the level-ordered sweep was
+// slower than the natural-order one even on one goroutine (it touches a new
+// cache line for almost every row where the natural order streams), and on
+// two goroutines the ~600 barriers per application cost more than the
+// second core gave, especially when the machine is shared and the partner
+// goroutine is descheduled at a barrier. The sequential solves are therefore
+// the only ones shipped; BENCHMARKS.md has the figures.
+//
+// # The automatic choice
+//
+// KindAuto decides from the matrix itself, in this order (the first rule
+// that applies wins; thresholds are the Auto* constants):
+//
+//  1. A diagonal entry that is missing, zero, negative or not finite: the
+//     matrix is not SPD; New returns the *DiagonalError.
+//  2. No off-diagonal entries: jacobi, which is then the exact inverse.
+//  3. Every row diagonally dominant with max_i Σ_{j≠i}|a_ij|/a_ii = ρ ≤ 0.5:
+//     jacobi. By Gershgorin's theorem (Golub and Van Loan, Matrix
+//     Computations, 4th ed., §7.2.1) the eigenvalues of D⁻¹A lie in
+//     [1−ρ, 1+ρ], so its condition number is at most (1+ρ)/(1−ρ) ≤ 3 and
+//     Jacobi-CG converges in a few tens of iterations; IC(0) could not save
+//     its set-up cost.
+//  4. IC(0) with shifts 0, 1e-3, 1e-2 and 1e-1 (AutoMaxShift): the first that
+//     succeeds gives ic0. Measured on the shared SPD matrices, IC(0) at these
+//     shifts took 1.4 to 47 times fewer iterations than Jacobi and was the
+//     fastest or within 20% of the fastest in total time.
+//  5. Otherwise (IC(0) would need a shift of 1 or more, which makes it a poor
+//     approximation of A: on the shared matrices that needed shift 1 it lost
+//     to Jacobi or to no preconditioner by up to 3.5 times): jacobi when the
+//     diagonal varies (largest/smallest > 1e3, AutoFlatDiagonal), which
+//     Jacobi corrects; none when the diagonal is nearly constant, since
+//     Jacobi would then only rescale (on the two such shared matrices,
+//     plat362 and plat1919, Jacobi-CG did not even converge in 10·n
+//     iterations while plain CG did).
+//
+// The thresholds of rules 4 and 5 are not theorems: they were fixed from the
+// measurements of the shared SPD matrices and 3D Poisson problems listed in
+// BENCHMARKS.md. The Choice's Reason states which rule applied, with the
+// figures it used.
+package precond

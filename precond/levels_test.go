@@ -1,0 +1,203 @@
+package precond
+
+import (
+	"fmt"
+	"runtime"
+	"sync/atomic"
+	"testing"
+
+	"github.com/residua/residua/sparse/stencil"
+)
+
+// This file holds the level-scheduled triangular solves that the package
+// measured against its sequential ones (see BenchmarkLevels and doc.go); they
+// live beside the benchmark, not in the package, because the sequential
+// solves won on this machine.
+
+// Level scheduling of the triangular solves (Anderson and Saad, Int. J.
+// High Speed Computing 1, 1989; Saad, 2nd ed., §11.6.2): row i of the
+// forward solve can start once every row j < i it reads is done, so rows
+// are grouped into levels, level(i) = 1 + max level(j) over the entries
+// (i, j) of L, and the rows of one level are independent. The backward
+// solve has its own levels, over the entries of Lᵀ.
+//
+// The scheduled factor stores each solve's rows in level order, entries
+// contiguous in that order, with row and column numbers kept in the
+// original numbering (no vector is permuted).
+type levelSolve struct {
+	rows   []int32 // the rows, level by level
+	levPtr []int32 // level l is rows[levPtr[l]:levPtr[l+1]]
+	ptr    []int32 // row rows[k]'s entries are col/val[ptr[k]:ptr[k+1]]
+	col    []int32
+	val    []float64
+}
+
+// buildLevels groups the rows of the triangular factor held in
+// (ptr, col, val) into levels, visiting rows in the order the solve runs
+// (increasing for the forward solve, decreasing for the backward one),
+// and copies the entries into level order.
+func buildLevels(n int, ptr, col []int32, val []float64, increasing bool) *levelSolve {
+	level := make([]int32, n)
+	nlev := int32(0)
+	for t := 0; t < n; t++ {
+		i := t
+		if !increasing {
+			i = n - 1 - t
+		}
+		l := int32(0)
+		for _, j := range col[ptr[i]:ptr[i+1]] {
+			l = max(l, level[j]+1)
+		}
+		level[i] = l
+		nlev = max(nlev, l+1)
+	}
+	ls := &levelSolve{levPtr: make([]int32, nlev+1), rows: make([]int32, n)}
+	for _, l := range level {
+		ls.levPtr[l+1]++
+	}
+	for l := int32(0); l < nlev; l++ {
+		ls.levPtr[l+1] += ls.levPtr[l]
+	}
+	next := make([]int32, nlev)
+	copy(next, ls.levPtr[:nlev])
+	for i, l := range level {
+		ls.rows[next[l]] = int32(i)
+		next[l]++
+	}
+	ls.ptr = make([]int32, n+1)
+	ls.col = make([]int32, len(col))
+	ls.val = make([]float64, len(val))
+	p := int32(0)
+	for k, i := range ls.rows {
+		q := p + ptr[i+1] - ptr[i]
+		copy(ls.col[p:q], col[ptr[i]:ptr[i+1]])
+		copy(ls.val[p:q], val[ptr[i]:ptr[i+1]])
+		ls.ptr[k+1] = q
+		p = q
+	}
+	return ls
+}
+
+// forwardRange runs rows rows[lo:hi] of the forward solve (I + L)·w = r.
+func (ls *levelSolve) forwardRange(w, r []float64, lo, hi int32) {
+	for k := lo; k < hi; k++ {
+		i := ls.rows[k]
+		s := r[i]
+		cs := ls.col[ls.ptr[k]:ls.ptr[k+1]]
+		vs := ls.val[ls.ptr[k]:ls.ptr[k+1]]
+		vs = vs[:len(cs)]
+		for t, j := range cs {
+			s -= vs[t] * w[j]
+		}
+		w[i] = s
+	}
+}
+
+// backwardRange runs rows rows[lo:hi] of the backward solve
+// D·(I + L)ᵀ·z = w, in place.
+func (ls *levelSolve) backwardRange(z, dInv []float64, lo, hi int32) {
+	for k := lo; k < hi; k++ {
+		i := ls.rows[k]
+		s := z[i] * dInv[i]
+		cs := ls.col[ls.ptr[k]:ls.ptr[k+1]]
+		vs := ls.val[ls.ptr[k]:ls.ptr[k+1]]
+		vs = vs[:len(cs)]
+		for t, j := range cs {
+			s -= vs[t] * z[j]
+		}
+		z[i] = s
+	}
+}
+
+// barrier is a reusable spinning barrier for a fixed number of parties.
+type barrier struct {
+	parties int32
+	count   atomic.Int32
+	phase   atomic.Int32
+}
+
+func (b *barrier) wait() {
+	ph := b.phase.Load()
+	if b.count.Add(1) == b.parties {
+		b.count.Store(0)
+		b.phase.Add(1)
+		return
+	}
+	for spins := 0; b.phase.Load() == ph; spins++ {
+		if spins > 64 {
+			runtime.Gosched()
+		}
+	}
+}
+
+// levelsApply runs both solves level by level with `parts` goroutines
+// (the caller and parts−1 started for the call), each taking a contiguous
+// share of every level, with a barrier between levels.
+func (m *IC0) levelsApply(dst, r []float64, fw, bw *levelSolve, parts int) {
+	var bar barrier
+	bar.parties = int32(parts)
+	run := func(k int) {
+		for l := 0; l+1 < len(fw.levPtr); l++ {
+			lo, hi := fw.levPtr[l], fw.levPtr[l+1]
+			a := lo + (hi-lo)*int32(k)/int32(parts)
+			b := lo + (hi-lo)*int32(k+1)/int32(parts)
+			fw.forwardRange(dst, r, a, b)
+			bar.wait()
+		}
+		for l := 0; l+1 < len(bw.levPtr); l++ {
+			lo, hi := bw.levPtr[l], bw.levPtr[l+1]
+			a := lo + (hi-lo)*int32(k)/int32(parts)
+			b := lo + (hi-lo)*int32(k+1)/int32(parts)
+			bw.backwardRange(dst, m.dInv, a, b)
+			bar.wait()
+		}
+	}
+	done := make(chan struct{}, parts)
+	for k := 1; k < parts; k++ {
+		go func() { run(k); done <- struct{}{} }()
+	}
+	run(0)
+	for k := 1; k < parts; k++ {
+		<-done
+	}
+}
+
+// BenchmarkLevels compares one IC(0) application done by the sequential
+// solves (seq), by the level-scheduled ones on one goroutine (levels-1: the
+// cost of level order alone) and on two (levels-2).
+func BenchmarkLevels(b *testing.B) {
+	for _, n := range []int{100} {
+		a := stencil.Poisson3D(n)
+		m, _ := NewIC0(a, IC0Options{})
+		fw := buildLevels(m.n, m.lPtr, m.lCol, m.lVal, true)
+		bw := buildLevels(m.n, m.uPtr, m.uCol, m.uVal, false)
+		b.Logf("levels fwd %d bwd %d", len(fw.levPtr)-1, len(bw.levPtr)-1)
+		r := stencil.Ones(a)
+		z := make([]float64, a.Rows)
+		z2 := make([]float64, a.Rows)
+		m.Precondition(z, r)
+		m.levelsApply(z2, r, fw, bw, 2)
+		for i := range z {
+			if z[i] != z2[i] {
+				b.Fatalf("differ at %d", i)
+			}
+		}
+		for rep := 0; rep < 3; rep++ {
+			b.Run(fmt.Sprintf("seq/%d", n), func(b *testing.B) {
+				for b.Loop() {
+					m.Precondition(z, r)
+				}
+			})
+			b.Run(fmt.Sprintf("lev1/%d", n), func(b *testing.B) {
+				for b.Loop() {
+					m.levelsApply(z, r, fw, bw, 1)
+				}
+			})
+			b.Run(fmt.Sprintf("lev2/%d", n), func(b *testing.B) {
+				for b.Loop() {
+					m.levelsApply(z, r, fw, bw, 2)
+				}
+			})
+		}
+	}
+}

@@ -1,0 +1,5 @@
+//go:build !race
+
+package precond_test
+
+const raceEnabled = false
