@@ -1,0 +1,142 @@
+package api
+
+import (
+	"fmt"
+	"log/slog"
+	"runtime"
+	"time"
+)
+
+// DefaultListen is the address `residua serve` listens on by default:
+// loopback only, so that exposing the service is an explicit choice.
+const DefaultListen = "127.0.0.1:7447"
+
+// Defaults of the Config fields. Each is documented on its field.
+const (
+	DefaultMaxUploadBytes = 4 << 30
+	DefaultMaxRows        = 50_000_000
+	DefaultMaxNonzeros    = 200_000_000
+	DefaultMaxRHS         = 64
+	DefaultMaxQueued      = 64
+	DefaultMemoryBudget   = 8 << 30
+	DefaultMaxJobsKept    = 1000
+	DefaultShutdownGrace  = 10 * time.Second
+	DefaultStopTimeout    = 5 * time.Second
+)
+
+// Config holds a server's settings. The zero value works: every field's
+// comment gives the default used when it is zero.
+type Config struct {
+	// Listen is the address ListenAndServe listens on. Default
+	// DefaultListen (127.0.0.1:7447).
+	Listen string
+
+	// MaxUploadBytes bounds one matrix or vector upload: the bytes received
+	// on the wire and, for gzip uploads, the bytes after decompression.
+	// An upload is refused as soon as it passes the bound. Default 4 GiB.
+	MaxUploadBytes int64
+	// MaxRows bounds the rows (and columns) of an uploaded matrix and the
+	// length of an uploaded vector, checked against the Matrix Market size
+	// line or the CSR_RAW metadata before anything is allocated. Default
+	// 50,000,000.
+	MaxRows int
+	// MaxNonzeros bounds the stored entries of an uploaded matrix, checked
+	// like MaxRows. Default 200,000,000 (2.4 GB of CSR arrays).
+	MaxNonzeros int64
+	// MaxRHS bounds the right-hand sides of one solve request. Default 64.
+	MaxRHS int
+	// MaxConcurrentSolves is the number of jobs that iterate at once; more
+	// wait in the queue. Default GOMAXPROCS: a CG iteration here is
+	// single-threaded and memory-bound, so one job per processor uses the
+	// machine without oversubscribing it, and a job never waits behind
+	// another when the machine has an idle core.
+	MaxConcurrentSolves int
+	// MaxQueued bounds the jobs waiting for a solve slot; a request past it
+	// gets RESOURCE_EXHAUSTED. Default 64.
+	MaxQueued int
+	// MemoryBudget bounds the bytes of stored matrices, stored vectors,
+	// cached preconditioners, running jobs' vectors and kept solutions.
+	// Idle items are evicted least recently used first to make room; items
+	// in use by a queued or running job never are. Default 8 GiB.
+	MemoryBudget int64
+	// MaxJobsKept bounds the finished jobs remembered for Watch, GetJob
+	// and ListJobs; the oldest finished are forgotten first. Default 1000.
+	MaxJobsKept int
+
+	// TokenFile, when set, names a file whose content (surrounding white
+	// space trimmed) is the bearer token every RPC except the health check
+	// must present. The token is never logged.
+	TokenFile string
+	// TLSCert and TLSKey, when both set, name PEM files; the server then
+	// speaks TLS only.
+	TLSCert, TLSKey string
+
+	// Logger receives the structured logs. Default slog.Default().
+	Logger *slog.Logger
+	// ShutdownGrace is how long running solves may continue after shutdown
+	// begins before they are cancelled. Default 10 s.
+	ShutdownGrace time.Duration
+	// StopTimeout bounds the graceful stop of the gRPC server (waiting for
+	// open streams to end) after the jobs have ended; then the server
+	// stops forcibly. Default 5 s.
+	StopTimeout time.Duration
+}
+
+// withDefaults returns c with zero fields replaced by their defaults, or an
+// error for a negative value.
+func (c Config) withDefaults() (Config, error) {
+	if c.Listen == "" {
+		c.Listen = DefaultListen
+	}
+	neg := func(name string, v int64) error {
+		if v < 0 {
+			return fmt.Errorf("api: %s is negative (%d)", name, v)
+		}
+		return nil
+	}
+	for _, f := range []struct {
+		name string
+		v    int64
+	}{
+		{"MaxUploadBytes", c.MaxUploadBytes}, {"MaxRows", int64(c.MaxRows)},
+		{"MaxNonzeros", c.MaxNonzeros}, {"MaxRHS", int64(c.MaxRHS)},
+		{"MaxConcurrentSolves", int64(c.MaxConcurrentSolves)}, {"MaxQueued", int64(c.MaxQueued)},
+		{"MemoryBudget", c.MemoryBudget}, {"MaxJobsKept", int64(c.MaxJobsKept)},
+		{"ShutdownGrace", int64(c.ShutdownGrace)}, {"StopTimeout", int64(c.StopTimeout)},
+	} {
+		if err := neg(f.name, f.v); err != nil {
+			return c, err
+		}
+	}
+	def := func(v *int64, d int64) {
+		if *v == 0 {
+			*v = d
+		}
+	}
+	defInt := func(v *int, d int) {
+		if *v == 0 {
+			*v = d
+		}
+	}
+	def(&c.MaxUploadBytes, DefaultMaxUploadBytes)
+	defInt(&c.MaxRows, DefaultMaxRows)
+	def(&c.MaxNonzeros, DefaultMaxNonzeros)
+	defInt(&c.MaxRHS, DefaultMaxRHS)
+	defInt(&c.MaxConcurrentSolves, runtime.GOMAXPROCS(0))
+	defInt(&c.MaxQueued, DefaultMaxQueued)
+	def(&c.MemoryBudget, DefaultMemoryBudget)
+	defInt(&c.MaxJobsKept, DefaultMaxJobsKept)
+	if c.ShutdownGrace == 0 {
+		c.ShutdownGrace = DefaultShutdownGrace
+	}
+	if c.StopTimeout == 0 {
+		c.StopTimeout = DefaultStopTimeout
+	}
+	if c.Logger == nil {
+		c.Logger = slog.Default()
+	}
+	if (c.TLSCert == "") != (c.TLSKey == "") {
+		return c, fmt.Errorf("api: TLS needs both a certificate and a key file")
+	}
+	return c, nil
+}

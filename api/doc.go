@@ -1,0 +1,61 @@
+// Package api is the residua gRPC server: it stores uploaded matrices,
+// runs conjugate-gradient solve jobs on them with the same krylov and
+// precond code as a local solve (so a remote solve gives bitwise the same
+// x), and streams their progress to any number of clients. The service is
+// defined, message by message, in proto/residua/v1/residua.proto; this
+// package implements it.
+//
+// # Pieces
+//
+// Server (NewServer, Serve) registers the Solver service, the standard
+// grpc.health.v1 health service and server reflection, with keepalive
+// matched to the bundled client, optional TLS and an optional bearer token
+// checked in the interceptors. The interceptors also recover from panics
+// (logging the stack and answering INTERNAL) and convert every handler
+// error to a gRPC status with Status, the one function that picks codes.
+//
+// Registry holds the jobs. A job is queued (the queue is bounded by
+// Config.MaxQueued; past it a request gets RESOURCE_EXHAUSTED), then runs
+// in its own goroutine when one of Config.MaxConcurrentSolves slots is
+// free. Its events (queued, accepted, progress, results, finished) go to a
+// history, kept for late watchers (progress thinned to at most 2048
+// events, covering the whole solve), and to each subscriber's own queue,
+// which drops its oldest progress events when its reader is slow and
+// counts them; nothing else is ever dropped, and the solver never waits on
+// a reader. Exactly one goroutine sends on each stream. Registry is
+// exported so that other front ends (a web page, metrics) can list and
+// follow jobs.
+//
+// The store accounts for matrices, stored vectors, cached preconditioners,
+// running jobs' vectors and kept solutions against Config.MemoryBudget.
+// Space is reserved before the allocation it stands for; idle items are
+// evicted least recently used first to make room, and an item a queued or
+// running job uses is pinned and never evicted. Preconditioners are cached
+// by (matrix id, preconditioner kind): the second solve on a matrix skips
+// the set-up and its accepted event says so.
+//
+// # Uploads
+//
+// An upload is parsed as its chunks arrive: a reader pulls one chunk at a
+// time from the stream, so the server holds one chunk plus the matrix
+// being built, never the whole text. Bytes are counted as they arrive and
+// the upload is refused as soon as they pass Config.MaxUploadBytes; the
+// Matrix Market size line (or the CSR_RAW metadata) is checked against
+// MaxRows, MaxNonzeros and the memory that could be freed before anything
+// is allocated. A matrix's id is the SHA-256 of its dimensions and CSR
+// arrays, so the same matrix is stored once.
+//
+// # Errors
+//
+// Handlers return Go errors wrapping the named reasons of this package
+// (ErrInvalid, ErrNotFound, ErrLimit, ...) or of matrixio, sparse, precond
+// and krylov; Status maps them to codes with errors.Is. Nothing here
+// panics on client input; the server never allocates on a client's say-so
+// without a bound; an accepted job always ends with a finished event.
+//
+// # Logs
+//
+// Config.Logger (log/slog) gets one line per upload (ids, sizes, duration,
+// outcome), per job start and end, and per shutdown step. Secrets (the
+// token) are never logged.
+package api
