@@ -1,0 +1,126 @@
+// residua watch page: follows /api/events (Server-Sent Events) and keeps one
+// card per job; each card's chart is the server's SVG, fetched again when
+// the job's history version changes.
+"use strict";
+
+const list = document.getElementById("jobs");
+const empty = document.getElementById("empty");
+const link = document.getElementById("link");
+const template = document.getElementById("job-template");
+const cards = new Map();
+
+const fmtInt = new Intl.NumberFormat("en");
+
+function duration(s) {
+  if (s == null || !isFinite(s)) return "—";
+  if (s < 10) return s.toFixed(1) + " s";
+  if (s < 60) return Math.round(s) + " s";
+  if (s < 3600) return Math.floor(s / 60) + " min " + String(Math.round(s % 60)).padStart(2, "0") + " s";
+  return Math.floor(s / 3600) + " h " + String(Math.round((s % 3600) / 60)).padStart(2, "0") + " min";
+}
+
+function sci(v) {
+  return v == null ? "—" : v.toExponential(2);
+}
+
+// stateClass maps a job's state words to the colour the card carries.
+function stateClass(job) {
+  if (job.state === "finished") return job.state_text === "converged" ? "converged" : "stopped";
+  return job.state;
+}
+
+function card(job) {
+  let li = cards.get(job.id);
+  if (!li) {
+    li = template.content.firstElementChild.cloneNode(true);
+    li.id = "job-" + job.id;
+    li.dataset.updates = "0";
+    li.dataset.version = "";
+    li.querySelector(".id").textContent = job.id;
+    li.querySelector(".csv").href = "/api/jobs/" + job.id + "/history?format=csv";
+    li.querySelector(".json").href = "/api/jobs/" + job.id + "/history";
+    cards.set(job.id, li);
+  }
+  return li;
+}
+
+function fill(li, job) {
+  const q = (sel) => li.querySelector(sel);
+  li.dataset.state = stateClass(job);
+  q(".state").textContent = job.state_text;
+  q(".matrix").textContent = job.label ? job.label + " · " + job.matrix : job.matrix;
+  q(".size").textContent = job.rows ? "n = " + fmtInt.format(job.rows) + " · " + fmtInt.format(job.nonzeros) + " nonzeros" : "";
+  q(".precond").textContent = job.preconditioner || "—";
+  let it = fmtInt.format(job.iteration);
+  if (job.rhs_count > 1) it += " (right-hand side " + (job.rhs + 1) + " of " + job.rhs_count + ")";
+  q(".iteration").textContent = job.state === "queued" ? "—" : it;
+  q(".residual").textContent = sci(job.relative_residual) + (job.tolerance ? " (tolerance " + job.tolerance.toExponential(0) + ")" : "");
+  q(".reduction").textContent = job.reduction_per_iteration == null ? "—" : job.reduction_per_iteration.toFixed(4);
+  let left = "—";
+  if (job.state === "running") {
+    left = job.iterations_left == null ? "no estimate yet" : "≈ " + fmtInt.format(job.iterations_left) + " it · " + duration(job.seconds_left);
+  } else if (job.state !== "queued") {
+    left = "done";
+  }
+  q(".left").textContent = left;
+  q(".elapsed").textContent = job.state === "queued" ? "waiting" : duration(job.elapsed_seconds);
+  const err = q(".error");
+  err.hidden = !job.error;
+  err.textContent = job.error || "";
+  if (job.history_rows > 0 && String(job.version) !== li.dataset.version && !li.dataset.loading) {
+    loadChart(li, job);
+  }
+}
+
+async function loadChart(li, job) {
+  li.dataset.loading = "1";
+  try {
+    const res = await fetch("/api/jobs/" + job.id + "/chart.svg?v=" + job.version, { cache: "no-store" });
+    if (res.ok) {
+      const svg = await res.text();
+      li.querySelector(".chart").innerHTML = svg;
+      li.dataset.version = String(job.version);
+      li.dataset.updates = String(Number(li.dataset.updates) + 1);
+    }
+  } catch (e) {
+    // The next event tries again.
+  } finally {
+    delete li.dataset.loading;
+  }
+}
+
+function render(data) {
+  const seen = new Set();
+  let prev = null;
+  for (const job of data.jobs) {
+    seen.add(job.id);
+    const li = card(job);
+    fill(li, job);
+    // Newest first, as the server lists them.
+    const want = prev ? prev.nextSibling : list.firstChild;
+    if (li !== want) list.insertBefore(li, want);
+    prev = li;
+  }
+  for (const [id, li] of cards) {
+    if (!seen.has(id)) {
+      li.remove();
+      cards.delete(id);
+    }
+  }
+  empty.hidden = data.jobs.length > 0;
+}
+
+function connect() {
+  const es = new EventSource("/api/events");
+  es.addEventListener("jobs", (ev) => {
+    link.dataset.state = "live";
+    link.textContent = "live";
+    render(JSON.parse(ev.data));
+  });
+  es.onerror = () => {
+    link.dataset.state = "lost";
+    link.textContent = "connection lost, retrying…";
+  };
+}
+
+connect();

@@ -1,0 +1,323 @@
+package web
+
+import (
+	"bufio"
+	"bytes"
+	"encoding/json"
+	"encoding/xml"
+	"io"
+	"math"
+	"net/http"
+	"net/http/httptest"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/prometheus/common/expfmt"
+	"github.com/prometheus/common/model"
+	"go.uber.org/goleak"
+
+	"github.com/residua/residua/history"
+	"github.com/residua/residua/metrics"
+	pb "github.com/residua/residua/proto/residua/v1"
+)
+
+var t0 = time.Date(2026, 12, 2, 3, 0, 0, 0, time.UTC)
+
+func unix(t time.Time) float64 { return float64(t.UnixNano()) / 1e9 }
+
+// fixture: job a converged (older), job b running with 100 rows falling by
+// 0.9 per iteration towards 1e-8.
+func fixture(t *testing.T, opt Options) (*fakeSource, *httptest.Server) {
+	t.Helper()
+	src := newFakeSource()
+	src.add(&pb.Job{Id: "ja", MatrixName: "made-up truss", Rows: 1000, Nonzeros: 4998, Method: "cg", Preconditioner: "ic0", Rtol: 1e-8, RhsCount: 1})
+	src.start("ja", unix(t0))
+	src.progress("ja", 0, 0, 40, 0.6)
+	src.finish("ja", pb.JobState_FINISHED, "converged", unix(t0.Add(2*time.Second)))
+	src.add(&pb.Job{Id: "jb", MatrixName: "heat-sink block", Rows: 216000, Nonzeros: 1490400, Method: "cg", PreconditionerRequested: "none", Rtol: 1e-8, RhsCount: 1})
+	src.start("jb", unix(t0.Add(3*time.Second)))
+	src.progress("jb", 0, 0, 99, 0.9)
+	opt.Poll = 5 * time.Millisecond
+	opt.Push = 5 * time.Millisecond
+	opt.Now = func() time.Time { return t0.Add(10 * time.Second) }
+	s := New(src, opt)
+	ts := httptest.NewServer(s)
+	t.Cleanup(func() { ts.Close(); s.Close() })
+	waitUntil(t, func() bool {
+		l := s.list()
+		return len(l.Jobs) == 2 && l.Jobs[0].HistoryRows == 100 && l.Jobs[1].HistoryRows == 41
+	})
+	return src, ts
+}
+
+func waitUntil(t *testing.T, ok func() bool) {
+	t.Helper()
+	deadline := time.Now().Add(5 * time.Second)
+	for !ok() {
+		if time.Now().After(deadline) {
+			t.Fatal("condition not met within 5 s")
+		}
+		time.Sleep(2 * time.Millisecond)
+	}
+}
+
+func get(t *testing.T, url string, wantStatus int) (string, http.Header) {
+	t.Helper()
+	res, err := http.Get(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	body, _ := io.ReadAll(res.Body)
+	if res.StatusCode != wantStatus {
+		t.Fatalf("GET %s: %s %s, want %d", url, res.Status, body, wantStatus)
+	}
+	return string(body), res.Header
+}
+
+func TestJobsEndpoints(t *testing.T) {
+	// Cleanups run last-registered first: this check runs after the
+	// fixture's server and page are closed.
+	ignore := goleak.IgnoreCurrent()
+	t.Cleanup(func() {
+		http.DefaultClient.CloseIdleConnections()
+		goleak.VerifyNone(t, ignore)
+	})
+	_, ts := fixture(t, Options{})
+	body, hdr := get(t, ts.URL+"/api/jobs", 200)
+	if ct := hdr.Get("Content-Type"); ct != "application/json" {
+		t.Errorf("content type %q", ct)
+	}
+	var l JobList
+	if err := json.Unmarshal([]byte(body), &l); err != nil {
+		t.Fatal(err)
+	}
+	if len(l.Jobs) != 2 || l.Jobs[0].ID != "jb" || l.Jobs[1].ID != "ja" {
+		t.Fatalf("jobs %+v", l.Jobs)
+	}
+	b, a := l.Jobs[0], l.Jobs[1]
+	if b.State != "running" || b.StateText != "running" || b.Matrix != "heat-sink block" || b.Preconditioner != "none" ||
+		b.Iteration != 99 || b.Rows != 216000 || b.ElapsedSeconds != 7 {
+		t.Errorf("running job %+v", b)
+	}
+	// The rows fall by exactly 0.9 per iteration: over the window of 50
+	// iterations the geometric mean of the ratios is 0.9 (up to rounding
+	// in math.Pow, far below 1e-12), and from 0.9^99 the tolerance 1e-8
+	// needs ⌈log(1e-8/0.9^99)/log 0.9⌉ = 76 more iterations, 10 ms each.
+	if b.Reduction == nil || math.Abs(*b.Reduction-0.9) > 1e-12 || b.IterationsLeft == nil || *b.IterationsLeft != 76 ||
+		math.Abs(*b.SecondsLeft-0.76) > 1e-9 || math.Abs(*b.RelResidual-math.Pow(0.9, 99)) > 1e-20 {
+		t.Errorf("estimate: reduction %v, left %v it %v s, residual %v", deref(b.Reduction), derefI(b.IterationsLeft), deref(b.SecondsLeft), deref(b.RelResidual))
+	}
+	if a.State != "finished" || a.StateText != "converged" || a.Outcome != "converged" || a.ElapsedSeconds != 2 || a.IterationsLeft != nil {
+		t.Errorf("finished job %+v", a)
+	}
+
+	body, _ = get(t, ts.URL+"/api/jobs/ja", 200)
+	var one Job
+	if err := json.Unmarshal([]byte(body), &one); err != nil || one.ID != "ja" || one.StateText != "converged" {
+		t.Errorf("GET /api/jobs/ja: %v %+v", err, one)
+	}
+	get(t, ts.URL+"/api/jobs/nope", 404)
+	get(t, ts.URL+"/api/jobs/nope/history", 404)
+	get(t, ts.URL+"/api/jobs/nope/chart.svg", 404)
+}
+
+func deref(p *float64) any {
+	if p == nil {
+		return nil
+	}
+	return *p
+}
+
+func derefI(p *int64) any {
+	if p == nil {
+		return nil
+	}
+	return *p
+}
+
+func TestHistoryEndpoint(t *testing.T) {
+	_, ts := fixture(t, Options{})
+	body, _ := get(t, ts.URL+"/api/jobs/jb/history", 200)
+	var h History
+	if err := json.Unmarshal([]byte(body), &h); err != nil {
+		t.Fatal(err)
+	}
+	if h.ID != "jb" || len(h.Series) != 1 || len(h.Series[0].Rows) != 100 {
+		t.Fatalf("history %s", body[:min(len(body), 300)])
+	}
+	r := h.Series[0].Rows[42]
+	if r.Iteration != 42 || r.ElapsedSeconds != 0.42 || *r.RelResidual != math.Pow(0.9, 42) || *r.ResidualNorm != 2*math.Pow(0.9, 42) {
+		t.Errorf("row 42: %+v", r)
+	}
+	// As a history file: what `residua plot` reads.
+	for _, f := range []string{"csv", "jsonl"} {
+		body, _ = get(t, ts.URL+"/api/jobs/jb/history?format="+f, 200)
+		hf, err := history.Parse(strings.NewReader(body), f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(hf.Rows) != 100 || hf.Rows[99].RelResidual != math.Pow(0.9, 99) || hf.Rows[99].Elapsed != 990*time.Millisecond {
+			t.Errorf("%s: %d rows, last %+v", f, len(hf.Rows), hf.Rows[len(hf.Rows)-1])
+		}
+	}
+	get(t, ts.URL+"/api/jobs/jb/history?format=xml", 400)
+	get(t, ts.URL+"/api/jobs/jb/history?rhs=-1", 400)
+	get(t, ts.URL+"/api/jobs/jb/history?rhs=3", 404)
+}
+
+// The chart endpoint serves well-formed SVG (XML 1.0, read by encoding/xml).
+func TestChartEndpoint(t *testing.T) {
+	_, ts := fixture(t, Options{})
+	body, hdr := get(t, ts.URL+"/api/jobs/jb/chart.svg", 200)
+	if hdr.Get("Content-Type") != "image/svg+xml" {
+		t.Errorf("content type %q", hdr.Get("Content-Type"))
+	}
+	d := xml.NewDecoder(strings.NewReader(body))
+	for {
+		if _, err := d.Token(); err == io.EOF {
+			break
+		} else if err != nil {
+			t.Fatalf("not XML: %v", err)
+		}
+	}
+	for _, want := range []string{"heat-sink block · preconditioner none · 99 iterations", "tolerance 1e-08"} {
+		if !strings.Contains(body, want) {
+			t.Errorf("chart lacks %q", want)
+		}
+	}
+}
+
+func TestStaticPage(t *testing.T) {
+	_, ts := fixture(t, Options{})
+	body, hdr := get(t, ts.URL+"/", 200)
+	if !strings.HasPrefix(hdr.Get("Content-Type"), "text/html") || !strings.Contains(body, `<ol id="jobs">`) {
+		t.Errorf("page: %s", hdr.Get("Content-Type"))
+	}
+	body, _ = get(t, ts.URL+"/static/app.js", 200)
+	if !strings.Contains(body, "EventSource") {
+		t.Error("app.js does not use EventSource")
+	}
+	get(t, ts.URL+"/static/style.css", 200)
+	get(t, ts.URL+"/nothing-here", 404)
+	get(t, ts.URL+"/metrics", 404) // no Metrics in the options
+}
+
+// The event stream sends the list at once and again after a change, as
+// text/event-stream events named "jobs".
+func TestEventStream(t *testing.T) {
+	src, ts := fixture(t, Options{})
+	res, err := http.Get(ts.URL + "/api/events")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	if ct := res.Header.Get("Content-Type"); ct != "text/event-stream" {
+		t.Fatalf("content type %q", ct)
+	}
+	rd := bufio.NewReader(res.Body)
+	next := func() JobList {
+		t.Helper()
+		var name, data string
+		for {
+			line, err := rd.ReadString('\n')
+			if err != nil {
+				t.Fatal(err)
+			}
+			line = strings.TrimRight(line, "\n")
+			switch {
+			case strings.HasPrefix(line, "event: "):
+				name = line[len("event: "):]
+			case strings.HasPrefix(line, "data: "):
+				data += line[len("data: "):]
+			case line == "" && data != "":
+				if name != "jobs" {
+					t.Fatalf("event %q", name)
+				}
+				var l JobList
+				if err := json.Unmarshal([]byte(data), &l); err != nil {
+					t.Fatal(err)
+				}
+				return l
+			}
+		}
+	}
+	first := next()
+	if len(first.Jobs) != 2 || first.Jobs[0].Iteration != 99 {
+		t.Fatalf("first event %+v", first)
+	}
+	src.progress("jb", 0, 100, 130, 0.9)
+	for {
+		l := next()
+		if l.Jobs[0].Iteration == 130 && l.Jobs[0].HistoryRows == 131 {
+			if l.Jobs[0].Version <= first.Jobs[0].Version {
+				t.Errorf("version %d after %d", l.Jobs[0].Version, first.Jobs[0].Version)
+			}
+			break
+		}
+	}
+	src.finish("jb", pb.JobState_FINISHED, "iteration-limit", unix(t0.Add(5*time.Second)))
+	for {
+		if l := next(); l.Jobs[0].State == "finished" {
+			if l.Jobs[0].StateText != "stopped: iteration-limit" {
+				t.Errorf("state text %q", l.Jobs[0].StateText)
+			}
+			break
+		}
+	}
+	src.forget("ja")
+	for {
+		if l := next(); len(l.Jobs) == 1 {
+			break
+		}
+	}
+}
+
+// /metrics parses as the Prometheus text format (with the client library's
+// parser) and shows the hooks the service calls.
+func TestMetricsEndpoint(t *testing.T) {
+	m := metrics.New()
+	_, ts := fixture(t, Options{Metrics: m})
+	scrape := func() float64 {
+		body, _ := get(t, ts.URL+"/metrics", 200)
+		p := expfmt.NewTextParser(model.UTF8Validation)
+		fams, err := p.TextToMetricFamilies(strings.NewReader(body))
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, mt := range fams["residua_solves_finished_total"].GetMetric() {
+			if mt.GetLabel()[0].GetValue() == "converged" {
+				return mt.GetCounter().GetValue()
+			}
+		}
+		t.Fatal("no residua_solves_finished_total{outcome=converged}")
+		return 0
+	}
+	before := scrape()
+	m.SolveStarted()
+	m.SolveFinished("converged", time.Second)
+	if after := scrape(); after != before+1 {
+		t.Errorf("finished converged %v → %v", before, after)
+	}
+}
+
+// A long solve's rows are thinned to a bounded number that still spans the
+// whole solve, first row to latest, in order.
+func TestTrackerThinning(t *testing.T) {
+	var tj tracked
+	for k := 0; k < 100000; k++ {
+		tj.add(&pb.Progress{Iteration: int64(k), RelativeResidual: 1 / float64(k+1)})
+	}
+	rows := tj.series[0].all()
+	if len(rows) > maxRows+1 || len(rows) < maxRows/2 || rows[0].Iteration != 0 || rows[len(rows)-1].Iteration != 99999 {
+		t.Fatalf("%d rows from %d to %d", len(rows), rows[0].Iteration, rows[len(rows)-1].Iteration)
+	}
+	for i := 1; i < len(rows); i++ {
+		if rows[i].Iteration <= rows[i-1].Iteration {
+			t.Fatalf("out of order at %d", i)
+		}
+	}
+}
+
+var _ = bytes.NewReader
