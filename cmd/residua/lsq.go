@@ -1,0 +1,190 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"path/filepath"
+
+	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/monitor"
+	"github.com/residua/residua/sparse"
+)
+
+func init() {
+	register(&command{
+		name:    "lsq",
+		summary: "least squares min ‖A·x − b‖ (optionally damped) for a sparse rectangular or square A",
+		run:     runLSQ,
+	})
+}
+
+const lsqAbout = `
+Solves the least-squares problem min ‖A·x − b‖² + damp²·‖x‖² for a sparse A
+of any shape (more rows than columns, or fewer: then the minimum-norm
+solution) with products by A and Aᵀ only, never forming AᵀA: LSQR (Paige and
+Saunders 1982) by default, or CGLS (conjugate gradients on the normal
+equations, Björck 1996 §7.4).
+
+It stops when the system is consistent, ‖r‖ ≤ btol·‖b‖ + atol·‖A‖·‖x‖, or
+when x is a least-squares solution, ‖Aᵀr‖ ≤ atol·‖A‖·‖r‖, with ‖A‖ estimated
+as the iteration goes; the summary says which rule was met. --precond
+colscale scales the columns to unit norm (auto does so when A has at least
+as many rows as columns); a zero column is reported by index.
+
+Right-hand side: -b FILE; else a bundle's own NAME_b.mtx; else b = A·1 (a
+consistent system: x = 1 solves it, and is the unique least-squares
+solution when A has full column rank).
+
+Display, summary, --json, --history, --plot and -o behave as for solve; the
+JSON summary adds residual_norm (‖b − A·x‖) and normal_residual_norm
+(‖Aᵀ(b − A·x) − damp²·x‖).`
+
+func runLSQ(ctx context.Context, e *env, args []string) error {
+	o := &solveOpts{}
+	var damp, atol, btol float64
+	var scaling, method string
+	f := newFlags("lsq", "residua lsq A.mtx [-b b.mtx] [--damp λ] [--atol A] [--btol B] [--precond auto|none|colscale] [flags]", lsqAbout)
+	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
+	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
+	f.Float64Var(&damp, "damp", 0, "damping `λ` ≥ 0: minimise ‖A·x − b‖² + λ²‖x‖²")
+	f.Float64Var(&atol, "atol", 1e-8, "relative error allowed in A (both stopping rules)")
+	f.Float64Var(&btol, "btol", 1e-8, "relative error allowed in b (the consistent-system rule)")
+	f.StringVar(&scaling, "precond", "auto", "column scaling: auto, none or colscale")
+	f.StringVar(&method, "method", "auto", "iteration: auto (LSQR), lsqr or cgls")
+	addOutputFlags(f, o)
+	pos, err := f.parse(e, args)
+	if err == errHelp {
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	if len(pos) != 1 {
+		return usageErrorf("lsq: want one matrix file, got %d arguments (run 'residua lsq --help')", len(pos))
+	}
+	for name, v := range map[string]float64{"damp": damp, "atol": atol, "btol": btol} {
+		if !(v >= 0) || math.IsInf(v, 0) {
+			return usageErrorf("lsq: --%s %v must be zero or positive and finite", name, v)
+		}
+	}
+	if err := checkOutputFlags("lsq", o); err != nil {
+		return err
+	}
+	s := krylov.LSQSettings{Damp: damp, ATol: atol, BTol: btol, MaxIter: o.maxIter, TimeLimit: o.timeLimit}
+	switch scaling {
+	case "auto":
+		s.Scaling = krylov.ScaleAuto
+	case "none":
+		s.Scaling = krylov.ScaleNone
+	case "colscale":
+		s.Scaling = krylov.ScaleColumns
+	default:
+		return usageErrorf("lsq: --precond %q: want auto, none or colscale", scaling)
+	}
+	switch method {
+	case "auto":
+		s.Method = krylov.LSQAuto
+	case "lsqr":
+		s.Method = krylov.LSQR
+	case "cgls":
+		s.Method = krylov.CGLS
+	default:
+		return usageErrorf("lsq: --method %q: want auto, lsqr or cgls", method)
+	}
+	p, err := loadProblem(pos[0], o.b)
+	if err != nil {
+		return err
+	}
+	x0, err := readX0(o.x0, p.a.Cols)
+	if err != nil {
+		return err
+	}
+	s.X0 = x0
+	return solveLSQ(ctx, e, p, s, o)
+}
+
+func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *solveOpts) error {
+	rep := &solveReport{
+		Matrix: p.name, Rows: p.a.Rows, Cols: p.a.Cols, Nonzeros: p.a.NNZ(), RHS: p.rhs,
+		ReadSeconds: seconds(p.read),
+	}
+	// With b = A·1 the system is consistent and x = 1 solves it; it is the
+	// solution LSQR returns only when it is the only one (full column rank,
+	// which needs rows ≥ cols) and there is no damping.
+	ones := p.ones && p.a.Rows >= p.a.Cols && s.Damp == 0
+	if p.ones {
+		rep.RHS = "b = A·1 (no -b given): a consistent system that x = 1 solves"
+		if ones {
+			rep.RHS += "; the unique solution when A has full column rank"
+		} else {
+			rep.RHS += "; not the solution sought here (damped, or fewer rows than columns: the minimum-norm one)"
+		}
+	}
+	rec, finish, err := recorders(e, o, true, monitor.Options{Matrix: filepath.Base(p.name), Preconditioner: s.Scaling.String()})
+	if err != nil {
+		return err
+	}
+	s.Recorder = rec
+	x := make([]float64, p.a.Cols)
+	res, solveErr := krylov.LSQ(ctx, lsqOperator(p.a), p.b, x, s)
+
+	rep.Method = res.Method
+	rep.Preconditioner = res.Scaling
+	rep.Converged = res.Status == krylov.Converged
+	rep.Status = res.Status.String()
+	rep.Iterations = res.Iterations
+	rep.RelativeResidual = num(res.RelResidual)
+	rep.TrueResidualNorm = num(res.ResidualNorm)
+	rep.RHSNorm = num(res.RHSNorm)
+	rep.ResidualNorm = numPtr(res.ResidualNorm)
+	rep.NormalResidualNorm = numPtr(res.NormalResidualNorm)
+	rep.NormEstimate = numPtr(res.ANormEstimate)
+	rep.CondEstimate = num(res.CondEstimate)
+	rep.StoppedBy = res.StoppedBy
+	rep.ZeroColumns = res.ZeroColumns
+	rep.SolveSeconds = seconds(res.Solve)
+	rep.SecondsPerIteration = seconds(res.PerIteration)
+	rep.AbsTol = num(res.Settings.ATol)
+	rep.BTol = numPtr(res.Settings.BTol)
+	rep.Damp = numPtr(res.Settings.Damp)
+	rep.MaxIter, rep.TimeLimitSeconds = res.Settings.MaxIter, seconds(res.Settings.TimeLimit)
+	if ones {
+		rep.ErrorVsOnes = numPtr(maxErrorVsOnes(x))
+	}
+	if solveErr != nil {
+		rep.Error = solveErr.Error()
+	}
+	return finishRun(e, o, p.name, rep, x, finish, solveErr)
+}
+
+// lsqOperator gives the least-squares methods an operator with column
+// norms, which column scaling needs.
+func lsqOperator(a *sparse.CSR) krylov.TransOperator {
+	if op, ok := any(a).(interface {
+		krylov.TransOperator
+		krylov.ColumnNormer
+	}); ok {
+		return op
+	}
+	return columnNormed{a}
+}
+
+// columnNormed adds krylov.ColumnNormer to a CSR matrix.
+type columnNormed struct{ *sparse.CSR }
+
+// ColumnNorms sets dst[j] = ‖A(:, j)‖₂, accumulating the squares of each
+// column's entries in row order.
+func (c columnNormed) ColumnNorms(dst []float64) {
+	if len(dst) != c.Cols {
+		panic(fmt.Sprintf("residua: ColumnNorms: len(dst) = %d, want %d", len(dst), c.Cols))
+	}
+	clear(dst)
+	for k, j := range c.ColIdx {
+		v := c.Val[k]
+		dst[j] += v * v
+	}
+	for j := range dst {
+		dst[j] = math.Sqrt(dst[j])
+	}
+}
