@@ -8,6 +8,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 
 	"gonum.org/v1/plot"
@@ -263,6 +264,7 @@ func build(opt Options, series []Series) (*plot.Plot, error) {
 			p.Legend.Add(fmt.Sprintf("%s: %s", label, plural(last, "iteration")), line)
 		}
 	}
+	p.X.Tick.Marker = iterationTicks{}
 	p.Y.Min, p.Y.Max = yMin, yMax // Add widened them to the raw data
 	p.X.Min = 0
 	p.X.Max = float64(max(maxIter, 1))
@@ -373,4 +375,18 @@ func tickLabel(v float64) string {
 		s = m
 	}
 	return s
+}
+
+// iterationTicks are gonum's default ticks with whole-number labels, since
+// iterations are counts ("250", not "250.00").
+type iterationTicks struct{}
+
+func (iterationTicks) Ticks(min, max float64) []plot.Tick {
+	ticks := plot.DefaultTicks{}.Ticks(min, max)
+	for i := range ticks {
+		if ticks[i].Label != "" {
+			ticks[i].Label = strconv.FormatFloat(math.Round(ticks[i].Value), 'f', -1, 64)
+		}
+	}
+	return ticks
 }

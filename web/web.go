@@ -431,8 +431,11 @@ func (s *Server) chart(w http.ResponseWriter, r *http.Request) {
 			name = j.GetMatrixId()
 		}
 		var buf bytes.Buffer
-		err := chart.SVG(&buf, chart.Options{Matrix: name, Preconditioner: pre, Tolerance: j.GetRtol(),
-			Width: 6.4 * vg.Inch, Height: 3.4 * vg.Inch, MaxPoints: 1200}, ss...)
+		// No title: the job's card already names the matrix and the
+		// preconditioner, and a small picture keeps its text legible when
+		// a phone scales it to the screen.
+		err := chart.SVG(&buf, chart.Options{Title: "-", Matrix: name, Preconditioner: pre, Tolerance: j.GetRtol(),
+			Width: 5.2 * vg.Inch, Height: 2.9 * vg.Inch, MaxPoints: 1200}, ss...)
 		if errors.Is(err, chart.ErrNoData) {
 			http.Error(w, "no progress yet", http.StatusNotFound)
 			return

@@ -13,6 +13,7 @@ const fmtInt = new Intl.NumberFormat("en");
 
 function duration(s) {
   if (s == null || !isFinite(s)) return "—";
+  if (s < 1) return Math.round(s * 1000) + " ms";
   if (s < 10) return s.toFixed(1) + " s";
   if (s < 60) return Math.round(s) + " s";
   if (s < 3600) return Math.floor(s / 60) + " min " + String(Math.round(s % 60)).padStart(2, "0") + " s";
@@ -58,7 +59,13 @@ function fill(li, job) {
   q(".reduction").textContent = job.reduction_per_iteration == null ? "—" : job.reduction_per_iteration.toFixed(4);
   let left = "—";
   if (job.state === "running") {
-    left = job.iterations_left == null ? "no estimate yet" : "≈ " + fmtInt.format(job.iterations_left) + " it · " + duration(job.seconds_left);
+    if (job.iterations_left != null) {
+      left = "≈ " + fmtInt.format(job.iterations_left) + " it · " + duration(job.seconds_left);
+    } else if (job.reduction_per_iteration != null && job.reduction_per_iteration >= 1) {
+      left = "no estimate: not decreasing lately";
+    } else {
+      left = "no estimate yet";
+    }
   } else if (job.state !== "queued") {
     left = "done";
   }

@@ -1,0 +1,187 @@
+package web_test
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"github.com/residua/residua/api"
+	"github.com/residua/residua/client"
+	"github.com/residua/residua/sparse/stencil"
+	"github.com/residua/residua/web"
+)
+
+// chromium is Debian's browser package, which .ci/run installs.
+const chromium = "/usr/bin/chromium"
+
+// TestBrowser opens the page in a real headless browser against the real
+// gRPC service (issue 5, section 5): a slow solve (jump3d on a 60³ grid, no
+// preconditioner, relative tolerance 1e-14) runs while the page is open,
+// and a small solve has already converged. It waits until the running
+// job's chart has been redrawn at least twice, checks the states in words
+// and a non-empty curve, saves screenshots at a phone's width and at a
+// desktop's ($RESIDUA_ARTIFACTS, or the test's temporary folder), then
+// cancels the slow job and checks the page says so.
+func TestBrowser(t *testing.T) {
+	if _, err := os.Stat(chromium); err != nil {
+		if os.Getenv("CI") == "true" {
+			t.Fatalf("%s is missing; CI must install Debian's chromium (apt-get install chromium)", chromium)
+		}
+		t.Skipf("%s is missing: install Debian's chromium (apt-get install chromium) to run the browser test", chromium)
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 55*time.Second)
+	defer cancel()
+
+	// The service, on a loopback port.
+	srv, err := api.NewServer(api.Config{Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), MaxConcurrentSolves: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	lis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	srvCtx, stopSrv := context.WithCancel(context.Background())
+	srvDone := make(chan error, 1)
+	go func() { srvDone <- srv.Serve(srvCtx, lis) }()
+	defer func() {
+		stopSrv()
+		<-srvDone
+	}()
+	cl, err := client.Dial(ctx, lis.Addr().String())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer cl.Close()
+
+	// A small system that converges at once, then the slow one.
+	small := stencil.Poisson2D(24)
+	ms, err := cl.UploadCSR(ctx, small, "poisson2d-24")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := cl.Solve(ctx, client.SolveRequest{MatrixID: ms.GetId(), B: [][]float64{stencil.Ones(small)}, Precond: "jacobi"}, nil); err != nil {
+		t.Fatal(err)
+	}
+	slow := stencil.Jump3D(60, stencil.DefaultContrast)
+	mj, err := cl.UploadCSR(ctx, slow, "jump3d-60")
+	if err != nil {
+		t.Fatal(err)
+	}
+	out, err := cl.Solve(ctx, client.SolveRequest{MatrixID: mj.GetId(), B: [][]float64{stencil.Ones(slow)}, Precond: "none",
+		RTol: 1e-14, Detach: true, ProgressInterval: 100 * time.Millisecond}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	slowID := out.JobID
+	defer cl.Cancel(context.Background(), slowID)
+
+	page := web.New(web.FromRegistry(srv.Registry()), web.Options{})
+	defer page.Close()
+	hs := httptest.NewServer(page)
+	defer hs.Close()
+
+	alloc, stopAlloc := chromedp.NewExecAllocator(ctx,
+		chromedp.ExecPath(chromium),
+		chromedp.Headless,
+		chromedp.NoSandbox,
+		chromedp.DisableGPU,
+		chromedp.NoFirstRun,
+		chromedp.Flag("disable-background-networking", true),
+		chromedp.Flag("disable-component-update", true),
+		chromedp.Flag("disable-sync", true),
+		chromedp.Flag("no-default-browser-check", true),
+		chromedp.UserDataDir(t.TempDir()),
+		chromedp.WindowSize(412, 915), // a phone's width, in CSS pixels
+	)
+	defer stopAlloc()
+	bctx, stopBrowser := chromedp.NewContext(alloc, chromedp.WithLogf(t.Logf))
+	defer stopBrowser()
+
+	card := fmt.Sprintf("document.getElementById('job-%s')", slowID)
+	if err := chromedp.Do(bctx, chromedp.Navigate(hs.URL)); err != nil {
+		t.Fatal(err)
+	}
+	// The chart counts its redraws in data-updates: the first drawing and
+	// at least two updates.
+	if _, err := chromedp.Run(bctx, chromedp.Poll[bool](card+` && Number(`+card+`.dataset.updates) >= 3`,
+		chromedp.WithPollingInterval(100*time.Millisecond), chromedp.WithPollingTimeout(25*time.Second))); err != nil {
+		t.Fatalf("the running job's chart was not redrawn twice: %v", err)
+	}
+	type cardState struct {
+		State, Iteration, Residual string
+		Paths, PathLength          int
+	}
+	read := func(id string) cardState {
+		t.Helper()
+		c, err := chromedp.Run(bctx, chromedp.Evaluate[cardState](fmt.Sprintf(`(() => {
+			const li = document.getElementById('job-%s');
+			const paths = [...li.querySelectorAll('.chart svg path')];
+			return {
+				State: li.querySelector('.state').textContent,
+				Iteration: li.querySelector('.iteration').textContent,
+				Residual: li.querySelector('.residual').textContent,
+				Paths: paths.length,
+				PathLength: Math.max(0, ...paths.map(p => (p.getAttribute('d') || '').length)),
+			};
+		})()`, id)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		return c
+	}
+	running := read(slowID)
+	// A curve of hundreds of points has a path far longer than the axes'
+	// and ticks' short ones.
+	if running.State != "running" || running.Paths == 0 || running.PathLength < 500 || running.Iteration == "—" {
+		t.Errorf("running job's card: %+v", running)
+	}
+	jobs := srv.Registry().Jobs()
+	smallID := jobs[len(jobs)-1].GetId()
+	if done := read(smallID); done.State != "converged" || done.Paths == 0 {
+		t.Errorf("converged job's card: %+v", done)
+	}
+
+	dir := os.Getenv("RESIDUA_ARTIFACTS")
+	if dir == "" {
+		dir = t.TempDir()
+	} else if err := os.MkdirAll(dir, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	shot := func(name string) {
+		t.Helper()
+		png, err := chromedp.Run(bctx, chromedp.FullScreenshot(100))
+		if err != nil {
+			t.Fatal(err)
+		}
+		path := filepath.Join(dir, name)
+		if err := os.WriteFile(path, png, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		t.Logf("screenshot: %s", path)
+	}
+	shot("watch-page-phone.png")
+	if err := chromedp.Do(bctx, chromedp.EmulateViewport(1200, 900)); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(600 * time.Millisecond) // one push interval, for a fresh frame
+	shot("watch-page-desktop.png")
+
+	// Cancelling the slow job: the page shows the final state.
+	if _, err := cl.Cancel(ctx, slowID); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := chromedp.Run(bctx, chromedp.Poll[bool](card+`.querySelector('.state').textContent === 'cancelled'`,
+		chromedp.WithPollingInterval(100*time.Millisecond), chromedp.WithPollingTimeout(10*time.Second))); err != nil {
+		t.Fatalf("the cancelled job's card never said so: %+v (%v)", read(slowID), err)
+	}
+}
