@@ -146,17 +146,6 @@ func dense(a *sparse.CSR) *mat.Dense {
 	return d
 }
 
-// mulVec is the plain reference product y = A·x.
-func mulVec(a *sparse.CSR, y, x []float64) {
-	for i := 0; i < a.Rows; i++ {
-		s := 0.0
-		for p := a.RowPtr[i]; p < a.RowPtr[i+1]; p++ {
-			s += a.Val[p] * x[a.ColIdx[p]]
-		}
-		y[i] = s
-	}
-}
-
 // cholLower returns IC(0)'s Cholesky-like factor (I + L)·D^½ as a dense
 // lower triangular matrix.
 func (m *IC0) cholLower() *mat.TriDense {

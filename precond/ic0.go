@@ -65,9 +65,8 @@ type IC0 struct {
 	// dInv is D⁻¹, inverted once at set-up.
 	dInv []float64
 
-	shift    float64
-	tries    int
-	minPivot float64
+	shift float64
+	tries int
 }
 
 // NewIC0 computes the IC(0) factor of the symmetric matrix a, reading only

@@ -63,10 +63,24 @@ func readReference(t *testing.T) map[string]refCount {
 	return out
 }
 
+// loaded keeps the matrices read by earlier tests of this binary; reading
+// is most of the tests' time under the race detector.
+var loaded = map[string]*sparse.CSR{}
+
 // spdMatrices reads every matrix of kind spd in the shared manifest.
 func spdMatrices(t *testing.T) ([]shared.Entry, []*sparse.CSR) {
 	t.Helper()
 	dir := shared.Matrices(t)
+	if len(loaded) > 0 {
+		var es []shared.Entry
+		var as []*sparse.CSR
+		for _, e := range shared.Manifest(t) {
+			if a, ok := loaded[e.File]; ok {
+				es, as = append(es, e), append(as, a)
+			}
+		}
+		return es, as
+	}
 	var es []shared.Entry
 	var as []*sparse.CSR
 	for _, e := range shared.Manifest(t) {
@@ -78,6 +92,7 @@ func spdMatrices(t *testing.T) ([]shared.Entry, []*sparse.CSR) {
 			t.Fatalf("%s: %v", e.File, err)
 		}
 		es, as = append(es, e), append(as, a)
+		loaded[e.File] = a
 	}
 	return es, as
 }
@@ -107,9 +122,12 @@ func solve(t *testing.T, a *sparse.CSR, b []float64, kind precond.Kind) (krylov.
 	return res, c
 }
 
-// slow lists the shared matrices whose solves take seconds (thousands of
-// iterations on ~10⁴ unknowns); they are skipped under -short and -race.
-var slow = map[string]bool{"bcsstk25": true, "plat1919": true, "bcsstk28": true, "bcsstk18": true, "bcsstk13": true}
+// slow lists the shared matrices whose two solves take over 0.1 s (over a
+// second under the race detector); they are skipped under -short and -race.
+var slow = map[string]bool{
+	"bcsstk25": true, "plat1919": true, "bcsstk28": true, "bcsstk18": true, "bcsstk13": true,
+	"bcsstk15": true, "bcsstk16": true,
+}
 
 func TestIC0FewerIterationsThanJacobi(t *testing.T) {
 	ref := readReference(t)
@@ -136,11 +154,12 @@ func TestIC0FewerIterationsThanJacobi(t *testing.T) {
 			// iterations than its count (reference: cg-scipy.tsv) and than
 			// our own Jacobi-PCG. Where it did not (nos7, plat362,
 			// plat1919: the reference says rounding decides), IC(0) must
-			// still converge, checked above.
-			if rj.converged && ic.Iterations >= rj.iterations {
+			// still converge, checked above. A diagonal matrix (bcsstm05)
+			// takes one iteration with either, so there "fewer" is "as few".
+			if rj.converged && ic.Iterations >= rj.iterations && rj.iterations > 1 {
 				t.Errorf("ic0 took %d iterations, SciPy's Jacobi-PCG %d", ic.Iterations, rj.iterations)
 			}
-			if jac.Status == krylov.Converged && ic.Iterations >= jac.Iterations {
+			if jac.Status == krylov.Converged && ic.Iterations >= jac.Iterations && jac.Iterations > 1 {
 				t.Errorf("ic0 took %d iterations, our Jacobi-PCG %d", ic.Iterations, jac.Iterations)
 			}
 			t.Logf("ic0 %d iterations (shift %g, %d tries), jacobi %d (SciPy %d)", ic.Iterations, c.Shift, c.Tries, jac.Iterations, rj.iterations)
@@ -229,5 +248,31 @@ func TestSharedIndefinite(t *testing.T) {
 				t.Logf("ic0 shift %g after %d tries; CG: %v", ic.Shift(), ic.Tries(), err)
 			}
 		})
+	}
+}
+
+func TestDeterministicSolve(t *testing.T) {
+	// The same matrix and right-hand side, set up twice and solved twice,
+	// give bitwise the same solution (the factorization sums in a fixed
+	// order, the solves are sequential, and krylov sums in fixed blocks).
+	_, as := spdMatrices(t)
+	for _, a := range as[:8] {
+		b := rhsOnes(a)
+		var xs [2][]float64
+		for k := range xs {
+			c, err := precond.New(a, precond.KindIC0)
+			if err != nil {
+				t.Fatal(err)
+			}
+			xs[k] = make([]float64, a.Rows)
+			if _, err := krylov.CG(context.Background(), a, b, xs[k], c.M, krylov.Settings{}); err != nil {
+				t.Fatal(err)
+			}
+		}
+		for i := range xs[0] {
+			if math.Float64bits(xs[0][i]) != math.Float64bits(xs[1][i]) {
+				t.Fatalf("x[%d] differs between runs: %v vs %v", i, xs[0][i], xs[1][i])
+			}
+		}
 	}
 }
