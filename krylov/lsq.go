@@ -86,7 +86,12 @@ type LSQResult struct {
 	// (RuleResidual or RuleNormalResidual), "" otherwise.
 	StoppedBy string
 	// Iterations counts iterations; each one applies A once and Aᵀ once.
+	// Products counts every product with A or with Aᵀ: two per iteration,
+	// plus the set-up (Aᵀ·r0, and A·x0 when X0 is given) and two for each
+	// true-state recomputation (checks before convergence is declared, and
+	// the final one that fills ResidualNorm and NormalResidualNorm).
 	Iterations int
+	Products   int
 	// ResidualNorm is ‖b − A·x‖₂ and NormalResidualNorm is ‖Aᵀ·r − λ²x‖₂
 	// (the gradient of the damped objective up to a factor −2, zero at the
 	// minimiser), both recomputed from the returned x at the end. XNorm is
@@ -132,10 +137,12 @@ type LSQResult struct {
 // appeared (status Breakdown, a *BreakdownError wrapping ErrNotFinite), or
 // when ScaleColumns was asked of an operator without ColumnNorms
 // (ErrNoColumnNorms; nothing is solved and x is untouched). Not converging is
-// a Status, not an error. Otherwise x holds the last iterate.
+// a Status, not an error. Otherwise x holds the last iterate. The Recorder,
+// if any, gets Finish once on every path that returns.
 //
-// LSQ panics if len(b) != m, len(x) != n, s.X0 != nil and len(s.X0) != n,
-// or s.Damp, s.ATol, s.BTol or s.MaxIter is negative or NaN.
+// LSQ panics if len(b) != m, len(x) != n, x and b are the same slice,
+// s.X0 != nil and len(s.X0) != n, s.Damp, s.ATol, s.BTol or s.MaxIter is
+// negative or NaN, or s.Method or s.Scaling is not one of the constants.
 func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (LSQResult, error) {
 	start := time.Now()
 	m, n := a.Dims()
@@ -144,6 +151,9 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 	}
 	if len(x) != n {
 		panic(fmt.Sprintf("krylov: len(x) = %d, want %d columns", len(x), n))
+	}
+	if m > 0 && n > 0 && &b[0] == &x[0] {
+		panic("krylov: x and b are the same slice")
 	}
 	if s.X0 != nil && len(s.X0) != n {
 		panic(fmt.Sprintf("krylov: len(X0) = %d, want %d columns", len(s.X0), n))
@@ -205,7 +215,12 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 		}
 	case ScaleColumns:
 		if !hasNorms {
-			return LSQResult{Settings: s}, ErrNoColumnNorms
+			res.Settings, res.Method, res.Scaling = s, s.Method.String(), s.Scaling.String()
+			res.Solve = time.Since(start)
+			if rec := s.Recorder; rec != nil {
+				rec.Finish(p.cgResult(res))
+			}
+			return res, ErrNoColumnNorms
 		}
 	}
 	if s.Scaling == ScaleColumns {
@@ -246,10 +261,23 @@ type lsqProblem struct {
 	bnorm float64
 	s     LSQSettings
 
+	products int // products with A or Aᵀ so far
+
 	// Stagnation bookkeeping for the true check (see verify).
 	checks    int     // failed true checks in a row without progress
 	lastCheck float64 // true scaled normal residual at the last failed check
 	nextCheck int     // first iteration at which another check may run
+}
+
+// mulVec and mulVecTrans apply A and Aᵀ, counting the products.
+func (p *lsqProblem) mulVec(dst, x []float64) {
+	p.a.MulVec(dst, x)
+	p.products++
+}
+
+func (p *lsqProblem) mulVecTrans(dst, x []float64) {
+	p.a.MulVecTrans(dst, x)
+	p.products++
 }
 
 // interrupted reports, by a nonzero status, whether the context is done or
@@ -328,14 +356,14 @@ type trueState struct {
 // one with Aᵀ, which are not counted as iterations.
 func (p *lsqProblem) recompute(tm, tn []float64) trueState {
 	x, b, d, lam := p.x, p.b, p.d, p.damp
-	p.a.MulVec(tm, x)
+	p.mulVec(tm, x)
 	var rr float64
 	for i, bi := range b {
 		r := bi - tm[i]
 		tm[i] = r
 		rr += r * r
 	}
-	p.a.MulVecTrans(tn, tm)
+	p.mulVecTrans(tn, tm)
 	lam2 := lam * lam
 	var gg, dgg, xx, zz float64
 	for j, xj := range x {
@@ -402,6 +430,7 @@ func (p *lsqProblem) verify(it int, anorm float64, floor bool, tm, tn []float64)
 // solve and tells the recorder.
 func (p *lsqProblem) finish(res LSQResult, t trueState, it int, anorm, cond float64) LSQResult {
 	res.Iterations = it
+	res.Products = p.products
 	res.ResidualNorm = t.rnorm
 	res.NormalResidualNorm = t.gnorm
 	res.XNorm = t.xnorm
@@ -423,15 +452,17 @@ func (p *lsqProblem) finish(res LSQResult, t trueState, it int, anorm, cond floa
 }
 
 // cgResult maps a least-squares result onto the Result that
-// Recorder.Finish takes: the fields with the same meaning are copied
-// (TrueResidualNorm and ResidualNorm both get ‖b − A·x‖, Preconditioner the
-// scaling, Cond the condition estimate of Ā — not of AᵀA — and
-// LambdaMin/LambdaMax stay zero).
+// Recorder.Finish takes. The fields with the same meaning are copied:
+// TrueResidualNorm and ResidualNorm both get ‖b − A·x‖, Preconditioner the
+// scaling, Products counts the products with Aᵀ too, and Settings gets
+// BTol as RelTol. LambdaMin, LambdaMax and Cond, which mean eigenvalues of
+// the (preconditioned) matrix there, stay zero: the least-squares condition
+// estimate is of Ā and lives in LSQResult.
 func (p *lsqProblem) cgResult(r LSQResult) *Result {
 	return &Result{
 		Method: r.Method, Preconditioner: r.Scaling, Status: r.Status,
-		Iterations: r.Iterations, ResidualNorm: r.ResidualNorm, TrueResidualNorm: r.ResidualNorm,
-		RHSNorm: r.RHSNorm, RelResidual: r.RelResidual, Cond: r.CondEstimate,
+		Iterations: r.Iterations, Products: r.Products, ResidualNorm: r.ResidualNorm, TrueResidualNorm: r.ResidualNorm,
+		RHSNorm: r.RHSNorm, RelResidual: r.RelResidual,
 		Solve: r.Solve, PerIteration: r.PerIteration,
 		Settings: Settings{
 			RelTol: r.Settings.BTol, MaxIter: r.Settings.MaxIter, TimeLimit: r.Settings.TimeLimit,

@@ -25,7 +25,7 @@ import "math"
 // are ĀᵀĀ-conjugate, so ‖Ā⁺‖_F² is estimated by Σ ‖p_k‖²/‖Ā·p_k‖².
 func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	m, n := p.m, p.n
-	a, b, x, d := p.a, p.b, p.x, p.d
+	b, x, d := p.b, p.x, p.d
 	lam := p.damp
 	lam2 := lam * lam
 	done := p.ctx.Done()
@@ -40,7 +40,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	p.bnorm = math.Sqrt(lsqNorm2(b))
 	var xx, zz float64
 	if p.x0 != nil {
-		a.MulVec(tm, p.x0)
+		p.mulVec(tm, p.x0)
 		for i, bi := range b {
 			r[i] = bi - tm[i]
 		}
@@ -60,7 +60,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	if rr+lam2*xx == 0 {
 		return p.endAtStart(res, tm, tn)
 	}
-	a.MulVecTrans(tn, r)
+	p.mulVecTrans(tn, r)
 	var gamma, gg float64
 	for j, xj := range x {
 		g := tn[j] - lam2*xj
@@ -96,7 +96,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 			tt += tj * tj
 		}
 		// q = A·t; δ = ‖Ā·p‖² = ‖q‖² + λ²‖t‖².
-		a.MulVec(tm, tn)
+		p.mulVec(tm, tn)
 		delta := lsqNorm2(tm) + lam2*tt
 		if !lsqFinite(delta) {
 			return p.breakdown(res, it, "‖Ā·p‖²", delta, tm, tn, anorm, cond)
@@ -113,7 +113,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 				rr += ri * ri
 			}
 			// z += α·p, x = D·z, s = D·(Aᵀr − λ²x).
-			a.MulVecTrans(tn, r)
+			p.mulVecTrans(tn, r)
 			var ss float64
 			xx, zz, gg = 0, 0, 0
 			for j, tj := range tn {

@@ -547,6 +547,11 @@ func TestLSQHistory(t *testing.T) {
 					if len(rec.rows) != k+1 || len(rec.finished) != 1 {
 						t.Fatalf("k=%d: %d rows, %d finishes", k, len(rec.rows), len(rec.finished))
 					}
+					// Two per iteration, Aᵀ·r0 (and A·x0), two for the
+					// final true state.
+					if want := 2*k + 1 + 2 + map[bool]int{true: 1}[c.s.X0 != nil]; res.Products != want || rec.finished[0].Products != want {
+						t.Errorf("k=%d: %d products (Finish: %d), want %d", k, res.Products, rec.finished[0].Products, want)
+					}
 					for i, p := range rec.rows {
 						if p.Iteration != i {
 							t.Fatalf("row %d has iteration %d", i, p.Iteration)
@@ -696,7 +701,7 @@ func TestLSQBreakdown(t *testing.T) {
 // TestLSQPanics: wrong lengths and invalid settings are programmer mistakes.
 func TestLSQPanics(t *testing.T) {
 	a, b := randProblem(71, 10, 4, 1)
-	op := denseOp{a}
+	a4, sq := randProblem(72, 4, 4, 1)
 	cases := []struct {
 		name string
 		b, x []float64
@@ -710,6 +715,7 @@ func TestLSQPanics(t *testing.T) {
 		{"negative MaxIter", b, make([]float64, 4), LSQSettings{MaxIter: -1}},
 		{"unknown method", b, make([]float64, 4), LSQSettings{Method: 9}},
 		{"unknown scaling", b, make([]float64, 4), LSQSettings{Scaling: 9}},
+		{"x is b", sq[:4], sq[:4], LSQSettings{}},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -719,6 +725,10 @@ func TestLSQPanics(t *testing.T) {
 					t.Errorf("panic %q, want one prefixed \"krylov: \"", msg)
 				}
 			}()
+			var op TransOperator = denseOp{a}
+			if len(c.b) == 4 {
+				op = denseOp{a4}
+			}
 			LSQ(context.Background(), op, c.b, c.x, c.s)
 		})
 	}

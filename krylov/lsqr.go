@@ -20,7 +20,7 @@ import "math"
 // n-vectors, and it allocates nothing.
 func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 	m, n := p.m, p.n
-	a, b, x, d := p.a, p.b, p.x, p.d
+	b, x, d := p.b, p.x, p.d
 	lam := p.damp
 	damped := lam != 0
 	done := p.ctx.Done()
@@ -39,7 +39,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 	// Iteration 0: r0 = b − A·x0 and β1·u1 = r̄0.
 	p.bnorm = math.Sqrt(lsqNorm2(b))
 	if p.x0 != nil {
-		a.MulVec(tm, p.x0)
+		p.mulVec(tm, p.x0)
 		for i, bi := range b {
 			u[i] = bi - tm[i]
 		}
@@ -72,7 +72,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 	su := 1 / beta
 
 	// α1·v1 = Āᵀu1 = D·(Aᵀu + λu2)/β1, kept as v̂ = α1·D⁻¹v1.
-	a.MulVecTrans(tn, u)
+	p.mulVecTrans(tn, u)
 	var a2, g2 float64
 	for j := range vh {
 		e := tn[j]
@@ -118,7 +118,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 		}
 		// β_{i+1}·u_{i+1} = Ā·v_i − α_i·u_i (PS 1982, eq. (3.2)). The lower
 		// block was updated at the end of the previous iteration.
-		a.MulVec(tm, tn)
+		p.mulVec(tm, tn)
 		f := alpha * su
 		var s1 float64
 		for i, ti := range tm {
@@ -139,7 +139,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 		a2, g2 = 0, 0
 		if beta > 0 {
 			su = 1 / beta
-			a.MulVecTrans(tn, u)
+			p.mulVecTrans(tn, u)
 			f := beta * sv
 			for j := range vh {
 				e := tn[j]
