@@ -40,6 +40,171 @@ type dataParser struct {
 	hd *header
 }
 
+// add records a coordinate entry (1-based indices, already checked against
+// the size line) of line; it returns false if the entry is a defect.
+func (c *chunk) add(hd *header, line, r, col int, v float64) bool {
+	if hd.object == objVector {
+		c.t.I = append(c.t.I, int32(r-1))
+		c.t.V = append(c.t.V, v)
+		c.entries++
+		return true
+	}
+	if hd.sym != sparse.General {
+		switch {
+		case r > col:
+			if c.lowerLine == 0 {
+				c.lowerLine, c.lowerRC = line, [2]int{r, col}
+			}
+		case r < col:
+			if c.upperLine == 0 {
+				c.upperLine, c.upperRC = line, [2]int{r, col}
+			}
+		default:
+			if hd.sym == sparse.SkewSymmetric && v != 0 {
+				c.fail(line, 1, ErrSkewDiagonal, "expected no diagonal entry (the diagonal of a skew-symmetric matrix is zero), found a(%d,%d) = %s", r, col, strconv.FormatFloat(v, 'g', -1, 64))
+				return false
+			}
+		}
+	}
+	c.t.I = append(c.t.I, int32(r-1))
+	c.t.J = append(c.t.J, int32(col-1))
+	c.t.V = append(c.t.V, v)
+	c.entries++
+	return true
+}
+
+// fastEntry parses a coordinate matrix line of the common form: unsigned
+// row and column, single spaces, a plain decimal value (or none for
+// pattern), then '\n', "\r\n" or the end of b. It returns ok = false for
+// anything else, including indices out of range and values that the fast
+// path of parseReal would not convert exactly; the caller then parses the
+// line with the general code, which gives the same value or the error.
+func fastEntry(hd *header, b []byte, q int) (r, c int, v float64, next int, ok bool) {
+	n := len(b)
+	s := q
+	for q < n {
+		d := b[q] - '0'
+		if d > 9 {
+			break
+		}
+		r = r*10 + int(d)
+		q++
+	}
+	if q == s || q-s > 10 || q == n || b[q] != ' ' {
+		return
+	}
+	q++
+	s = q
+	for q < n {
+		d := b[q] - '0'
+		if d > 9 {
+			break
+		}
+		c = c*10 + int(d)
+		q++
+	}
+	if q == s || q-s > 10 || r < 1 || r > hd.rows || c < 1 || c > hd.cols {
+		return
+	}
+	if hd.field == fieldPattern {
+		v = 1
+	} else {
+		if q == n || b[q] != ' ' {
+			return
+		}
+		q++
+		neg := false
+		if q < n && (b[q] == '-' || b[q] == '+') {
+			neg = b[q] == '-'
+			q++
+		}
+		var man uint64
+		s = q
+		for q < n {
+			d := b[q] - '0'
+			if d > 9 {
+				break
+			}
+			man = man*10 + uint64(d)
+			q++
+		}
+		digits := q - s
+		exp := 0
+		if hd.field == fieldReal {
+			if q < n && b[q] == '.' {
+				q++
+				s2 := q
+				for q < n {
+					d := b[q] - '0'
+					if d > 9 {
+						break
+					}
+					man = man*10 + uint64(d)
+					q++
+				}
+				digits += q - s2
+				exp = -(q - s2)
+			}
+			if q < n && b[q]|0x20 == 'e' {
+				q++
+				eneg := false
+				if q < n && (b[q] == '-' || b[q] == '+') {
+					eneg = b[q] == '-'
+					q++
+				}
+				s2 := q
+				e := 0
+				for q < n {
+					d := b[q] - '0'
+					if d > 9 {
+						break
+					}
+					e = e*10 + int(d)
+					q++
+				}
+				if q == s2 || q-s2 > 3 {
+					return
+				}
+				if eneg {
+					e = -e
+				}
+				exp += e
+			}
+		}
+		// 19 digits cannot overflow the uint64 (10^19 < 2^64).
+		if digits == 0 || digits > 19 {
+			return
+		}
+		switch {
+		case man == 0:
+			v = 0
+		case man < 1<<53 && exp >= -22 && exp <= 22:
+			v = float64(man)
+			if exp >= 0 {
+				v *= pow10[exp]
+			} else {
+				v /= pow10[-exp]
+			}
+		default:
+			return
+		}
+		if neg {
+			v = -v
+		}
+	}
+	switch {
+	case q == n:
+		next = n
+	case b[q] == '\n':
+		next = q + 1
+	case b[q] == '\r' && q+1 < n && b[q+1] == '\n':
+		next = q + 2
+	default:
+		return
+	}
+	return r, c, v, next, true
+}
+
 func (c *chunk) fail(line, col int, base error, format string, args ...any) {
 	c.err = reason(base, format, args...)
 	c.errLine, c.errCol = line, col
@@ -78,8 +243,21 @@ func (p *dataParser) parse(c *chunk) {
 	}
 	line := 0
 	pos := 0
+	fast := !hd.array && hd.object == objMatrix
 	for pos < len(b) {
 		line++
+		if fast {
+			// Most lines are "row col value" with single spaces; fastEntry
+			// takes them, and hands anything else to the general code below,
+			// which also words the errors.
+			if r, col, v, next, ok := fastEntry(hd, b, pos); ok {
+				if !c.add(hd, line, r, col, v) {
+					return
+				}
+				pos = next
+				continue
+			}
+		}
 		end := bytes.IndexByte(b[pos:], '\n')
 		if end < 0 {
 			end = len(b)
@@ -151,36 +329,14 @@ func (p *dataParser) parse(c *chunk) {
 		if hd.field == fieldPattern {
 			v = 1
 		}
-		switch {
-		case hd.array:
+		if hd.array {
 			c.vals = append(c.vals, v)
-		case hd.object == objVector:
-			c.t.I = append(c.t.I, int32(idx[0]-1))
-			c.t.V = append(c.t.V, v)
-		default:
-			r, col := idx[0], idx[1]
-			if hd.sym != sparse.General {
-				switch {
-				case r > col:
-					if c.lowerLine == 0 {
-						c.lowerLine, c.lowerRC = line, [2]int{r, col}
-					}
-				case r < col:
-					if c.upperLine == 0 {
-						c.upperLine, c.upperRC = line, [2]int{r, col}
-					}
-				default:
-					if hd.sym == sparse.SkewSymmetric && v != 0 {
-						c.fail(line, 1, ErrSkewDiagonal, "expected no diagonal entry (the diagonal of a skew-symmetric matrix is zero), found a(%d,%d) = %s", r, col, strconv.FormatFloat(v, 'g', -1, 64))
-						return
-					}
-				}
-			}
-			c.t.I = append(c.t.I, int32(r-1))
-			c.t.J = append(c.t.J, int32(col-1))
-			c.t.V = append(c.t.V, v)
+			c.entries++
+			continue
 		}
-		c.entries++
+		if !c.add(hd, line, idx[0], idx[1], v) {
+			return
+		}
 	}
 	c.lines = line
 }

@@ -121,11 +121,16 @@ func TestParseRealMatchesStrconv(t *testing.T) {
 	fixed := []string{"0", "-0", "+0", "0.0", "1", "-1", "1.5", ".5", "5.", "1e0", "1E+22", "1e23", "9007199254740993",
 		"123456789012345678901234567890", "0.1", "0.30000000000000004", "2.2250738585072014e-308",
 		"4.9e-324", "1e-400", "1.7976931348623157e308", "0.000001", "123.456e-5", "-7.0000000000000000001"}
+	hd := &header{rows: 1, cols: 1, field: fieldReal}
 	check := func(s string) {
 		want, werr := parseFloatStd(s)
 		got, gerr := parseReal([]byte(s))
 		if (werr != nil) != (gerr != nil) || math.Float64bits(got) != math.Float64bits(want) {
 			t.Fatalf("parseReal(%q) = %v (%v), strconv says %v (%v)", s, got, gerr, want, werr)
+		}
+		// The line fast path either declines or agrees.
+		if _, _, v, _, ok := fastEntry(hd, []byte("1 1 "+s+"\n"), 0); ok && (werr != nil || math.Float64bits(v) != math.Float64bits(want)) {
+			t.Fatalf("fastEntry of %q = %v, strconv says %v (%v)", s, v, want, werr)
 		}
 	}
 	for _, s := range fixed {

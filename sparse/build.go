@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"runtime"
 	"sort"
+	"sync"
 )
 
 // Symmetry says how a list of entries relates to the full matrix it
@@ -125,36 +126,31 @@ func FromTripletBlocks(rows, cols int, blocks []Triplets, opt BuildOptions) (*CS
 		return nil, stats, fmt.Errorf("sparse: %v matrix of %d×%d: %w", sym, rows, cols, ErrNotSquare)
 	}
 
-	// First pass: check the triplets and count the entries of each row of the
-	// full matrix into rowPtr[r+1].
-	rowPtr := make([]int, rows+1)
+	// Check the triplets, in order, so that an error names the first bad one.
 	lowerAt, upperAt := -1, -1 // first strictly lower and strictly upper triplet
 	var lowerRC, upperRC [2]int32
-	base := 0 // index of the block's first triplet among all triplets
+	total := 0 // triplets before the current block, then in all
 	for _, t := range blocks {
-		for k := range t.I {
-			r, c := t.I[k], t.J[k]
+		for k, r := range t.I {
+			c := t.J[k]
 			if r < 0 || int(r) >= rows || c < 0 || int(c) >= cols {
-				return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) outside %d×%d: %w", base+k, r, c, rows, cols, ErrIndexRange)
+				return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) outside %d×%d: %w", total+k, r, c, rows, cols, ErrIndexRange)
 			}
-			rowPtr[r+1]++
 			if sym == General {
 				continue
 			}
 			switch {
 			case r > c:
 				if lowerAt < 0 {
-					lowerAt, lowerRC = base+k, [2]int32{r, c}
+					lowerAt, lowerRC = total+k, [2]int32{r, c}
 				}
-				rowPtr[c+1]++
 			case r < c:
 				if upperAt < 0 {
-					upperAt, upperRC = base+k, [2]int32{r, c}
+					upperAt, upperRC = total+k, [2]int32{r, c}
 				}
-				rowPtr[c+1]++
 			default:
 				if sym == SkewSymmetric && t.V[k] != 0 {
-					return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) has value %g: %w", base+k, r, c, t.V[k], ErrSkewDiagonal)
+					return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) has value %g: %w", total+k, r, c, t.V[k], ErrSkewDiagonal)
 				}
 			}
 			if lowerAt >= 0 && upperAt >= 0 {
@@ -162,109 +158,201 @@ func FromTripletBlocks(rows, cols int, blocks []Triplets, opt BuildOptions) (*CS
 					lowerAt, lowerRC[0], lowerRC[1], upperAt, upperRC[0], upperRC[1], ErrBothTriangles)
 			}
 		}
-		base += len(t.I)
+		total += len(t.I)
 	}
+
+	// The passes below run in parallel over contiguous ranges of rows: every
+	// worker reads all triplets and handles those that land in its rows, so
+	// no two workers write the same place and the order of the entries
+	// within a row (hence the order in which duplicates are summed) is the
+	// order given, whatever the number of workers.
+	w := 1
+	if total >= parallelMin {
+		w = min(runtime.GOMAXPROCS(0), total/parallelMin, max(rows, 1))
+	}
+	first := make([]int, w+1) // worker k owns rows first[k] to first[k+1]-1
+	for k := range first {
+		first[k] = int(int64(rows) * int64(k) / int64(w))
+	}
+	mirror := sym != General
+
+	// Count the entries of each row of the full matrix into rowPtr[r+1].
+	rowPtr := make([]int, rows+1)
+	parallel(w, func(k int) {
+		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
+		for _, t := range blocks {
+			for q, r := range t.I {
+				if uint32(r-lo) < n {
+					rowPtr[r+1]++
+				}
+				if c := t.J[q]; mirror && r != c && uint32(c-lo) < n {
+					rowPtr[c+1]++
+				}
+			}
+		}
+	})
 	for r := 0; r < rows; r++ {
 		rowPtr[r+1] += rowPtr[r]
 	}
 	nnz := rowPtr[rows]
 
-	// Scatter in the order given, so that duplicates are summed in that order
-	// and the result depends on nothing else. The values go first and each
-	// block's values are released as soon as they are placed; the column
-	// indices follow in a second sweep over the same positions. Holding the
-	// triplets (16 bytes each) and the whole result (12 bytes per entry) at
-	// once is what this avoids: a large symmetric file would otherwise need
-	// about 1.7 times the memory of its matrix.
+	// Scatter the values, then the column indices, each in one sweep.
+	// Holding the triplets (16 bytes each) and the whole result (12 bytes
+	// per entry) at once is what this avoids: between the sweeps the
+	// triplets' values are released, so that a large symmetric file needs
+	// about 1.4 rather than 1.7 times the memory of its matrix.
 	//
 	// rowPtr[r] serves as row r's insertion point and ends at row r+1's start;
 	// shiftRowPtr moves it back.
 	val := make([]float64, nnz)
-	released := 0
-	for b := range blocks {
-		t := &blocks[b]
-		for k, r := range t.I {
-			c, x := t.J[k], t.V[k]
-			val[rowPtr[r]] = x
-			rowPtr[r]++
-			if sym != General && r != c {
-				if sym == SkewSymmetric {
-					x = -x
+	skew := sym == SkewSymmetric
+	parallel(w, func(k int) {
+		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
+		for _, t := range blocks {
+			for q, r := range t.I {
+				c, x := t.J[q], t.V[q]
+				if uint32(r-lo) < n {
+					val[rowPtr[r]] = x
+					rowPtr[r]++
 				}
-				val[rowPtr[c]] = x
-				rowPtr[c]++
+				if mirror && r != c && uint32(c-lo) < n {
+					if skew {
+						x = -x
+					}
+					val[rowPtr[c]] = x
+					rowPtr[c]++
+				}
 			}
 		}
-		released += 8 * len(t.V)
-		t.V = nil
-	}
+	})
 	shiftRowPtr(rowPtr)
-	if released >= gcThreshold {
+	for b := range blocks {
+		blocks[b].V = nil
+	}
+	if 8*total >= gcThreshold {
 		// The released values are garbage the collector has not yet seen;
 		// reclaim them before the column indices are allocated, so the peak
 		// stays near the size of the result.
 		runtime.GC()
 	}
 	colIdx := make([]int32, nnz)
-	for b := range blocks {
-		t := &blocks[b]
-		for k, r := range t.I {
-			c := t.J[k]
-			colIdx[rowPtr[r]] = c
-			rowPtr[r]++
-			if sym != General && r != c {
-				colIdx[rowPtr[c]] = r
-				rowPtr[c]++
-			}
-		}
-		*t = Triplets{}
-	}
-	shiftRowPtr(rowPtr)
-
-	// Sort each row, sum duplicates and compact in place.
-	lowerStored := lowerAt >= 0
-	out := 0
-	for r := 0; r < rows; r++ {
-		lo, hi := rowPtr[r], rowPtr[r+1]
-		sortRow(colIdx[lo:hi], val[lo:hi])
-		start := out
-		rowPtr[r] = start
-		for p := lo; p < hi; p++ {
-			c, x := colIdx[p], val[p]
-			if out > start && colIdx[out-1] == c {
-				val[out-1] += x
-				// Count a duplicate once, on the side that was given.
-				if sym == General || int(c) == r || (int(c) < r) == lowerStored {
-					stats.Duplicates++
+	parallel(w, func(k int) {
+		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
+		for _, t := range blocks {
+			for q, r := range t.I {
+				c := t.J[q]
+				if uint32(r-lo) < n {
+					colIdx[rowPtr[r]] = c
+					rowPtr[r]++
 				}
-				continue
+				if mirror && r != c && uint32(c-lo) < n {
+					colIdx[rowPtr[c]] = r
+					rowPtr[c]++
+				}
 			}
-			colIdx[out], val[out] = c, x
-			out++
 		}
-		// Count, and drop if asked, the zeros of the summed row.
-		w := start
-		for p := start; p < out; p++ {
-			if val[p] == 0 {
-				stats.ExplicitZeros++
-				if opt.DropZeros {
-					stats.Dropped++
+	})
+	shiftRowPtr(rowPtr)
+	clear(blocks)
+
+	// Sort each row, sum duplicates, count and drop zeros. Each worker
+	// compacts its rows toward the start of its own range and records the
+	// end in ends[k]; the ranges are then moved together if anything shrank.
+	lowerStored := lowerAt >= 0
+	parts := make([]BuildStats, w)
+	ends := make([]int, w)
+	parallel(w, func(k int) {
+		st := &parts[k]
+		lo, hi := first[k], first[k+1]
+		out := rowPtr[lo]
+		next := rowPtr[lo] // original start of row r
+		for r := lo; r < hi; r++ {
+			start, end := next, rowPtr[r+1]
+			next = end
+			sortRow(colIdx[start:end], val[start:end])
+			rowStart := out
+			for p := start; p < end; p++ {
+				c, x := colIdx[p], val[p]
+				if out > rowStart && colIdx[out-1] == c {
+					val[out-1] += x
+					// Count a duplicate once, on the side that was given.
+					if sym == General || int(c) == r || (int(c) < r) == lowerStored {
+						st.Duplicates++
+					}
 					continue
 				}
+				colIdx[out], val[out] = c, x
+				out++
 			}
-			colIdx[w], val[w] = colIdx[p], val[p]
-			w++
+			wr := rowStart
+			for p := rowStart; p < out; p++ {
+				if val[p] == 0 {
+					st.ExplicitZeros++
+					if opt.DropZeros {
+						st.Dropped++
+						continue
+					}
+				}
+				colIdx[wr], val[wr] = colIdx[p], val[p]
+				wr++
+			}
+			out = wr
+			if r+1 < hi {
+				rowPtr[r+1] = out
+			}
 		}
-		out = w
+		ends[k] = out
+	})
+	dst := 0
+	for k := 0; k < w; k++ {
+		stats.Duplicates += parts[k].Duplicates
+		stats.ExplicitZeros += parts[k].ExplicitZeros
+		stats.Dropped += parts[k].Dropped
+		lo, hi := first[k], first[k+1]
+		if lo == hi {
+			continue
+		}
+		src := rowPtr[lo]
+		if src != dst {
+			copy(colIdx[dst:], colIdx[src:ends[k]])
+			copy(val[dst:], val[src:ends[k]])
+			for r := lo + 1; r < hi; r++ {
+				rowPtr[r] -= src - dst
+			}
+			rowPtr[lo] = dst
+		}
+		dst += ends[k] - src
 	}
-	rowPtr[rows] = out
-	if out < nnz {
+	rowPtr[rows] = dst
+	if dst < nnz {
 		// Duplicates or dropped zeros left unused space at the end; trim the
 		// capacity so that no stale entries are reachable by appending.
-		colIdx = colIdx[:out:out]
-		val = val[:out:out]
+		colIdx = colIdx[:dst:dst]
+		val = val[:dst:dst]
 	}
 	return &CSR{Rows: rows, Cols: cols, RowPtr: rowPtr, ColIdx: colIdx, Val: val}, stats, nil
+}
+
+// parallelMin is the number of triplets per worker below which assembly
+// runs on the caller's goroutine alone.
+const parallelMin = 1 << 16
+
+// parallel runs f(0), ..., f(w-1) at once, f(0) on the caller's goroutine.
+func parallel(w int, f func(k int)) {
+	if w == 1 {
+		f(0)
+		return
+	}
+	var wg sync.WaitGroup
+	for k := 1; k < w; k++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			f(k)
+		}()
+	}
+	f(0)
+	wg.Wait()
 }
 
 // gcThreshold is the amount of released triplet values (bytes) above which

@@ -248,3 +248,77 @@ func TestFromTripletBlocks(t *testing.T) {
 		}
 	}
 }
+
+// Large enough to run the assembly on several workers (parallelMin triplets
+// each): the result must equal a reference built entry by entry with a map,
+// summing duplicates in the order given (so bit for bit), for general and
+// symmetric storage, with and without dropping zeros.
+func TestFromTripletsParallel(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	n := 3000
+	m := 2*parallelMin + 999
+	for _, sym := range []Symmetry{General, Symmetric, SkewSymmetric} {
+		for _, drop := range []bool{false, true} {
+			ii, jj, vv := make([]int32, m), make([]int32, m), make([]float64, m)
+			type key struct{ r, c int32 }
+			ref := map[key]float64{}
+			for k := range ii {
+				r, c := int32(rng.IntN(n)), int32(rng.IntN(n/10)) // few columns: many duplicates
+				if sym != General && r < c {
+					r, c = c, r
+				}
+				if sym == SkewSymmetric && r == c {
+					r++
+					if int(r) == n {
+						r, c = 1, 0
+					}
+				}
+				x := float64(rng.IntN(5) - 2) // small integers: sums hit zero often
+				ii[k], jj[k], vv[k] = r, c, x
+				// The first value is taken as it is (so a lone -0 stays -0),
+				// later ones are added.
+				add := func(k key, x float64) {
+					if old, ok := ref[k]; ok {
+						x += old
+					}
+					ref[k] = x
+				}
+				add(key{r, c}, x)
+				if sym != General && r != c {
+					if sym == SkewSymmetric {
+						x = -x
+					}
+					add(key{c, r}, x)
+				}
+			}
+			a, st, err := FromTriplets(n, n, ii, jj, vv, BuildOptions{Symmetry: sym, DropZeros: drop})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := a.Validate(); err != nil {
+				t.Fatalf("%v drop=%v: %v", sym, drop, err)
+			}
+			zeros := 0
+			for _, v := range ref {
+				if v == 0 {
+					zeros++
+				}
+			}
+			want := len(ref)
+			if drop {
+				want -= zeros
+			}
+			if a.NNZ() != want || st.ExplicitZeros != zeros {
+				t.Fatalf("%v drop=%v: %d entries, %d zeros; want %d, %d", sym, drop, a.NNZ(), st.ExplicitZeros, want, zeros)
+			}
+			for r := 0; r < n; r++ {
+				for p := a.RowPtr[r]; p < a.RowPtr[r+1]; p++ {
+					v, ok := ref[key{int32(r), a.ColIdx[p]}]
+					if !ok || math.Float64bits(v) != math.Float64bits(a.Val[p]) {
+						t.Fatalf("%v drop=%v: a(%d,%d) = %v, want %v (present %v)", sym, drop, r, a.ColIdx[p], a.Val[p], v, ok)
+					}
+				}
+			}
+		}
+	}
+}
