@@ -255,6 +255,7 @@ type lsqProblem struct {
 	b, x  []float64
 	x0    []float64 // nil means zero
 	d     []float64 // column scale factors; all ones without scaling
+	z     []float64 // the method's iterate, x = D·z; nil before it starts
 	damp  float64
 	atol  float64
 	btol  float64
@@ -351,11 +352,16 @@ type trueState struct {
 	finite bool
 }
 
-// recompute computes the true residual and normal residual of x, using tm
+// recompute writes x = D·z (the methods iterate on z and write x only
+// here, which every way out of a solve passes through) and computes the
+// true residual and normal residual of x, using tm
 // (length m) and tn (length n) as scratch. It costs one product with A and
 // one with Aᵀ, which are not counted as iterations.
 func (p *lsqProblem) recompute(tm, tn []float64) trueState {
 	x, b, d, lam := p.x, p.b, p.d, p.damp
+	if p.z != nil {
+		writeX(x, d, p.z)
+	}
 	p.mulVec(tm, x)
 	var rr float64
 	for i, bi := range b {

@@ -36,6 +36,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	dir := make([]float64, n)
 	z := make([]float64, n)  // the iterate, x = D·z
 	tn := make([]float64, n) // t = D·p, then Aᵀr
+	p.z = z
 
 	p.bnorm = math.Sqrt(lsqNorm2(b))
 	var xx, zz float64
@@ -112,7 +113,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 				r[i] = ri
 				rr += ri * ri
 			}
-			// z += α·p, x = D·z, s = D·(Aᵀr − λ²x).
+			// z += α·p and s = D·(Aᵀr − λ²x), x = D·z.
 			p.mulVecTrans(tn, r)
 			var ss float64
 			xx, zz, gg = 0, 0, 0
@@ -120,8 +121,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 				zj := z[j] + alpha*dir[j]
 				z[j] = zj
 				dj := d[j]
-				xj := dj * zj
-				x[j] = xj
+				xj := dj * zj // x itself is written when needed (see recompute)
 				xx += xj * xj
 				zz += zj * zj
 				g := tj - lam2*xj

@@ -35,6 +35,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 	if damped {
 		u2 = make([]float64, n)
 	}
+	p.z = z
 
 	// Iteration 0: r0 = b − A·x0 and β1·u1 = r̄0.
 	p.bnorm = math.Sqrt(lsqNorm2(b))
@@ -176,7 +177,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 		phi := c * phibar
 		phibar = s * phibar
 
-		// z += (φ/ρ)·w; w = v − (θ/ρ)·w; x = D·z; and, for the next
+		// z += (φ/ρ)·w; w = v − (θ/ρ)·w; ‖D·z‖; and, for the next
 		// iteration, tn = D·v and the damping rows u2 = λ·D·v − α·u2.
 		t1, t2 := phi/rho, -theta/rho
 		var ww, zz float64
@@ -187,8 +188,7 @@ func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
 			zj := z[j] + t1*wj
 			z[j] = zj
 			dj := d[j]
-			xj := dj * zj
-			x[j] = xj
+			xj := dj * zj // x itself is written when needed (see recompute)
 			xx += xj * xj
 			zz += zj * zj
 			v := sv * dj * vh[j]
