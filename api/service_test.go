@@ -336,10 +336,13 @@ func TestDroppedClient(t *testing.T) {
 	go dropping.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none"}, nil)
 	jobID := <-started
 	dropping.Close()
-	waitFor(t, "job to be cancelled", func() bool {
+	waitFor(t, "job to end", func() bool {
 		j, _ := h.srv.jobs.Job(jobID)
-		return j.GetState() == pb.JobState_CANCELLED
+		return j.GetState() > pb.JobState_RUNNING
 	})
+	if j, _ := h.srv.jobs.Job(jobID); j.GetState() != pb.JobState_CANCELLED {
+		t.Errorf("job %v after its client dropped, want CANCELLED", j)
+	}
 	if q, r := h.srv.jobs.Counts(); q != 0 || r != 0 {
 		t.Errorf("%d queued, %d running after the drop", q, r)
 	}

@@ -71,7 +71,7 @@ func (s *Server) Solve(req *pb.SolveRequest, stream pb.Solver_SolveServer) error
 		if !j.keep {
 			s.store.unpin(j.mem)
 		}
-		s.store.remove(jobKey(j.id))
+		_, _, _ = s.store.remove(jobKey(j.id))
 		return err
 	}
 	s.log.Info("job queued", "job", j.id, "matrix", p.matrixID, "rows", p.m.a.Rows, "nonzeros", p.m.a.NNZ(),
@@ -95,8 +95,7 @@ func (s *Server) Solve(req *pb.SolveRequest, stream pb.Solver_SolveServer) error
 	if !j.keep {
 		defer func() {
 			j.dropSolutions("the solution was streamed and not kept")
-			s.store.unpin(j.mem)
-			s.store.remove(jobKey(j.id))
+			s.store.unpinDrop(j.mem)
 		}()
 	}
 	return s.follow(ctx, j, sub, stream, !j.keep)
@@ -349,7 +348,11 @@ func (s *Server) runJob(j *job, p *jobParams) (state pb.JobState, err error) {
 		// The work vectors are gone; the solutions stay accounted while
 		// kept (or until the attached stream has sent them).
 		s.store.shrink(j.mem, 8*int64(p.m.a.Rows)*int64(len(p.rhs)))
-		s.store.unpin(j.mem)
+		if j.keep {
+			s.store.unpin(j.mem)
+		} else {
+			s.store.unpinDrop(j.mem)
+		}
 		attrs := []any{"job", j.id, "matrix", p.matrixID, "state", state.String(), "duration", time.Since(start).String()}
 		if err != nil {
 			attrs = append(attrs, "error", err.Error())

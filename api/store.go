@@ -156,16 +156,32 @@ func (s *store) remove(key string) (int64, bool, error) {
 		s.mu.Unlock()
 		return 0, false, nil
 	}
-	if it.pins > 0 {
+	if pins := it.pins; pins > 0 {
 		s.mu.Unlock()
-		return 0, true, fmt.Errorf("%w: %s is used by %d queued or running jobs", ErrInUse, key, it.pins)
+		return 0, true, fmt.Errorf("%w: %s is used by %d queued or running jobs", ErrInUse, key, pins)
 	}
 	s.removeLocked(it)
+	n, onEvict := it.bytes, it.onEvict
 	s.mu.Unlock()
-	if it.onEvict != nil {
-		it.onEvict()
+	if onEvict != nil {
+		onEvict()
 	}
-	return it.bytes, true, nil
+	return n, true, nil
+}
+
+// unpinDrop removes one pin from it and, if that was the last, deletes it
+// without running onEvict: for an item whose holders know it is no longer
+// needed, whoever lets go last.
+func (s *store) unpinDrop(it *item) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if it.pins <= 0 {
+		panic(fmt.Sprintf("api: unpin of unpinned item %s", it.key))
+	}
+	it.pins--
+	if it.pins == 0 && s.items[it.key] == it {
+		s.removeLocked(it)
+	}
 }
 
 // removeWhere deletes the idle items whose keys satisfy match and returns
