@@ -3,7 +3,6 @@ package monitor
 import (
 	"fmt"
 	"math"
-	"strings"
 	"time"
 	"unicode/utf8"
 )
@@ -98,5 +97,3 @@ func cut(s string, width int) string {
 	r := []rune(s)
 	return string(r[:width])
 }
-
-var _ = strings.Repeat

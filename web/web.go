@@ -12,7 +12,6 @@ import (
 	"net"
 	"net/http"
 	"strconv"
-	"strings"
 	"time"
 
 	"github.com/residua/residua/chart"
@@ -328,7 +327,7 @@ func rhsParam(r *http.Request) (int, error) {
 	}
 	n, err := strconv.Atoi(q)
 	if err != nil || n < 0 {
-		return 0, fmt.Errorf("rhs=%q: want a right-hand side index 0, 1, ...", q)
+		return 0, fmt.Errorf("rhs=%q: want a right-hand side index (0 or more)", q)
 	}
 	return n, nil
 }
@@ -508,5 +507,3 @@ func (s *Server) events(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 }
-
-var _ = strings.Contains

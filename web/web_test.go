@@ -2,7 +2,6 @@ package web
 
 import (
 	"bufio"
-	"bytes"
 	"encoding/json"
 	"encoding/xml"
 	"io"
@@ -319,5 +318,3 @@ func TestTrackerThinning(t *testing.T) {
 		}
 	}
 }
-
-var _ = bytes.NewReader
