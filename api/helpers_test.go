@@ -55,9 +55,18 @@ type harness struct {
 // leak check's snapshot includes it.
 func startServer(t *testing.T, cfg Config) *harness {
 	t.Helper()
+	lis := bufconn.Listen(1 << 20)
+	h := startServerOn(t, cfg, lis)
+	h.lis = lis
+	return h
+}
+
+// startServerOn is startServer on a given listener.
+func startServerOn(t *testing.T, cfg Config, lis net.Listener) *harness {
+	t.Helper()
 	sparse.Workers()
 	ignore := goleak.IgnoreCurrent()
-	h := &harness{lis: bufconn.Listen(1 << 20), logs: &syncBuffer{}}
+	h := &harness{logs: &syncBuffer{}}
 	cfg.Logger = slog.New(slog.NewTextHandler(h.logs, nil))
 	srv, err := NewServer(cfg)
 	if err != nil {
@@ -66,7 +75,7 @@ func startServer(t *testing.T, cfg Config) *harness {
 	h.srv = srv
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
-	go func() { done <- srv.Serve(ctx, h.lis) }()
+	go func() { done <- srv.Serve(ctx, lis) }()
 	var once sync.Once
 	h.stop = func() {
 		once.Do(func() {

@@ -1,0 +1,190 @@
+"""A residua client that is not ours: Python stubs generated from
+proto/residua/v1/residua.proto by Debian's protoc and grpc_python_plugin,
+driven with Debian's python3-grpcio and python3-protobuf.
+
+It checks the standard health service, uploads a Matrix Market file in
+chunks, solves A x = A 1 with progress events and the solution streamed back,
+checks the true residual of the x it received (computed here, in Python,
+from the file), watches the finished job (the replay must match), and runs a
+detached solve that it follows with Watch and fetches with DownloadSolution.
+
+Usage (the Go test TestPythonClient runs it; PYTHONPATH must hold the
+generated stubs):
+
+    python3 check.py ADDRESS MATRIX.mtx
+
+It prints one JSON line with what it saw and exits 1 on a failed check.
+"""
+
+import json
+import math
+import struct
+import sys
+
+import grpc
+from google.protobuf import duration_pb2
+
+from residua.v1 import residua_pb2 as pb
+from residua.v1 import residua_pb2_grpc as pbg
+
+CHUNK = 64 * 1024
+RTOL = 1e-8
+
+
+def fail(msg):
+    print("check.py: FAIL: " + msg, file=sys.stderr)
+    sys.exit(1)
+
+
+def read_matrix_market(path):
+    """Reads a coordinate real/integer general or symmetric Matrix Market file
+    (Boisvert, Pozo, Remington, NIST 1996) into a list of (i, j, v), 0-based,
+    with symmetric storage expanded."""
+    with open(path) as f:
+        banner = f.readline().split()
+        if banner[:3] != ["%%MatrixMarket", "matrix", "coordinate"]:
+            fail("unsupported file " + path)
+        symmetric = banner[4].lower() == "symmetric"
+        line = f.readline()
+        while line.startswith("%"):
+            line = f.readline()
+        rows, cols, nnz = (int(t) for t in line.split())
+        entries = []
+        for _ in range(nnz):
+            t = f.readline().split()
+            i, j, v = int(t[0]) - 1, int(t[1]) - 1, float(t[2])
+            entries.append((i, j, v))
+            if symmetric and i != j:
+                entries.append((j, i, v))
+    return rows, cols, entries
+
+
+def matvec(rows, entries, x):
+    y = [0.0] * rows
+    for i, j, v in entries:
+        y[i] += v * x[j]
+    return y
+
+
+def pack(x):
+    return struct.pack("<%dd" % len(x), *x)
+
+
+def unpack(b):
+    return list(struct.unpack("<%dd" % (len(b) // 8), b))
+
+
+def norm(x):
+    return math.sqrt(sum(v * v for v in x))
+
+
+def health(channel):
+    # grpc.health.v1.Health/Check with an empty HealthCheckRequest; the
+    # response's field 1 (status) is a varint: SERVING = 1. Encoded by hand
+    # because Debian ships no grpc_health package for Python.
+    check = channel.unary_unary("/grpc.health.v1.Health/Check",
+                                request_serializer=lambda m: m,
+                                response_deserializer=lambda b: b)
+    resp = check(b"", timeout=10)
+    if resp != b"\x08\x01":
+        fail("health check answered %r, not SERVING" % resp)
+    return "SERVING"
+
+
+def upload(stub, path, name):
+    def requests():
+        yield pb.UploadMatrixRequest(metadata=pb.UploadMetadata(
+            name=name, encoding=pb.MATRIX_MARKET))
+        with open(path, "rb") as f:
+            while True:
+                chunk = f.read(CHUNK)
+                if not chunk:
+                    return
+                yield pb.UploadMatrixRequest(chunk=chunk)
+    return stub.UploadMatrix(requests(), timeout=60)
+
+
+def collect(stream):
+    events, solution = [], {}
+    for ev in stream:
+        kind = ev.WhichOneof("event")
+        if kind == "solution":
+            c = ev.solution
+            part = solution.setdefault(c.rhs, [])
+            if c.offset != len(part):
+                fail("solution chunk at offset %d after %d entries" % (c.offset, len(part)))
+            part.extend(unpack(c.data))
+            continue
+        events.append(ev)
+    return events, solution
+
+
+def main():
+    if len(sys.argv) != 3:
+        fail("usage: check.py ADDRESS MATRIX.mtx")
+    addr, path = sys.argv[1], sys.argv[2]
+    rows, cols, entries = read_matrix_market(path)
+    b = matvec(rows, entries, [1.0] * cols)
+
+    channel = grpc.insecure_channel(addr)
+    stub = pbg.SolverStub(channel)
+    seen = {"health": health(channel)}
+
+    m = upload(stub, path, "python-upload")
+    if (m.rows, m.cols) != (rows, cols):
+        fail("upload reply %dx%d, file %dx%d" % (m.rows, m.cols, rows, cols))
+    seen["matrix_id"], seen["nonzeros"] = m.id, m.nonzeros
+
+    req = pb.SolveRequest(matrix_id=m.id, rhs=[pb.VectorRef(data=pack(b))],
+                          preconditioner="jacobi", rtol=RTOL,
+                          progress=pb.ProgressPolicy(every_iterations=10))
+    events, solution = collect(stub.Solve(req, timeout=120))
+    kinds = [ev.WhichOneof("event") for ev in events]
+    if kinds[:3] != ["queued", "accepted", "progress"] or kinds[-2:] != ["result", "finished"]:
+        fail("event order %s" % kinds)
+    result = events[-2].result
+    if not result.converged or result.status != "converged":
+        fail("solve did not converge: %s" % result)
+    x = solution[0]
+    r = [bi - ai for bi, ai in zip(b, matvec(rows, entries, x))]
+    rel = norm(r) / norm(b)
+    # The stopping test on the true residual, rechecked here in Python; the
+    # 1% slack covers the different order of summation.
+    if rel > 1.01 * RTOL:
+        fail("true relative residual %g > %g" % (rel, RTOL))
+    seen.update(job_id=events[0].job_id, iterations=result.iterations,
+                relative_residual=rel, progress_events=kinds.count("progress"))
+
+    # Watching the finished job replays its history.
+    replay, _ = collect(stub.Watch(pb.WatchRequest(job_id=events[0].job_id), timeout=60))
+    if [ev.seq for ev in replay] != [ev.seq for ev in events]:
+        fail("watch replay differs from the solve stream")
+    if replay[-2].result != result:
+        fail("watch replay's result differs")
+
+    # A detached job: the stream ends after the queued event; follow it
+    # with Watch, then download the kept solution.
+    req.detach = True
+    req.time_limit.CopyFrom(duration_pb2.Duration(seconds=60))
+    first, _ = collect(stub.Solve(req, timeout=60))
+    if [ev.WhichOneof("event") for ev in first] != ["queued"]:
+        fail("detached solve sent %s" % first)
+    job_id = first[0].job_id
+    watched, _ = collect(stub.Watch(pb.WatchRequest(job_id=job_id), timeout=120))
+    if watched[-1].finished.state != pb.FINISHED:
+        fail("detached job ended %s" % watched[-1].finished)
+    chunks = list(stub.DownloadSolution(pb.DownloadSolutionRequest(job_id=job_id, rhs=0), timeout=60))
+    x2 = []
+    for c in chunks:
+        x2.extend(unpack(c.data))
+    if not chunks[-1].last or x2 != x:
+        fail("downloaded solution differs from the streamed one")
+    jobs = stub.ListJobs(pb.ListJobsRequest(), timeout=10).jobs
+    if job_id not in [j.id for j in jobs]:
+        fail("ListJobs lacks the detached job")
+    seen["detached_job_id"] = job_id
+    print(json.dumps(seen))
+
+
+if __name__ == "__main__":
+    main()
