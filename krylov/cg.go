@@ -264,6 +264,8 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 	bb := sparse.Dot(b, b)
 	st.bnorm = math.Sqrt(bb)
 	if !cgFinite(st.bnorm) {
+		clear(x) // x is the start, zero: no residual worth computing
+		st.trueNorm, st.trueFresh = st.bnorm, true
 		return Breakdown, cgNotFinite(0, "right-hand side b", b, "‖b‖₂", st.bnorm)
 	}
 	if st.bnorm == 0 {

@@ -482,7 +482,7 @@ func TestCGBreakdowns(t *testing.T) {
 			"NaN or Inf appeared (right-hand side b[1] = NaN at iteration 0)"},
 		{"NaN in X0", cgDiagOp{1, 2}, nil, []float64{1, 1}, []float64{nan, 0}, krylov.ErrNotFinite,
 			"NaN or Inf appeared (start X0[0] = NaN at iteration 0)"},
-		{"NaN in operator", cgNaNAfter{cgDiagOp{1, 2, 3, 4}, 3}, nil, []float64{1, 1, 1, 1}, nil, krylov.ErrNotFinite,
+		{"NaN in operator", cgNaNAfter{cgDiagOp{1, 2, 3, 4}, 3, new(int)}, nil, []float64{1, 1, 1, 1}, nil, krylov.ErrNotFinite,
 			"NaN or Inf appeared (product A·p[2] = NaN at iteration 3)"},
 	}
 	for _, c := range cases {
@@ -507,18 +507,17 @@ func TestCGBreakdowns(t *testing.T) {
 // cgNaNAfter returns NaN in entry 2 of its product from the given call on.
 type cgNaNAfter struct {
 	cgDiagOp
-	from int
+	from  int
+	calls *int
 }
 
 func (o cgNaNAfter) MulVec(dst, x []float64) {
 	o.cgDiagOp.MulVec(dst, x)
-	cgNaNCalls++
-	if cgNaNCalls >= o.from {
+	*o.calls++
+	if *o.calls >= o.from {
 		dst[2] = math.NaN()
 	}
 }
-
-var cgNaNCalls int
 
 // TestCGMulti: each right-hand side gets the same answer as its own CG
 // solve, bit for bit, since the solves share nothing but read-only data and
@@ -607,9 +606,11 @@ func TestCGPanics(t *testing.T) {
 // TestCGAllocations: no allocation per iteration. A full solve allocates
 // its workspace once, so 10 and 100 iterations must allocate the same.
 func TestCGAllocations(t *testing.T) {
-	a := stencil.Poisson2D(100) // needs well over 100 iterations
-	b := cgMul(a, cgOnes(10000))
-	x := make([]float64, 10000)
+	// 40 000 unknowns: above sparse's inline threshold, so the kernels run on
+	// its worker pool; and well over 100 iterations to converge.
+	a := stencil.Poisson2D(200)
+	b := cgMul(a, cgOnes(40000))
+	x := make([]float64, 40000)
 	h := &cgNopRecorder{}
 	allocs := func(iters int, m krylov.Preconditioner) float64 {
 		return testing.AllocsPerRun(5, func() {

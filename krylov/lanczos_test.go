@@ -1,6 +1,7 @@
 package krylov
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -36,7 +37,7 @@ func TestTridiagExtremes(t *testing.T) {
 		cases = append(cases, struct {
 			name string
 			d, e []float64
-		}{"random", d, e})
+		}{fmt.Sprintf("random n=%d", n), d, e})
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
