@@ -2,6 +2,7 @@ package api
 
 import (
 	"context"
+	"encoding/json"
 	"slices"
 	"strings"
 	"sync"
@@ -44,6 +45,21 @@ func TestUploadSolveSuiteSparse(t *testing.T) {
 	}
 	if m.GetUploadBytes() == 0 {
 		t.Errorf("upload_bytes is zero")
+	}
+	var report struct {
+		Rows      int  `json:"rows"`
+		Entries   int  `json:"stored_entries"`
+		Symmetric bool `json:"symmetric"`
+		Diagonal  struct {
+			Positive bool `json:"positive"`
+		} `json:"diagonal"`
+	}
+	if err := json.Unmarshal([]byte(m.GetInspectJson()), &report); err != nil {
+		t.Fatalf("inspect_json: %v", err)
+	}
+	// The manifest: all 1806 diagonal entries of bcsstk14 are positive.
+	if report.Rows != 1806 || report.Entries != 63454 || !report.Symmetric || !report.Diagonal.Positive {
+		t.Errorf("inspect report %+v", report)
 	}
 
 	b := onesRHS(a)

@@ -202,7 +202,7 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 		return nil, nil, fmt.Errorf("%w: the matrix is %d×%d; conjugate gradients needs a square symmetric positive definite matrix (a least-squares method is needed for a rectangular one)", ErrMethod, a.Rows, a.Cols)
 	}
 	if !p.m.symmetric {
-		return nil, nil, fmt.Errorf("%w: the matrix is not symmetric; conjugate gradients needs a symmetric positive definite matrix (solve the normal equations with a least-squares method instead)", ErrMethod)
+		return nil, nil, fmt.Errorf("%w: %s %s; conjugate gradients needs a symmetric positive definite matrix (solve the normal equations with a least-squares method instead)", ErrMethod, p.m.info.GetName(), p.m.asymmetry)
 	}
 	n := a.Rows
 	nrhs := len(req.GetRhs())

@@ -24,8 +24,10 @@ import (
 type matrixEntry struct {
 	a    *sparse.CSR
 	info *pb.Matrix // static description (id, name, sizes, report)
-	// symmetric: A equals Aᵀ exactly (same pattern, bitwise equal values).
+	// symmetric: A equals Aᵀ within symmetryTol; otherwise asymmetry says
+	// why not, in words.
 	symmetric bool
+	asymmetry string
 }
 
 func matrixKey(id string) string { return "m:" + id }
@@ -165,16 +167,16 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	}
 
 	id := matrixID(a)
-	e := &matrixEntry{a: a, symmetric: exactlySymmetric(a)}
+	e := &matrixEntry{a: a}
 	e.info = &pb.Matrix{
 		Id: id, Name: name,
 		Rows: int64(a.Rows), Cols: int64(a.Cols), Nonzeros: int64(a.NNZ()),
 		Symmetry: "general", Bytes: reserved,
 	}
+	e.info.InspectJson, e.symmetric, e.asymmetry = inspect(a)
 	if e.symmetric {
 		e.info.Symmetry = "symmetric"
 	}
-	e.info.InspectJson = inspectJSON(a)
 	it, existed := s.store.insert(matrixKey(id), reserved, 0, e, func() { s.matrixEvicted(id) })
 	out := cloneMatrix(it.value.(*matrixEntry).info)
 	out.AlreadyStored = existed
@@ -352,47 +354,4 @@ func matrixID(a *sparse.CSR) string {
 	}
 	flush()
 	return hex.EncodeToString(h.Sum(nil))
-}
-
-// exactlySymmetric reports whether a equals its transpose: square, the
-// same pattern, and a(i,j) == a(j,i) bit for bit. It finds each mirror
-// entry by binary search in its row (columns are sorted).
-func exactlySymmetric(a *sparse.CSR) bool {
-	if a.Rows != a.Cols {
-		return false
-	}
-	for i := 0; i < a.Rows; i++ {
-		for k := a.RowPtr[i]; k < a.RowPtr[i+1]; k++ {
-			j := int(a.ColIdx[k])
-			if j <= i {
-				continue
-			}
-			lo, hi := a.RowPtr[j], a.RowPtr[j+1]
-			for lo < hi {
-				m := int(uint(lo+hi) >> 1)
-				if int(a.ColIdx[m]) < i {
-					lo = m + 1
-				} else {
-					hi = m
-				}
-			}
-			if lo == a.RowPtr[j+1] || int(a.ColIdx[lo]) != i || math.Float64bits(a.Val[lo]) != math.Float64bits(a.Val[k]) {
-				return false
-			}
-		}
-	}
-	// Every upper entry has its mirror; equal counts on both sides then
-	// mean the lower entries are exactly those mirrors.
-	var upper, lower int
-	for i := 0; i < a.Rows; i++ {
-		for k := a.RowPtr[i]; k < a.RowPtr[i+1]; k++ {
-			switch j := int(a.ColIdx[k]); {
-			case j > i:
-				upper++
-			case j < i:
-				lower++
-			}
-		}
-	}
-	return upper == lower
 }

@@ -386,8 +386,9 @@ type Matrix struct {
 	Cols int64  `protobuf:"varint,4,opt,name=cols,proto3" json:"cols,omitempty"`
 	// Stored entries after expanding symmetric storage (both triangles).
 	Nonzeros int64 `protobuf:"varint,5,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
-	// "symmetric" when A equals its transpose exactly (checked on the
-	// stored arrays), "general" otherwise.
+	// "symmetric" when |a(i,j) − a(j,i)| ≤ 1e-12·max|a| for every pair (the
+	// test `residua inspect` applies; conjugate gradients needs it), "general"
+	// otherwise.
 	Symmetry string `protobuf:"bytes,6,opt,name=symmetry,proto3" json:"symmetry,omitempty"`
 	// Bytes the matrix occupies in the server's memory.
 	Bytes int64 `protobuf:"varint,7,opt,name=bytes,proto3" json:"bytes,omitempty"`
