@@ -6,7 +6,9 @@ import (
 	"testing"
 	"time"
 
+	"github.com/residua/residua/internal/shared"
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/matrixio"
 	"github.com/residua/residua/precond"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
@@ -61,13 +63,17 @@ func BenchmarkApply(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
+		icp, _ := precond.NewIC0(a, precond.IC0Options{Parallel: true})
+		if !icp.Parallel() {
+			b.Fatal("no parallel schedule")
+		}
 		jac, _ := precond.NewJacobi(a)
 		r := stencil.Ones(a)
 		z := make([]float64, a.Rows)
 		for _, p := range []struct {
 			name string
 			m    interface{ Precondition(dst, r []float64) }
-		}{{"ic0", ic}, {"jacobi", jac}} {
+		}{{"ic0-sequential", ic}, {"ic0-parallel", icp}, {"jacobi", jac}} {
 			b.Run(fmt.Sprintf("%s/poisson3d-%d", p.name, n), func(b *testing.B) {
 				spmv := spmvTime(a, 10)
 				b.ReportAllocs()
@@ -86,30 +92,83 @@ func BenchmarkApply(b *testing.B) {
 
 // BenchmarkPCG solves A·x = A·1 on 3D Poisson to rtol 1e-8 with CG and each
 // preconditioner, set-up included in the time per op, and reports the
-// iterations and the set-up share.
+// iterations and the set-up time.
 func BenchmarkPCG(b *testing.B) {
 	for _, n := range benchSides {
 		a := stencil.Poisson3D(n)
 		rhs := stencil.Ones(a) // A·1
 		x := make([]float64, a.Rows)
-		for _, kind := range []precond.Kind{precond.KindJacobi, precond.KindIC0} {
-			b.Run(fmt.Sprintf("%s/poisson3d-%d", kind, n), func(b *testing.B) {
+		for _, v := range []struct {
+			name string
+			make func() (krylov.Preconditioner, error)
+		}{
+			{"jacobi", func() (krylov.Preconditioner, error) { return precond.NewJacobi(a) }},
+			{"ic0-sequential", func() (krylov.Preconditioner, error) { return precond.NewIC0(a, precond.IC0Options{}) }},
+			{"ic0-parallel", func() (krylov.Preconditioner, error) {
+				return precond.NewIC0(a, precond.IC0Options{Parallel: true})
+			}},
+		} {
+			b.Run(fmt.Sprintf("%s/poisson3d-%d", v.name, n), func(b *testing.B) {
 				b.ReportAllocs()
 				var its int
 				var setup time.Duration
 				for b.Loop() {
-					c, err := precond.New(a, kind)
+					t0 := time.Now()
+					m, err := v.make()
 					if err != nil {
 						b.Fatal(err)
 					}
-					res, err := krylov.CG(context.Background(), a, rhs, x, c.M, krylov.Settings{RelTol: 1e-8})
+					setup = time.Since(t0)
+					res, err := krylov.CG(context.Background(), a, rhs, x, m, krylov.Settings{RelTol: 1e-8})
 					if err != nil || res.Status != krylov.Converged {
 						b.Fatalf("%v %v", res.Status, err)
 					}
-					its, setup = res.Iterations, c.Setup
+					its = res.Iterations
 				}
 				b.ReportMetric(float64(its), "iterations")
 				b.ReportMetric(setup.Seconds(), "setup-s")
+			})
+		}
+	}
+}
+
+// BenchmarkSharedSPD solves A·x = A·1 to rtol 1e-8 on every shared SPD
+// matrix with each kind, New's set-up included in the time per op: the
+// figures behind the automatic rule (doc.go) and its table in BENCHMARKS.md.
+// It needs the shared data folder (see internal/shared).
+func BenchmarkSharedSPD(b *testing.B) {
+	dir := shared.Matrices(b)
+	for _, e := range shared.Manifest(b) {
+		if e.Kind != "spd" {
+			continue
+		}
+		a, _, err := matrixio.ReadMatrixFile(e.Path(dir), nil)
+		if err != nil {
+			b.Fatal(err)
+		}
+		rhs := rhsOnes(a)
+		x := make([]float64, a.Rows)
+		for _, kind := range []precond.Kind{precond.KindNone, precond.KindJacobi, precond.KindIC0, precond.KindAuto} {
+			b.Run(e.Name+"/"+string(kind), func(b *testing.B) {
+				var res krylov.Result
+				var c *precond.Choice
+				for b.Loop() {
+					c, err = precond.New(a, kind)
+					if err != nil {
+						b.Fatal(err)
+					}
+					res, err = krylov.CG(context.Background(), a, rhs, x, c.M, krylov.Settings{RelTol: 1e-8})
+					if err != nil {
+						b.Fatal(err)
+					}
+				}
+				b.ReportMetric(float64(res.Iterations), "iterations")
+				if res.Status != krylov.Converged {
+					b.ReportMetric(1, "not-converged")
+				}
+				if kind == precond.KindAuto {
+					b.Logf("%s: %s", e.Name, c.Reason)
+				}
 			})
 		}
 	}

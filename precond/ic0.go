@@ -3,6 +3,7 @@ package precond
 import (
 	"fmt"
 	"math"
+	"runtime"
 
 	"github.com/residua/residua/sparse"
 )
@@ -19,6 +20,12 @@ type IC0Options struct {
 	// MaxTries caps the factorizations attempted, the unshifted one
 	// included. Default 8, so the last shift tried is 1e-3·10⁶ = 1e3.
 	MaxTries int
+	// Parallel runs the triangular solves on GOMAXPROCS goroutines by
+	// level scheduling of row segments (see sched.go) when the matrix has
+	// enough rows per level; otherwise, and by default, they run
+	// sequentially on the caller. The result is bitwise the same either
+	// way.
+	Parallel bool
 }
 
 // Defaults of IC0Options.
@@ -64,6 +71,9 @@ type IC0 struct {
 	uVal []float64
 	// dInv is D⁻¹, inverted once at set-up.
 	dInv []float64
+
+	// sched is the parallel schedule, nil when the solves run sequentially.
+	sched *schedule
 
 	shift float64
 	tries int
@@ -127,6 +137,9 @@ func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
 		if row < 0 {
 			m.shift, m.tries = alpha, t
 			m.transpose()
+			if opt.Parallel {
+				m.sched = newSchedule(m, runtime.GOMAXPROCS(0))
+			}
 			return m, nil
 		}
 		last = &BreakdownError{Row: row, Pivot: piv, Shift: alpha, Tries: t}
@@ -243,8 +256,12 @@ func (m *IC0) Size() int { return m.n }
 // factor (row-wise L and row-wise Lᵀ) and D⁻¹.
 func (m *IC0) Bytes() int64 {
 	return int64(len(m.lPtr)+len(m.lCol)+len(m.uPtr)+len(m.uCol))*4 +
-		int64(len(m.lVal)+len(m.uVal)+len(m.dInv))*8
+		int64(len(m.lVal)+len(m.uVal)+len(m.dInv))*8 + m.sched.bytes()
 }
+
+// Parallel reports whether Precondition runs the solves on several
+// goroutines when the package's helpers are free.
+func (m *IC0) Parallel() bool { return m.sched != nil }
 
 // Precondition sets dst = M⁻¹·r with M = (I + L)·D·(I + L)ᵀ: a forward
 // solve with I + L, then, row by row from the last, z_i = d_i⁻¹·w_i minus
@@ -257,29 +274,34 @@ func (m *IC0) Precondition(dst, r []float64) {
 	if len(dst) != n || len(r) != n {
 		panic(fmt.Sprintf("precond: IC0.Precondition: len(dst)=%d, len(r)=%d, want %d", len(dst), len(r), n))
 	}
-	m.forward(dst, r)
-	m.backward(dst)
+	if m.sched != nil && m.sched.applyParallel(m, dst, r) {
+		return
+	}
+	m.forward(dst, r, 0, n)
+	m.backward(dst, 0, n)
 }
 
-// forward solves (I + L)·w = r into w.
+// forward solves (I + L)·w = r into w for rows lo..hi−1; the rows before
+// lo that these rows read must be done.
 //
 // The recurrence's critical path runs through w_{i−1}: when row i has the
-// entry (i, i−1), as every row of a stencil matrix in natural order has,
-// w_{i−1} is taken from a register rather than reloaded from w, which would
-// add a store-to-load forwarding delay to every row. The other entries of the
-// row are summed first and overlap with the previous row's work.
-func (m *IC0) forward(w, r []float64) {
+// entry (i, i−1), as every row of a stencil matrix in natural order but the
+// first of each grid line has, w_{i−1} is taken from a register rather than
+// reloaded from w, which would add a store-to-load forwarding delay to
+// every row. The row's other entries are summed first and overlap with the
+// previous row's work.
+func (m *IC0) forward(w, r []float64, lo, hi int) {
 	ptr, col, val := m.lPtr, m.lCol, m.lVal
 	r = r[:len(w)]
-	prev := 0.0 // w[i-1]
-	p := ptr[0]
-	for i := range w {
+	prev := 0.0 // w[i-1] once row i-1 has been done in this call
+	p := ptr[lo]
+	for i := lo; i < hi; i++ {
 		q := ptr[i+1]
 		s := r[i]
 		cs := col[p:q]
 		vs := val[p:q]
 		vs = vs[:len(cs)]
-		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i-1 {
+		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i-1 && i > lo {
 			for t, j := range cs[:k] {
 				s -= vs[t] * w[j]
 			}
@@ -295,21 +317,22 @@ func (m *IC0) forward(w, r []float64) {
 	}
 }
 
-// backward solves D·(I + L)ᵀ·z = w in place: z_i = d_i⁻¹·w_i − Σ_{j>i} L_ji·z_j
-// from the last row to the first, with z_{i+1} carried in a register as in
-// forward.
-func (m *IC0) backward(z []float64) {
+// backward solves D·(I + L)ᵀ·z = w in place for rows hi−1 down to lo (the
+// rows after hi−1 that these read must be done):
+// z_i = d_i⁻¹·w_i − Σ_{j>i} L_ji·z_j, with z_{i+1} carried in a register as
+// in forward.
+func (m *IC0) backward(z []float64, lo, hi int) {
 	ptr, col, val, dInv := m.uPtr, m.uCol, m.uVal, m.dInv
 	dInv = dInv[:len(z)]
-	next := 0.0 // z[i+1]
-	q := ptr[len(z)]
-	for i := len(z) - 1; i >= 0; i-- {
+	next := 0.0 // z[i+1] once row i+1 has been done in this call
+	q := ptr[hi]
+	for i := hi - 1; i >= lo; i-- {
 		p := ptr[i]
 		s := z[i] * dInv[i]
 		cs := col[p:q]
 		vs := val[p:q]
 		vs = vs[:len(cs)]
-		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i+1 {
+		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i+1 && i < hi-1 {
 			for t, j := range cs[:k] {
 				s -= vs[t] * z[j]
 			}
