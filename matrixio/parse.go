@@ -73,6 +73,47 @@ func (c *chunk) add(hd *header, line, r, col int, v float64) bool {
 	return true
 }
 
+// fastLines parses the lines from pos on with fastEntry for as long as it
+// takes them, and returns where it stopped and the number of the last line
+// taken.
+func (c *chunk) fastLines(hd *header, b []byte, pos, line int) (int, int) {
+	k := len(c.t.I)
+	I, J, V := c.t.I[:cap(c.t.I)], c.t.J[:cap(c.t.J)], c.t.V[:cap(c.t.V)]
+	sym := hd.sym
+	for pos < len(b) && k < len(I) {
+		r, col, v, next, ok := fastEntry(hd, b, pos)
+		if !ok {
+			break
+		}
+		if sym != sparse.General {
+			switch {
+			case r > col:
+				if c.lowerLine == 0 {
+					c.lowerLine, c.lowerRC = line+1, [2]int{r, col}
+				}
+			case r < col:
+				if c.upperLine == 0 {
+					c.upperLine, c.upperRC = line+1, [2]int{r, col}
+				}
+			default:
+				if sym == sparse.SkewSymmetric && v != 0 {
+					ok = false // left to the general code, which reports it
+				}
+			}
+			if !ok {
+				break
+			}
+		}
+		I[k], J[k], V[k] = int32(r-1), int32(col-1), v
+		k++
+		line++
+		pos = next
+	}
+	c.entries += k - len(c.t.I)
+	c.t.I, c.t.J, c.t.V = I[:k], J[:k], V[:k]
+	return pos, line
+}
+
 // fastEntry parses a coordinate matrix line of the common form: unsigned
 // row and column, single spaces, a plain decimal value (or none for
 // pattern), then '\n', "\r\n" or the end of b. It returns ok = false for
@@ -245,19 +286,17 @@ func (p *dataParser) parse(c *chunk) {
 	pos := 0
 	fast := !hd.array && hd.object == objMatrix
 	for pos < len(b) {
-		line++
 		if fast {
 			// Most lines are "row col value" with single spaces; fastEntry
 			// takes them, and hands anything else to the general code below,
-			// which also words the errors.
-			if r, col, v, next, ok := fastEntry(hd, b, pos); ok {
-				if !c.add(hd, line, r, col, v) {
-					return
-				}
-				pos = next
-				continue
+			// which also words the errors. The entries go straight into the
+			// block's arrays, sized by the line count above.
+			pos, line = c.fastLines(hd, b, pos, line)
+			if pos >= len(b) {
+				break
 			}
 		}
+		line++
 		end := bytes.IndexByte(b[pos:], '\n')
 		if end < 0 {
 			end = len(b)

@@ -66,21 +66,31 @@ func readMatrix(r io.Reader, file string, opt *Options) (*sparse.CSR, Info, erro
 		info.Nonzeros, info.ExplicitZeros = a.NNZ(), zeros
 		return a, info, nil
 	}
-	blocks, err := d.readCoordinate()
+	// The entries are checked and counted per row as the chunks arrive, on
+	// this goroutine while the next chunks are parsed.
+	asm, err := sparse.NewAssembler(hd.rows, hd.cols, sparse.BuildOptions{Symmetry: hd.sym, DropZeros: o.DropZeros})
+	if err != nil {
+		return nil, info, fmt.Errorf("matrixio: assembling %s: %w", nameOr(file), err)
+	}
+	err = d.each(func(c *chunk) error {
+		t := c.t
+		if hd.object == objVector {
+			// A coordinate vector holds row indices only; it is a one-column matrix.
+			t.J = make([]int32, len(t.I))
+		}
+		if err := asm.Add(t); err != nil {
+			// The data were checked line by line, so this is a defect of
+			// this package, not of the input.
+			return fmt.Errorf("matrixio: assembling %s: %w", nameOr(file), err)
+		}
+		return nil
+	})
 	info.Bytes = h.bytes
 	if err != nil {
 		return nil, info, err
 	}
-	if hd.object == objVector {
-		// A coordinate vector holds row indices only; it is a one-column matrix.
-		for b := range blocks {
-			blocks[b].J = make([]int32, len(blocks[b].I))
-		}
-	}
-	a, stats, err := sparse.FromTripletBlocks(hd.rows, hd.cols, blocks, sparse.BuildOptions{Symmetry: hd.sym, DropZeros: o.DropZeros})
+	a, stats, err := asm.Build()
 	if err != nil {
-		// The data were checked line by line above, so this is a defect of
-		// this package, not of the input.
 		return nil, info, fmt.Errorf("matrixio: assembling %s: %w", nameOr(file), err)
 	}
 	info.Nonzeros, info.Duplicates, info.ExplicitZeros = a.NNZ(), stats.Duplicates, stats.ExplicitZeros

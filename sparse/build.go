@@ -107,59 +107,149 @@ func FromTriplets(rows, cols int, i, j []int32, v []float64, opt BuildOptions) (
 // (the arrays themselves are only read). It panics if a block's I, J and V
 // differ in length.
 func FromTripletBlocks(rows, cols int, blocks []Triplets, opt BuildOptions) (*CSR, BuildStats, error) {
-	var stats BuildStats
-	for b := range blocks {
-		t := &blocks[b]
-		if len(t.I) != len(t.J) || len(t.I) != len(t.V) {
-			panic(fmt.Sprintf("sparse: triplet block %d with %d row indices, %d column indices and %d values", b, len(t.I), len(t.J), len(t.V)))
+	defer clear(blocks)
+	asm, err := NewAssembler(rows, cols, opt)
+	if err != nil {
+		return nil, BuildStats{}, err
+	}
+	for _, t := range blocks {
+		if err := asm.Add(t); err != nil {
+			return nil, BuildStats{}, err
 		}
 	}
+	clear(blocks)
+	return asm.Build()
+}
+
+// Assembler builds a CSR matrix from triplets that arrive in blocks, for
+// readers that parse a large file in pieces: Add checks each block and counts
+// its entries per row as it comes, so that Build has only to place them.
+// The result is that of FromTriplets on all blocks joined in order.
+//
+// An Assembler keeps the blocks given to Add (without copying them) until
+// Build, which releases them as it goes; the caller must not change them. It
+// is used by one goroutine at a time. The zero value is not usable; call
+// NewAssembler.
+type Assembler struct {
+	rows, cols int
+	opt        BuildOptions
+	blocks     []Triplets
+	total      int   // triplets added
+	rowPtr     []int // rowPtr[r+1] counts row r's entries, once allocated
+	counted    int   // blocks counted into rowPtr
+
+	lowerAt, upperAt int // first strictly lower and strictly upper triplet, or -1
+	lowerRC, upperRC [2]int32
+	built            bool
+}
+
+// NewAssembler returns an Assembler for a rows×cols matrix. It returns an
+// error wrapping ErrIndexRange for dimensions outside [0, MaxDim] and
+// ErrNotSquare for a symmetric or skew-symmetric matrix that is not square;
+// it panics for an unknown opt.Symmetry. It allocates nothing that grows
+// with the dimensions: storage follows the triplets actually added.
+func NewAssembler(rows, cols int, opt BuildOptions) (*Assembler, error) {
 	sym := opt.Symmetry
 	if sym != General && sym != Symmetric && sym != SkewSymmetric {
-		panic(fmt.Sprintf("sparse: FromTriplets with unknown %v", sym))
+		panic(fmt.Sprintf("sparse: assembly with unknown %v", sym))
 	}
-	defer clear(blocks)
 	if rows < 0 || cols < 0 || rows > MaxDim || cols > MaxDim {
-		return nil, stats, fmt.Errorf("sparse: dimensions %d×%d: %w", rows, cols, ErrIndexRange)
+		return nil, fmt.Errorf("sparse: dimensions %d×%d: %w", rows, cols, ErrIndexRange)
 	}
 	if sym != General && rows != cols {
-		return nil, stats, fmt.Errorf("sparse: %v matrix of %d×%d: %w", sym, rows, cols, ErrNotSquare)
+		return nil, fmt.Errorf("sparse: %v matrix of %d×%d: %w", sym, rows, cols, ErrNotSquare)
 	}
+	return &Assembler{rows: rows, cols: cols, opt: opt, lowerAt: -1, upperAt: -1}, nil
+}
 
-	// Check the triplets, in order, so that an error names the first bad one.
-	lowerAt, upperAt := -1, -1 // first strictly lower and strictly upper triplet
-	var lowerRC, upperRC [2]int32
-	total := 0 // triplets before the current block, then in all
-	for _, t := range blocks {
-		for k, r := range t.I {
-			c := t.J[k]
-			if r < 0 || int(r) >= rows || c < 0 || int(c) >= cols {
-				return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) outside %d×%d: %w", total+k, r, c, rows, cols, ErrIndexRange)
+// Add checks the block t and keeps it for Build. An error names the first
+// bad triplet by its index among all triplets added (ErrIndexRange,
+// ErrBothTriangles, ErrSkewDiagonal); after an error the Assembler must not
+// be used. Add panics if t's I, J and V differ in length or if Build has
+// been called.
+func (a *Assembler) Add(t Triplets) error {
+	if len(t.I) != len(t.J) || len(t.I) != len(t.V) {
+		panic(fmt.Sprintf("sparse: triplet block %d with %d row indices, %d column indices and %d values", len(a.blocks), len(t.I), len(t.J), len(t.V)))
+	}
+	if a.built {
+		panic("sparse: Assembler.Add after Build")
+	}
+	rows, cols, sym := a.rows, a.cols, a.opt.Symmetry
+	for k, r := range t.I {
+		c := t.J[k]
+		if r < 0 || int(r) >= rows || c < 0 || int(c) >= cols {
+			return fmt.Errorf("sparse: triplet %d at (%d, %d) outside %d×%d: %w", a.total+k, r, c, rows, cols, ErrIndexRange)
+		}
+		if sym == General {
+			continue
+		}
+		switch {
+		case r > c:
+			if a.lowerAt < 0 {
+				a.lowerAt, a.lowerRC = a.total+k, [2]int32{r, c}
 			}
-			if sym == General {
-				continue
+		case r < c:
+			if a.upperAt < 0 {
+				a.upperAt, a.upperRC = a.total+k, [2]int32{r, c}
 			}
-			switch {
-			case r > c:
-				if lowerAt < 0 {
-					lowerAt, lowerRC = total+k, [2]int32{r, c}
-				}
-			case r < c:
-				if upperAt < 0 {
-					upperAt, upperRC = total+k, [2]int32{r, c}
-				}
-			default:
-				if sym == SkewSymmetric && t.V[k] != 0 {
-					return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) has value %g: %w", total+k, r, c, t.V[k], ErrSkewDiagonal)
-				}
-			}
-			if lowerAt >= 0 && upperAt >= 0 {
-				return nil, stats, fmt.Errorf("sparse: triplet %d at (%d, %d) and triplet %d at (%d, %d): %w",
-					lowerAt, lowerRC[0], lowerRC[1], upperAt, upperRC[0], upperRC[1], ErrBothTriangles)
+		default:
+			if sym == SkewSymmetric && t.V[k] != 0 {
+				return fmt.Errorf("sparse: triplet %d at (%d, %d) has value %g: %w", a.total+k, r, c, t.V[k], ErrSkewDiagonal)
 			}
 		}
-		total += len(t.I)
+		if a.lowerAt >= 0 && a.upperAt >= 0 {
+			return fmt.Errorf("sparse: triplet %d at (%d, %d) and triplet %d at (%d, %d): %w",
+				a.lowerAt, a.lowerRC[0], a.lowerRC[1], a.upperAt, a.upperRC[0], a.upperRC[1], ErrBothTriangles)
+		}
 	}
+	a.total += len(t.I)
+	if len(t.I) > 0 {
+		a.blocks = append(a.blocks, t)
+	}
+	// Count rows as the data come, once they justify an array of row
+	// counts: a file that claims many rows but holds few entries does not
+	// get one until Build.
+	if a.rowPtr == nil && a.rows+1 <= 8*a.total {
+		a.rowPtr = make([]int, a.rows+1)
+	}
+	if a.rowPtr != nil {
+		a.count()
+	}
+	return nil
+}
+
+// count adds the entries of the blocks not yet counted to rowPtr[r+1].
+func (a *Assembler) count() {
+	mirror := a.opt.Symmetry != General
+	rowPtr := a.rowPtr
+	for _, t := range a.blocks[a.counted:] {
+		for k, r := range t.I {
+			rowPtr[r+1]++
+			if c := t.J[k]; mirror && r != c {
+				rowPtr[c+1]++
+			}
+		}
+	}
+	a.counted = len(a.blocks)
+}
+
+// Build assembles the matrix from the blocks added, releasing them as it
+// goes, and returns it with what the assembly did. It panics if called
+// twice.
+func (a *Assembler) Build() (*CSR, BuildStats, error) {
+	if a.built {
+		panic("sparse: Assembler.Build called twice")
+	}
+	a.built = true
+	var stats BuildStats
+	rows, cols, sym, opt := a.rows, a.cols, a.opt.Symmetry, a.opt
+	if a.rowPtr == nil {
+		a.rowPtr = make([]int, rows+1)
+	}
+	a.count()
+	blocks, total, rowPtr := a.blocks, a.total, a.rowPtr
+	a.blocks, a.rowPtr = nil, nil
+	lowerAt := a.lowerAt
 
 	// The passes below run in parallel over contiguous ranges of rows: every
 	// worker reads all triplets and handles those that land in its rows, so
@@ -176,21 +266,6 @@ func FromTripletBlocks(rows, cols int, blocks []Triplets, opt BuildOptions) (*CS
 	}
 	mirror := sym != General
 
-	// Count the entries of each row of the full matrix into rowPtr[r+1].
-	rowPtr := make([]int, rows+1)
-	parallel(w, func(k int) {
-		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
-		for _, t := range blocks {
-			for q, r := range t.I {
-				if uint32(r-lo) < n {
-					rowPtr[r+1]++
-				}
-				if c := t.J[q]; mirror && r != c && uint32(c-lo) < n {
-					rowPtr[c+1]++
-				}
-			}
-		}
-	})
 	for r := 0; r < rows; r++ {
 		rowPtr[r+1] += rowPtr[r]
 	}

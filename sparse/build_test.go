@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 )
 
@@ -320,5 +321,114 @@ func TestFromTripletsParallel(t *testing.T) {
 				}
 			}
 		}
+	}
+}
+
+// poissonLower returns the lower triangle of the 7-point Laplacian on an n³
+// grid as triplets in row order, in blocks of about 50000 (the size of what
+// the Matrix Market reader hands over per chunk).
+func poissonLower(n int) []Triplets {
+	var blocks []Triplets
+	var t Triplets
+	for z := 0; z < n; z++ {
+		for y := 0; y < n; y++ {
+			for x := 0; x < n; x++ {
+				r := int32(x + n*y + n*n*z)
+				add := func(c int32, v float64) {
+					t.I, t.J, t.V = append(t.I, r), append(t.J, c), append(t.V, v)
+				}
+				if z > 0 {
+					add(r-int32(n*n), -1)
+				}
+				if y > 0 {
+					add(r-int32(n), -1)
+				}
+				if x > 0 {
+					add(r-1, -1)
+				}
+				add(r, 6)
+				if len(t.I) >= 50000 {
+					blocks = append(blocks, t)
+					t = Triplets{}
+				}
+			}
+		}
+	}
+	return append(blocks, t)
+}
+
+// BenchmarkFromTripletBlocks assembles the 7-point Poisson matrix on a 100³
+// grid from its lower triangle; ns/op over the 6.9·10⁶ entries of the
+// result gives the cost per entry.
+func BenchmarkFromTripletBlocks(b *testing.B) {
+	n := 100
+	src := poissonLower(n)
+	blocks := make([]Triplets, len(src))
+	b.ReportAllocs()
+	for b.Loop() {
+		copy(blocks, src)
+		a, _, err := FromTripletBlocks(n*n*n, n*n*n, blocks, BuildOptions{Symmetry: Symmetric})
+		if err != nil {
+			b.Fatal(err)
+		}
+		b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(a.NNZ()), "ns/entry")
+	}
+}
+
+// The Assembler gives the result of FromTriplets on the blocks joined, names
+// a bad triplet by its index among all blocks, and refuses use after Build.
+func TestAssembler(t *testing.T) {
+	asm, err := NewAssembler(3, 3, BuildOptions{Symmetry: Symmetric})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := asm.Add(Triplets{I: []int32{0, 1}, J: []int32{0, 0}, V: []float64{2, -1}}); err != nil {
+		t.Fatal(err)
+	}
+	err = asm.Add(Triplets{I: []int32{2, 0}, J: []int32{2, 2}, V: []float64{1, 5}})
+	if !errors.Is(err, ErrBothTriangles) || !strings.Contains(err.Error(), "triplet 3 at (0, 2)") {
+		t.Errorf("err = %v, want ErrBothTriangles naming triplet 3", err)
+	}
+
+	asm, err = NewAssembler(3, 3, BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, blk := range []Triplets{{I: []int32{2}, J: []int32{1}, V: []float64{4}}, {}, {I: []int32{0, 2}, J: []int32{0, 1}, V: []float64{1, 1}}} {
+		if err := asm.Add(blk); err != nil {
+			t.Fatal(err)
+		}
+	}
+	a, st, err := asm.Build()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if a.NNZ() != 2 || st.Duplicates != 1 || a.At(2, 1) != 5 || a.At(0, 0) != 1 {
+		t.Errorf("nnz %d, stats %+v, a(2,1) = %v", a.NNZ(), st, a.At(2, 1))
+	}
+	for name, f := range map[string]func(){
+		"Add after Build": func() { _ = asm.Add(Triplets{}) },
+		"Build twice":     func() { _, _, _ = asm.Build() },
+	} {
+		func() {
+			defer func() {
+				if recover() == nil {
+					t.Errorf("%s: no panic", name)
+				}
+			}()
+			f()
+		}()
+	}
+	if _, err := NewAssembler(2, 3, BuildOptions{Symmetry: SkewSymmetric}); !errors.Is(err, ErrNotSquare) {
+		t.Errorf("non-square skew: %v", err)
+	}
+	// Many rows and few entries: nothing proportional to the rows is
+	// allocated before Build (the row counts wait for the data).
+	asm, err = NewAssembler(MaxDim, MaxDim, BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := asm.Add(Triplets{I: []int32{5}, J: []int32{7}, V: []float64{1}}); err != nil || asm.rowPtr != nil {
+		t.Errorf("Add: %v; row counts allocated: %v", err, asm.rowPtr != nil)
 	}
 }
