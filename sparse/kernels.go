@@ -1,42 +1,41 @@
 package sparse
 
-import "fmt"
+import "unsafe"
 
 // The serial loops that the parallel kernels run on each block. They are
 // the only places where the arithmetic happens, so the order of every
 // floating-point operation is fixed here.
 
 // mulRows sets dst[i] = Σ_k a(i, k)·x[k] for lo ≤ i < hi, each row summed in
-// column order from 0.0. The entry position p runs on from row to row, so a
-// row costs one row-pointer load. Measured in cache on one core (minimum of
-// 400 runs, banded 64000×64000, 7 entries a row): 0.48 ns per entry
-// against 0.66 for slicing each row; the same loop with unsafe pointers and
-// no bounds checks took 0.41, not enough to give up the checks for.
+// column order from 0.0.
+//
+// It reads Val, ColIdx and x without bounds checks, relying on the CSR
+// invariants that CSR.trust has checked with Validate (row pointers within
+// the stored entries and non-decreasing, column indices in [0, Cols)) and
+// on the callers' length checks. Measured on one core, minimum of 15 runs,
+// a banded matrix with 7 entries a row: 36 GB/s in cache (40³ rows) against
+// 24 GB/s for the same loop with bounds checks, and 7.3 against 5.7 GB/s
+// from memory (160³ rows), where a triad made 9.6; keeping only the check
+// on x, or a check per row, lost most of the gain.
 func mulRows(a *CSR, dst, x []float64, lo, hi int) {
 	rowPtr := a.RowPtr[lo : hi+1]
-	colIdx, val := a.ColIdx, a.Val
-	val = val[:len(colIdx)]
 	dst = dst[lo:hi]
+	if len(dst) == 0 {
+		return
+	}
+	val := unsafe.Pointer(unsafe.SliceData(a.Val))
+	col := unsafe.Pointer(unsafe.SliceData(a.ColIdx))
+	xs := unsafe.Pointer(unsafe.SliceData(x))
 	p := rowPtr[0]
 	for i := range dst {
 		end := rowPtr[i+1]
-		if end > len(val) {
-			badRowPtr(end, len(val))
-		}
 		s := 0.0
 		for ; p < end; p++ {
-			s += val[p] * x[colIdx[p]]
+			c := *(*int32)(unsafe.Add(col, 4*p))
+			s += *(*float64)(unsafe.Add(val, 8*p)) * *(*float64)(unsafe.Add(xs, 8*int(c)))
 		}
 		dst[i] = s
 	}
-}
-
-// badRowPtr panics: only a CSR that fails Validate gets here. Kept out of
-// line so that the kernel's loop keeps its registers.
-//
-//go:noinline
-func badRowPtr(end, nnz int) {
-	panic(fmt.Sprintf("sparse: row pointer %d beyond the %d stored entries", end, nnz))
 }
 
 // dotBlock returns xᵀy for one block: four partial sums over the elements

@@ -552,6 +552,14 @@ func TestKernelPanics(t *testing.T) {
 		"At":               func() { a.At(4, 0) },
 		"At col":           func() { a.At(0, -1) },
 		"Diagonal":         func() { a.Diagonal(make([]float64, 4)) },
+		"invalid column": func() {
+			bad := &CSR{Rows: 2, Cols: 2, RowPtr: []int{0, 1, 2}, ColIdx: []int32{0, 2}, Val: []float64{1, 1}}
+			bad.MulVec(make([]float64, 2), make([]float64, 2))
+		},
+		"invalid row pointer": func() {
+			bad := &CSR{Rows: 2, Cols: 2, RowPtr: []int{0, 3, 2}, ColIdx: []int32{0, 1}, Val: []float64{1, 1}}
+			bad.MulVecTrans(make([]float64, 2), make([]float64, 2))
+		},
 	} {
 		t.Run(name, func(t *testing.T) {
 			defer func() {

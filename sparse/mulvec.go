@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"runtime"
+	"strings"
 	"sync"
 	"weak"
 )
@@ -18,34 +19,40 @@ func (a *CSR) checkMul(op string, dst, x []float64, dstLen, xLen int) {
 // MulVec sets dst = A·x. Each dst[i] is the sum of row i's products in
 // column order, so the result does not depend on the number of workers.
 // The rows are split over the worker pool (see Workers) in ranges balanced
-// by stored entries; small matrices run on the caller. It allocates nothing.
-// dst must not overlap x. Panics if len(dst) != Rows or len(x) != Cols.
+// by stored entries; small matrices run on the caller. It allocates nothing
+// after the first call (see "Trusted arrays" in the package doc). dst must
+// not overlap x. Panics if len(dst) != Rows or len(x) != Cols, or if the
+// arrays fail Validate.
 func (a *CSR) MulVec(dst, x []float64) {
 	a.checkMul("MulVec", dst, x, a.Rows, a.Cols)
+	a.trust("MulVec")
 	getPool().matOp(job{op: opMulVec, a: a, d: dst, x: x})
 }
 
 // MulVecDot sets dst = A·x and returns xᵀ·dst, computed block by block while
 // the block of dst just written is still in cache: the product and the
 // curvature pᵀA·p of conjugate gradients in one sweep. The sum equals
-// Dot(x, dst) bit for bit. dst must not overlap x. Panics if A is not square
-// or a length differs from its order.
+// Dot(x, dst) bit for bit. dst must not overlap x. Panics if A is not
+// square, a length differs from its order, or the arrays fail Validate.
 func (a *CSR) MulVecDot(dst, x []float64) float64 {
 	if a.Rows != a.Cols {
 		panic(fmt.Sprintf("sparse: MulVecDot: matrix is %d×%d, not square", a.Rows, a.Cols))
 	}
 	a.checkMul("MulVecDot", dst, x, a.Rows, a.Cols)
+	a.trust("MulVecDot")
 	return getPool().matOp(job{op: opMulVecDot, a: a, d: dst, x: x})
 }
 
 // Residual sets dst = b − A·x and returns dstᵀdst (the squared residual
 // norm, summed like Dot) in one sweep. dst may be b but must not overlap x.
-// Panics if len(dst) or len(b) != Rows, or len(x) != Cols.
+// Panics if len(dst) or len(b) != Rows, len(x) != Cols, or the arrays fail
+// Validate.
 func (a *CSR) Residual(dst, b, x []float64) float64 {
 	a.checkMul("Residual", dst, x, a.Rows, a.Cols)
 	if len(b) != a.Rows {
 		panic(fmt.Sprintf("sparse: Residual: len(b) = %d, want %d", len(b), a.Rows))
 	}
+	a.trust("Residual")
 	return getPool().matOp(job{op: opResidual, a: a, d: dst, x: x, y: b})
 }
 
@@ -58,11 +65,12 @@ func (a *CSR) Residual(dst, b, x []float64) float64 {
 // entry plus 8 per column). A matrix that is exactly symmetric (the same
 // pattern, and values equal bit for bit) is detected then and used as its
 // own transpose, at no extra memory. Later calls therefore cost the same as
-// MulVec. The arrays of A must not change after the first call, unless
-// ForgetTranspose is called. dst must not overlap x. Panics if
-// len(dst) != Cols or len(x) != Rows.
+// MulVec. The arrays of A must not change in place after the first call,
+// unless ForgetTranspose is called. dst must not overlap x. Panics if
+// len(dst) != Cols, len(x) != Rows, or the arrays fail Validate.
 func (a *CSR) MulVecTrans(dst, x []float64) {
 	a.checkMul("MulVecTrans", dst, x, a.Cols, a.Rows)
+	a.trust("MulVecTrans")
 	t := a.cachedTranspose()
 	if t == nil {
 		t = a
@@ -70,22 +78,14 @@ func (a *CSR) MulVecTrans(dst, x []float64) {
 	getPool().matOp(job{op: opMulVec, a: t, d: dst, x: x})
 }
 
-// transEntry is a kept transpose, with the identity of the arrays it was
-// built from, so that a matrix given new arrays gets a new transpose.
-type transEntry struct {
-	t         *CSR // nil: the matrix is its own transpose
-	rows      int
-	rowPtr    *int
-	colIdx    *int32
-	val       *float64
-	nnz       int
-	symmetric bool
+// arrays identifies a matrix's arrays: a matrix given new arrays (or new
+// dimensions) is checked again and gets a new transpose.
+type arrays struct {
+	rows, cols, nnz int
+	rowPtr          *int
+	colIdx          *int32
+	val             *float64
 }
-
-// transCache maps a matrix, held weakly, to its *transEntry. A cleanup
-// attached to the matrix deletes the entry when the matrix is collected, so
-// the cache never keeps a matrix or its transpose alive.
-var transCache sync.Map
 
 func first[T any](s []T) *T {
 	if len(s) == 0 {
@@ -94,37 +94,99 @@ func first[T any](s []T) *T {
 	return &s[0]
 }
 
-func (a *CSR) arraysMatch(e *transEntry) bool {
-	return e.rows == a.Rows && e.nnz == a.NNZ() && e.rowPtr == first(a.RowPtr) &&
-		e.colIdx == first(a.ColIdx) && e.val == first(a.Val)
+func (a *CSR) arrays() arrays {
+	return arrays{a.Rows, a.Cols, len(a.Val), first(a.RowPtr), first(a.ColIdx), first(a.Val)}
+}
+
+// matEntry is what the package remembers about a matrix. Entries are never
+// changed once stored; an update stores a new one.
+type matEntry struct {
+	arrays
+	trusted    bool // the arrays passed Validate
+	transBuilt bool // trans is valid (nil: the matrix is its own transpose)
+	trans      *CSR
+}
+
+// matCache maps a matrix, held weakly, to its *matEntry. A cleanup attached
+// to the matrix deletes the entry when the matrix is collected, so the cache
+// never keeps a matrix or its transpose alive.
+var matCache sync.Map
+
+// weakKey is the matCache key of a.
+func weakKey(a *CSR) weak.Pointer[CSR] { return weak.Make(a) }
+
+// entry returns a's entry if it describes a's current arrays.
+func (a *CSR) entry() *matEntry {
+	if v, ok := matCache.Load(weakKey(a)); ok {
+		if e := v.(*matEntry); e.arrays == a.arrays() {
+			return e
+		}
+	}
+	return nil
+}
+
+func (a *CSR) store(e *matEntry) {
+	key := weakKey(a)
+	if _, loaded := matCache.Swap(key, e); !loaded {
+		runtime.AddCleanup(a, func(k weak.Pointer[CSR]) { matCache.Delete(k) }, key)
+	}
+}
+
+// trust checks a's arrays with Validate the first time a product sees them
+// (one pass over the column indices, about a third of a product's memory
+// traffic), and panics if they are invalid; the product kernels then read
+// the arrays without bounds checks.
+func (a *CSR) trust(op string) {
+	e := a.entry()
+	if e != nil && e.trusted {
+		return
+	}
+	// Validate slices ColIdx by the row pointers before checking that they
+	// stay within the entries; check that first so that a bad pointer gets
+	// this message rather than a slice-bounds runtime error.
+	if len(a.RowPtr) == a.Rows+1 && a.Rows >= 0 {
+		for i := 0; i < a.Rows; i++ {
+			if p := a.RowPtr[i+1]; p < a.RowPtr[i] || p > len(a.ColIdx) || p > len(a.Val) {
+				panic(fmt.Sprintf("sparse: %s: invalid CSR arrays: row pointer %d of row %d outside [%d, %d]",
+					op, p, i, a.RowPtr[i], min(len(a.ColIdx), len(a.Val))))
+			}
+		}
+	}
+	if err := a.Validate(); err != nil {
+		panic(fmt.Sprintf("sparse: %s: %v", op, strings.TrimPrefix(err.Error(), "sparse: ")))
+	}
+	ne := &matEntry{arrays: a.arrays(), trusted: true}
+	if e != nil {
+		ne.transBuilt, ne.trans = e.transBuilt, e.trans
+	}
+	a.store(ne)
 }
 
 // cachedTranspose returns the kept transpose of a, building it on first
-// use; nil means a is its own transpose.
+// use; nil means a is its own transpose. a must be trusted.
 func (a *CSR) cachedTranspose() *CSR {
-	key := weakKey(a)
-	if v, ok := transCache.Load(key); ok {
-		if e := v.(*transEntry); a.arraysMatch(e) {
-			return e.t
-		}
+	e := a.entry()
+	if e != nil && e.transBuilt {
+		return e.trans
+	}
+	ne := &matEntry{arrays: a.arrays(), transBuilt: true}
+	if e != nil {
+		ne.trusted = e.trusted
 	}
 	t := a.Transpose()
-	e := &transEntry{rows: a.Rows, rowPtr: first(a.RowPtr), colIdx: first(a.ColIdx), val: first(a.Val), nnz: a.NNZ()}
-	if sameArrays(a, t) {
-		e.symmetric = true
-	} else {
-		e.t = t
+	if !sameArrays(a, t) {
+		ne.trans = t
+		t.trust("MulVecTrans")
 	}
-	if _, loaded := transCache.Swap(key, e); !loaded {
-		runtime.AddCleanup(a, func(k weak.Pointer[CSR]) { transCache.Delete(k) }, key)
-	}
-	return e.t
+	a.store(ne)
+	return ne.trans
 }
 
 // ForgetTranspose drops the transpose that MulVecTrans keeps for a, to free
-// its memory or because a's arrays were changed in place.
+// its memory, and forgets that a's arrays were checked: call it after
+// changing a's arrays in place.
 func (a *CSR) ForgetTranspose() {
-	transCache.Delete(weakKey(a))
+	matCache.Delete(weakKey(a))
 }
 
 // sameArrays reports whether a and b have identical dimensions, pattern and
@@ -145,6 +207,3 @@ func sameArrays(a, b *CSR) bool {
 	}
 	return true
 }
-
-// weakKey is the transCache key of a.
-func weakKey(a *CSR) weak.Pointer[CSR] { return weak.Make(a) }
