@@ -1,7 +1,10 @@
 // Package metrics holds the service's Prometheus metrics and serves them in
 // the Prometheus text exposition format, through
-// github.com/prometheus/client_golang. The gRPC service calls the hooks as
-// things happen; the HTTP side (package web) serves Handler at /metrics.
+// github.com/prometheus/client_golang. Package web serves Handler at
+// /metrics and counts the jobs' lifecycle from the job registry it follows
+// (SolveStarted, SolveFinished, IterationsDone); the gRPC service reports
+// what only it sees (UploadBytes, SetStoredBytes); ObserveQueue reads the
+// registry's queue at each scrape.
 //
 // # Metrics
 //
@@ -13,7 +16,7 @@
 //	residua_solves_running                       gauge     jobs iterating now
 //	residua_solves_queued                        gauge     jobs waiting for a slot
 //	residua_iterations_total                     counter   Krylov iterations done
-//	residua_solve_duration_seconds               histogram wall time of a job, start to end
+//	residua_solve_duration_seconds               histogram wall time of a job, submission to end
 //	residua_upload_bytes_total                   counter   bytes received by uploads
 //	residua_stored_matrix_bytes                  gauge     bytes of stored matrices
 //	residua_cached_preconditioner_bytes          gauge     bytes of cached preconditioners

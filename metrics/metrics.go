@@ -46,7 +46,7 @@ func New() *Metrics {
 		// tens of minutes.
 		duration: prometheus.NewHistogram(prometheus.HistogramOpts{
 			Name:    "residua_solve_duration_seconds",
-			Help:    "Wall time of a solve job from its start to its end.",
+			Help:    "Wall time of a solve job from its submission to its end, queueing included.",
 			Buckets: prometheus.ExponentialBuckets(0.01, 4, 10),
 		}),
 		uploadBytes: prometheus.NewCounter(prometheus.CounterOpts{
@@ -90,7 +90,7 @@ func (m *Metrics) SolveStarted() {
 }
 
 // SolveFinished counts a job that ended with the given outcome (one of
-// Outcomes) after running for d (from its start, not its queueing).
+// Outcomes), d after it was submitted.
 func (m *Metrics) SolveFinished(outcome string, d time.Duration) {
 	if m == nil {
 		return

@@ -124,10 +124,12 @@ func (f *fakeSource) finish(id string, state pb.JobState, status string, finishe
 		j.State = state
 		j.FinishedUnix = finishedUnix
 		if status != "" {
-			j.Results = append(j.Results, &pb.SolveResult{Status: status, Converged: status == "converged"})
+			r := &pb.SolveResult{Status: status, Converged: status == "converged", Iterations: j.GetLastProgress().GetIteration()}
+			j.Results = append(j.Results, r)
 			j.RhsDone++
+			f.events[id] = append(f.events[id], &pb.JobEvent{JobId: id, Event: &pb.JobEvent_Result{Result: r}})
 		}
-		f.events[id] = append(f.events[id], &pb.JobEvent{JobId: id, Event: &pb.JobEvent_Finished{Finished: &pb.Finished{State: state}}})
+		f.events[id] = append(f.events[id], &pb.JobEvent{JobId: id, Event: &pb.JobEvent_Finished{Finished: &pb.Finished{State: state, ElapsedSeconds: finishedUnix - j.GetCreatedUnix()}}})
 	})
 }
 

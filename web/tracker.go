@@ -6,6 +6,7 @@ import (
 	"time"
 
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/metrics"
 	pb "github.com/residua/residua/proto/residua/v1"
 )
 
@@ -22,6 +23,7 @@ const maxRows = 4096
 type tracker struct {
 	src  Source
 	poll time.Duration
+	m    *metrics.Metrics // nil: count nothing
 
 	ctx    context.Context
 	cancel context.CancelFunc
@@ -62,9 +64,9 @@ func (s *series) all() []krylov.Progress {
 	return out
 }
 
-func newTracker(src Source, poll time.Duration) *tracker {
+func newTracker(src Source, poll time.Duration, m *metrics.Metrics) *tracker {
 	ctx, cancel := context.WithCancel(context.Background())
-	t := &tracker{src: src, poll: poll, ctx: ctx, cancel: cancel, jobs: map[string]*tracked{}, changed: make(chan struct{})}
+	t := &tracker{src: src, poll: poll, m: m, ctx: ctx, cancel: cancel, jobs: map[string]*tracked{}, changed: make(chan struct{})}
 	t.refresh()
 	t.wg.Add(1)
 	go t.loop()
@@ -154,6 +156,10 @@ func (t *tracker) follow(ctx context.Context, id string, tj *tracked) {
 		return // forgotten between the list and the subscription
 	}
 	defer sub.Close()
+	// Each job is followed once from its first event, so the job
+	// lifecycle metrics are counted here, from the registry itself.
+	t.m.SolveStarted()
+	outcome := ""
 	for {
 		ev, err := sub.Next(ctx)
 		if err != nil {
@@ -165,7 +171,22 @@ func (t *tracker) follow(ctx context.Context, id string, tj *tracked) {
 			t.notify()
 			t.mu.Unlock()
 		}
-		if ev.GetFinished() != nil {
+		if r := ev.GetResult(); r != nil {
+			t.m.IterationsDone(int(r.GetIterations()))
+			if outcome == "" || outcome == "converged" {
+				outcome = r.GetStatus()
+			}
+		}
+		if f := ev.GetFinished(); f != nil {
+			switch f.GetState() {
+			case pb.JobState_CANCELLED:
+				outcome = "cancelled"
+			case pb.JobState_FAILED:
+				if outcome == "" || outcome == "converged" {
+					outcome = "failed"
+				}
+			}
+			t.m.SolveFinished(outcome, time.Duration(f.GetElapsedSeconds()*1e9))
 			t.mu.Lock()
 			tj.done = true
 			tj.version++

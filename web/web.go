@@ -28,7 +28,10 @@ var static embed.FS
 
 // Options control a Server. The zero value works.
 type Options struct {
-	// Metrics, when set, is served at /metrics.
+	// Metrics, when set, is served at /metrics, and the page counts the
+	// jobs it follows into it: solves started, finished by outcome, their
+	// durations and iterations (see package metrics). The service itself
+	// only reports the bytes it receives and stores.
 	Metrics *metrics.Metrics
 	// Poll is how often the job list is read. Default 250 ms.
 	Poll time.Duration
@@ -59,7 +62,7 @@ func New(src Source, opt Options) *Server {
 	if opt.Now == nil {
 		opt.Now = time.Now
 	}
-	s := &Server{opt: opt, t: newTracker(src, opt.Poll), mux: http.NewServeMux()}
+	s := &Server{opt: opt, t: newTracker(src, opt.Poll, opt.Metrics), mux: http.NewServeMux()}
 	sub, _ := fs.Sub(static, "static")
 	files := http.FileServerFS(sub)
 	s.mux.Handle("GET /{$}", files)

@@ -274,31 +274,72 @@ func TestEventStream(t *testing.T) {
 }
 
 // /metrics parses as the Prometheus text format (with the client library's
-// parser) and shows the hooks the service calls.
+// parser), and the counters the page keeps from the registry move as jobs
+// finish.
 func TestMetricsEndpoint(t *testing.T) {
 	m := metrics.New()
-	_, ts := fixture(t, Options{Metrics: m})
-	scrape := func() float64 {
+	src, ts := fixture(t, Options{Metrics: m})
+	scrape := func() map[string]float64 {
 		body, _ := get(t, ts.URL+"/metrics", 200)
-		p := expfmt.NewTextParser(model.UTF8Validation)
-		fams, err := p.TextToMetricFamilies(strings.NewReader(body))
-		if err != nil {
-			t.Fatal(err)
-		}
-		for _, mt := range fams["residua_solves_finished_total"].GetMetric() {
-			if mt.GetLabel()[0].GetValue() == "converged" {
-				return mt.GetCounter().GetValue()
+		return parseMetrics(t, body)
+	}
+	// Job ja converged after 40 iterations; jb runs.
+	want := map[string]float64{
+		"residua_solves_started_total":                             2,
+		`residua_solves_finished_total{outcome="converged"}`:       1,
+		`residua_solves_finished_total{outcome="iteration-limit"}`: 0,
+		"residua_iterations_total":                                 40,
+		"residua_solve_duration_seconds_count":                     1,
+	}
+	check := func(want map[string]float64) {
+		t.Helper()
+		got := scrape()
+		for k, v := range want {
+			if got[k] != v {
+				t.Errorf("%s = %v, want %v", k, got[k], v)
 			}
 		}
-		t.Fatal("no residua_solves_finished_total{outcome=converged}")
-		return 0
 	}
-	before := scrape()
-	m.SolveStarted()
-	m.SolveFinished("converged", time.Second)
-	if after := scrape(); after != before+1 {
-		t.Errorf("finished converged %v → %v", before, after)
+	check(want)
+	src.progress("jb", 0, 100, 120, 0.9)
+	src.finish("jb", pb.JobState_FINISHED, "iteration-limit", unix(t0.Add(9*time.Second)))
+	waitUntil(t, func() bool { return scrape()["residua_solve_duration_seconds_count"] == 2 })
+	want[`residua_solves_finished_total{outcome="iteration-limit"}`] = 1
+	want["residua_iterations_total"] = 40 + 120
+	want["residua_solve_duration_seconds_count"] = 2
+	check(want)
+}
+
+// parseMetrics reads the Prometheus text format with the client library's
+// parser and returns each counter, gauge and histogram count by name and
+// outcome label.
+func parseMetrics(t *testing.T, body string) map[string]float64 {
+	t.Helper()
+	p := expfmt.NewTextParser(model.UTF8Validation)
+	fams, err := p.TextToMetricFamilies(strings.NewReader(body))
+	if err != nil {
+		t.Fatalf("/metrics is not in the Prometheus text format: %v", err)
 	}
+	out := map[string]float64{}
+	for name, f := range fams {
+		for _, mt := range f.GetMetric() {
+			key := name
+			for _, l := range mt.GetLabel() {
+				if l.GetName() == "outcome" {
+					key += `{outcome="` + l.GetValue() + `"}`
+				}
+			}
+			switch {
+			case mt.GetCounter() != nil:
+				out[key] = mt.GetCounter().GetValue()
+			case mt.GetGauge() != nil:
+				out[key] = mt.GetGauge().GetValue()
+			case mt.GetHistogram() != nil:
+				out[key+"_count"] = float64(mt.GetHistogram().GetSampleCount())
+			}
+		}
+	}
+	return out
 }
 
 // A long solve's rows are thinned to a bounded number that still spans the
