@@ -435,7 +435,7 @@ func cgCheckRho(k int, rho float64, z []float64, precond bool) error {
 	}
 	if !cgFinite(rho) {
 		if precond && cgFirstNotFinite(z) >= 0 {
-			return cgNotFinite(k, "preconditioned residual z = M⁻¹r", z, "", 0)
+			return cgNotFinite(k, "preconditioned residual z = M⁻¹·r", z, "", 0)
 		}
 		return &BreakdownError{Iteration: k, Quantity: "rᵀz", Value: rho, Err: ErrNotFinite}
 	}
@@ -458,7 +458,7 @@ func cgFirstNotFinite(v []float64) int {
 // entry of vector v (called name), or, when v has none, the scalar.
 func cgNotFinite(k int, name string, v []float64, scalar string, value float64) error {
 	if i := cgFirstNotFinite(v); i >= 0 {
-		return &BreakdownError{Iteration: k, Quantity: fmt.Sprintf("%s[%d]", name, i), Value: v[i], Err: ErrNotFinite}
+		return &BreakdownError{Iteration: k, Quantity: fmt.Sprintf("%s, entry %d", name, i), Value: v[i], Err: ErrNotFinite}
 	}
 	return &BreakdownError{Iteration: k, Quantity: scalar, Value: value, Err: ErrNotFinite}
 }

@@ -479,11 +479,13 @@ func TestCGBreakdowns(t *testing.T) {
 		{"preconditioner", cgDiagOp{1, 2}, cgScale(-1), []float64{1, 1}, nil, krylov.ErrPreconditionerNotSPD,
 			"preconditioner is not positive definite (rᵀz = -2 at iteration 0)"},
 		{"NaN in b", cgDiagOp{1, 2}, nil, []float64{1, nan}, nil, krylov.ErrNotFinite,
-			"NaN or Inf appeared (right-hand side b[1] = NaN at iteration 0)"},
+			"NaN or Inf appeared (right-hand side b, entry 1 = NaN at iteration 0)"},
 		{"NaN in X0", cgDiagOp{1, 2}, nil, []float64{1, 1}, []float64{nan, 0}, krylov.ErrNotFinite,
-			"NaN or Inf appeared (start X0[0] = NaN at iteration 0)"},
+			"NaN or Inf appeared (start X0, entry 0 = NaN at iteration 0)"},
+		{"NaN from preconditioner", cgDiagOp{1, 2}, cgNaNPrecond{}, []float64{1, 1}, nil, krylov.ErrNotFinite,
+			"NaN or Inf appeared (preconditioned residual z = M⁻¹·r, entry 1 = NaN at iteration 0)"},
 		{"NaN in operator", cgNaNAfter{cgDiagOp{1, 2, 3, 4}, 3, new(int)}, nil, []float64{1, 1, 1, 1}, nil, krylov.ErrNotFinite,
-			"NaN or Inf appeared (product A·p[2] = NaN at iteration 3)"},
+			"NaN or Inf appeared (product A·p, entry 2 = NaN at iteration 3)"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -502,6 +504,14 @@ func TestCGBreakdowns(t *testing.T) {
 			}
 		})
 	}
+}
+
+// cgNaNPrecond puts a NaN in entry 1 of z.
+type cgNaNPrecond struct{}
+
+func (cgNaNPrecond) Precondition(dst, r []float64) {
+	copy(dst, r)
+	dst[1] = math.NaN()
 }
 
 // cgNaNAfter returns NaN in entry 2 of its product from the given call on.

@@ -89,7 +89,7 @@ var (
 // which iteration. It wraps one of the named reasons above.
 type BreakdownError struct {
 	Iteration int
-	Quantity  string  // e.g. "pᵀAp", "rᵀz", "residual vector"
+	Quantity  string  // e.g. "pᵀAp", "rᵀz", "residual r, entry 7"
 	Value     float64 // the offending value (NaN or ±Inf for ErrNotFinite)
 	Err       error
 }
