@@ -189,11 +189,10 @@ func TestSharedMatrices(t *testing.T) {
 				if len(x) != e.Rows*e.Cols || info.Rows != e.Rows || info.Cols != e.Cols || info.Entries != e.StoredEntries {
 					t.Errorf("vector of %d (%d×%d, %d entries), manifest says %d×%d with %d", len(x), info.Rows, info.Cols, info.Entries, e.Rows, e.Cols, e.StoredEntries)
 				}
-				y, _, err := ReadVector(bytes.NewReader(gzipBytes(t, text)), nil)
-				if err == nil {
+				if _, _, err := ReadVector(bytes.NewReader(gzipBytes(t, text)), nil); err == nil {
 					t.Error("ReadVector accepted gzip bytes; decompression belongs to the loader")
 				}
-				y, _, err = ReadVector(bytes.NewReader(text), nil)
+				y, _, err := ReadVector(bytes.NewReader(text), nil)
 				if err != nil {
 					t.Fatal(err)
 				}

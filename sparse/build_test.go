@@ -2,6 +2,7 @@ package sparse
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"strings"
@@ -431,4 +432,27 @@ func TestAssembler(t *testing.T) {
 	if err := asm.Add(Triplets{I: []int32{5}, J: []int32{7}, V: []float64{1}}); err != nil || asm.rowPtr != nil {
 		t.Errorf("Add: %v; row counts allocated: %v", err, asm.rowPtr != nil)
 	}
+}
+
+// A made-up truss of three joints, assembled from its members' contributions
+// as a finite-element code would: entries that meet at the same place are
+// summed, and one triangle is enough for a symmetric stiffness matrix.
+func ExampleFromTriplets() {
+	i := []int32{0, 1, 1, 1, 2, 2}
+	j := []int32{0, 0, 1, 1, 1, 2}
+	v := []float64{2, -1, 1, 1, -1, 1} // joint 1 gets 1 from each of its two members
+	a, stats, err := FromTriplets(3, 3, i, j, v, BuildOptions{Symmetry: Symmetric})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	fmt.Println("row pointers:", a.RowPtr)
+	fmt.Println("columns:     ", a.ColIdx)
+	fmt.Println("values:      ", a.Val)
+	fmt.Println("duplicates summed:", stats.Duplicates)
+	// Output:
+	// row pointers: [0 2 5 7]
+	// columns:      [0 1 0 1 2 1 2]
+	// values:       [2 -1 -1 2 -1 -1 1]
+	// duplicates summed: 1
 }
