@@ -288,3 +288,27 @@ func TestLogConcurrentReaders(t *testing.T) {
 		t.Errorf("Result = %+v", r)
 	}
 }
+
+// The cost a recorder adds to each solver iteration (compare with the
+// solver's own time per iteration in krylov's benchmarks).
+func BenchmarkRecord(b *testing.B) {
+	p := krylov.Progress{Iteration: 123456, Elapsed: 1234567891, ResidualNorm: math.Pi * 1e-5, RelResidual: math.E * 1e-7}
+	for _, f := range []Format{CSV, JSONLines} {
+		b.Run("Writer/"+f.String(), func(b *testing.B) {
+			w := NewWriter(io.Discard, Options{Format: f})
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				p.Iteration = i
+				w.Record(p)
+			}
+		})
+	}
+	b.Run("Log", func(b *testing.B) {
+		var l Log
+		b.ReportAllocs()
+		for i := 0; i < b.N; i++ {
+			p.Iteration = i
+			l.Record(p)
+		}
+	})
+}

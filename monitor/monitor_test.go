@@ -306,3 +306,19 @@ func TestConcurrentRecord(t *testing.T) {
 		t.Errorf("after Finish:\n%s", got)
 	}
 }
+
+// The cost the monitor adds to each solver iteration: Record only stores.
+func BenchmarkRecord(b *testing.B) {
+	m := New(io.Discard, Options{Mode: Panel, Size: func() (int, int, error) { return 120, 40, nil }, Target: 1e-10})
+	defer m.Close()
+	rows := make([]krylov.Progress, 4096)
+	for i := range rows {
+		rows[i] = geometric(i, 0.999)
+	}
+	b.ReportAllocs()
+	for i := 0; i < b.N; i++ {
+		p := rows[i%len(rows)]
+		p.Iteration = i
+		m.Record(p)
+	}
+}
