@@ -17,14 +17,16 @@ import (
 // the other triangle could not be restored from the file.
 var ErrNotSymmetric = errors.New("matrixio: matrix is not exactly symmetric")
 
-// WriteMatrix writes a as a Matrix Market coordinate real file (Boisvert,
-// Pozo, Remington, NIST, 1996). With sym General every stored entry is
+// WriteMatrix writes a as a Matrix Market coordinate file (Boisvert, Pozo,
+// Remington, NIST, 1996), with field "integer" when every value is an
+// integer of magnitude at most 2^53 (and none is negative zero), else
+// "real". With sym General every stored entry is
 // written; with Symmetric only the lower triangle and the diagonal, with the
 // size line counting just those; with SkewSymmetric the strictly lower
 // triangle (and any zero diagonal entries, so that the pattern survives).
 // Entries go out row by row in column order. Each value is the shortest
-// decimal that reads back to the same float64 (strconv 'g', -1), so integral
-// values appear as integers and write→read is exact.
+// decimal that reads back to the same float64 (strconv 'g', -1), integral
+// values as plain integers, so write→read is exact.
 //
 // WriteMatrix returns an error, having written nothing, if a holds NaN or an
 // infinity (the format has no place for them), or if sym asks for one
@@ -52,8 +54,13 @@ func WriteMatrix(w io.Writer, a *sparse.CSR, sym sparse.Symmetry) error {
 	if !ok {
 		bw = bufio.NewWriterSize(w, 1<<16)
 	}
+	field := "real "
+	if allIntegral(a.Val) {
+		field = "integer "
+	}
 	buf := make([]byte, 0, 128)
-	buf = append(buf, "%%MatrixMarket matrix coordinate real "...)
+	buf = append(buf, "%%MatrixMarket matrix coordinate "...)
+	buf = append(buf, field...)
 	buf = append(buf, sym.String()...)
 	buf = append(buf, '\n')
 	buf = strconv.AppendInt(buf, int64(a.Rows), 10)
@@ -75,7 +82,7 @@ func WriteMatrix(w io.Writer, a *sparse.CSR, sym sparse.Symmetry) error {
 			buf = append(buf, ' ')
 			buf = strconv.AppendInt(buf, int64(c+1), 10)
 			buf = append(buf, ' ')
-			buf = strconv.AppendFloat(buf, a.Val[p], 'g', -1, 64)
+			buf = appendValue(buf, a.Val[p])
 			buf = append(buf, '\n')
 			if _, err := bw.Write(buf); err != nil {
 				return err
@@ -137,8 +144,9 @@ func checkSymmetric(a *sparse.CSR, sym sparse.Symmetry) (int, error) {
 	return lower, nil
 }
 
-// WriteVector writes x as a Matrix Market array real general file of
-// len(x)×1, one value per line in the shortest form that reads back exactly.
+// WriteVector writes x as a Matrix Market array general file of len(x)×1
+// (field "integer" or "real" as for WriteMatrix), one value per line in the
+// shortest form that reads back exactly.
 // It returns an error, having written nothing, if x holds NaN or an infinity.
 func WriteVector(w io.Writer, x []float64) error {
 	for i, v := range x {
@@ -151,18 +159,49 @@ func WriteVector(w io.Writer, x []float64) error {
 		bw = bufio.NewWriterSize(w, 1<<16)
 	}
 	buf := make([]byte, 0, 64)
-	buf = append(buf, "%%MatrixMarket matrix array real general\n"...)
+	if allIntegral(x) {
+		buf = append(buf, "%%MatrixMarket matrix array integer general\n"...)
+	} else {
+		buf = append(buf, "%%MatrixMarket matrix array real general\n"...)
+	}
 	buf = strconv.AppendInt(buf, int64(len(x)), 10)
 	buf = append(buf, " 1\n"...)
 	if _, err := bw.Write(buf); err != nil {
 		return err
 	}
 	for _, v := range x {
-		buf = strconv.AppendFloat(buf[:0], v, 'g', -1, 64)
+		buf = appendValue(buf[:0], v)
 		buf = append(buf, '\n')
 		if _, err := bw.Write(buf); err != nil {
 			return err
 		}
 	}
 	return bw.Flush()
+}
+
+// exactInt reports whether v is an integer that float64 and int64 both hold
+// exactly (|v| ≤ 2^53) and is not negative zero, which an integer field
+// cannot express.
+func exactInt(v float64) bool {
+	return v == math.Trunc(v) && math.Abs(v) <= 1<<53 && !(v == 0 && math.Signbit(v))
+}
+
+// allIntegral reports whether every value can be written in an integer
+// field and read back to the same bits.
+func allIntegral(vals []float64) bool {
+	for _, v := range vals {
+		if !exactInt(v) {
+			return false
+		}
+	}
+	return true
+}
+
+// appendValue writes v as an integer when it is one (exactInt), else as the
+// shortest decimal that reads back to the same float64 (strconv 'g', -1).
+func appendValue(buf []byte, v float64) []byte {
+	if exactInt(v) {
+		return strconv.AppendInt(buf, int64(v), 10)
+	}
+	return strconv.AppendFloat(buf, v, 'g', -1, 64)
 }
