@@ -98,6 +98,7 @@ type solveReport struct {
 	PreconditionerBytes  *int64 `json:"preconditioner_bytes,omitempty"`
 	PreconditionerCached *bool  `json:"preconditioner_from_cache,omitempty"`
 	ReadSeconds          num    `json:"read_seconds"`
+	UploadSeconds        *num   `json:"upload_seconds,omitempty"` // remote: the server's receive and parse time
 	SetupSeconds         num    `json:"setup_seconds"`
 	SolveSeconds         num    `json:"solve_seconds"`
 	SecondsPerIteration  num    `json:"seconds_per_iteration"`
@@ -208,6 +209,9 @@ func (r *solveReport) writeText(w io.Writer) {
 	}
 	if r.ReadSeconds > 0 {
 		timeLine += fmt.Sprintf(", read %s", fmtSec(r.ReadSeconds))
+	}
+	if r.UploadSeconds != nil {
+		timeLine += fmt.Sprintf(", upload %s", fmtSec(*r.UploadSeconds))
 	}
 	fmt.Fprintf(w, "  time              %s\n", timeLine)
 	for _, f := range []struct{ label, path string }{{"solution", r.SolutionFile}, {"history", r.HistoryFile}, {"plot", r.PlotFile}} {

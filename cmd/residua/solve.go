@@ -44,7 +44,14 @@ rate, estimated time left) or a plain line every few seconds otherwise;
 
 The solution (-o) is written only when the solve converged, atomically; the
 history (--history, .csv or .json lines) and the picture (--plot, .svg or
-.png) are written whatever the outcome, since they show what happened.`
+.png) are written whatever the outcome, since they show what happened.
+
+With --server ADDR (or $RESIDUA_SERVER) the solve runs on a residua server
+(see 'residua serve'): the matrix is uploaded named after its file, and the
+flags, display, summary, outputs and exit statuses are those of a local
+solve. The answer is bitwise the one a local solve gives on a machine with
+the same number of processors. --detach starts the job, prints its id and
+returns; follow it with 'residua watch JOB'.`
 
 // solveOpts are the flags shared by solve, demo and (in part) lsq.
 type solveOpts struct {
@@ -113,6 +120,9 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
 	f.StringVar(&o.precond, "precond", "auto", "preconditioner: auto, none, jacobi or ic0")
 	addRunFlags(f, o)
+	so := &serverOpts{}
+	addServerFlags(f, so)
+	detach := f.Bool("detach", false, "with --server: start the job, print its id and return (the job keeps its solution for 'residua watch JOB -o x.mtx')")
 	pos, err := f.parse(e, args)
 	if err == errHelp {
 		return nil
@@ -129,6 +139,13 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	kind, err := precond.ParseKind(o.precond)
 	if err != nil {
 		return usageErrorf("solve: --precond: %v", err)
+	}
+	so.resolve()
+	if so.addr != "" {
+		return remoteSolve(ctx, e, pos[0], o, so, *detach)
+	}
+	if *detach {
+		return usageErrorf("solve: --detach needs --server (or $%s)", envServer)
 	}
 	p, err := loadProblem(pos[0], o.b)
 	if err != nil {

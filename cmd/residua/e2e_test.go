@@ -1,0 +1,270 @@
+package main
+
+import (
+	"bufio"
+	"bytes"
+	"encoding/json"
+	"errors"
+	"io"
+	"math"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/residua/residua/matrixio"
+)
+
+// buildBinary compiles residua into a temporary folder.
+func buildBinary(t *testing.T) string {
+	t.Helper()
+	bin := filepath.Join(t.TempDir(), "residua")
+	cmd := exec.Command("go", "build", "-o", bin, ".")
+	if out, err := cmd.CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	return bin
+}
+
+// server is a running 'residua serve' process.
+type server struct {
+	cmd       *exec.Cmd
+	grpc, web string
+	stderr    *bytes.Buffer // everything it printed, once it has exited
+	done      chan error
+}
+
+// startServer runs 'residua serve' on loopback ports picked at run time
+// (port 0) and reads the addresses it prints.
+func startServer(t *testing.T, bin string) *server {
+	t.Helper()
+	cmd := exec.Command(bin, "serve", "--listen", "127.0.0.1:0", "--http", "127.0.0.1:0", "--shutdown-grace", "2s")
+	pipe, err := cmd.StderrPipe()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	s := &server{cmd: cmd, stderr: &bytes.Buffer{}, done: make(chan error, 1)}
+	addrs := make(chan [2]string, 1)
+	go func() {
+		sc := bufio.NewScanner(pipe)
+		var a [2]string
+		for sc.Scan() {
+			line := sc.Text()
+			s.stderr.WriteString(line + "\n")
+			if v, ok := strings.CutPrefix(line, "residua: serving gRPC on "); ok {
+				a[0] = v
+			}
+			if v, ok := strings.CutPrefix(line, "residua: watch page on "); ok {
+				a[1] = strings.TrimSuffix(strings.TrimPrefix(v, "http://"), "/")
+				addrs <- a
+			}
+		}
+		s.done <- cmd.Wait()
+	}()
+	t.Cleanup(func() {
+		if cmd.ProcessState == nil {
+			cmd.Process.Kill()
+			<-s.done
+		}
+	})
+	select {
+	case a := <-addrs:
+		s.grpc, s.web = a[0], a[1]
+	case err := <-s.done:
+		t.Fatalf("server exited: %v\n%s", err, s.stderr)
+	case <-time.After(20 * time.Second):
+		t.Fatal("server printed no address within 20 s")
+	}
+	return s
+}
+
+// cli runs the binary and returns stdout, stderr and the exit status.
+func cli(t *testing.T, bin string, args ...string) (string, string, int) {
+	t.Helper()
+	cmd := exec.Command(bin, args...)
+	var out, errb bytes.Buffer
+	cmd.Stdout, cmd.Stderr = &out, &errb
+	err := cmd.Run()
+	var ee *exec.ExitError
+	switch {
+	case errors.As(err, &ee):
+		return out.String(), errb.String(), ee.ExitCode()
+	case err != nil:
+		t.Fatalf("running %q: %v", args, err)
+	}
+	return out.String(), errb.String(), 0
+}
+
+func decodeReport(t *testing.T, stdout string) solveReport {
+	t.Helper()
+	var rep solveReport
+	if err := json.Unmarshal([]byte(stdout), &rep); err != nil {
+		t.Fatalf("not a JSON summary: %v\n%s", err, stdout)
+	}
+	return rep
+}
+
+// End to end with the real binary: a server on a loopback port picked at
+// run time; a shared SuiteSparse matrix uploaded and solved through the
+// CLI with --json; the solution's true residual checked here; remote and
+// local solutions bitwise equal (the same krylov and precond code at the
+// same worker count); detach, watch, jobs and cancel; the watch page's job
+// list; a malformed upload refused with its line; shutdown on SIGTERM.
+func TestEndToEnd(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds and runs the binary")
+	}
+	matrix := sharedMatrix(t, "bcsstk14.mtx")
+	bin := buildBinary(t)
+	srv := startServer(t, bin)
+	dir := t.TempDir()
+	xr, xl := filepath.Join(dir, "remote.mtx"), filepath.Join(dir, "local.mtx")
+
+	stdout, stderr, code := cli(t, bin, "solve", "--server", srv.grpc, matrix, "--json", "-o", xr)
+	if code != 0 {
+		t.Fatalf("remote solve: exit %d\n%s", code, stderr)
+	}
+	remote := decodeReport(t, stdout)
+	if !remote.Converged || remote.JobID == "" || remote.Server != srv.grpc || remote.Preconditioner == "" {
+		t.Errorf("remote summary: %+v", remote)
+	}
+	stdout, stderr, code = cli(t, bin, "solve", matrix, "--json", "--quiet", "-o", xl)
+	if code != 0 {
+		t.Fatalf("local solve: exit %d\n%s", code, stderr)
+	}
+	local := decodeReport(t, stdout)
+	if remote.Iterations != local.Iterations || remote.Preconditioner != local.Preconditioner {
+		t.Errorf("remote %d iterations with %s, local %d with %s", remote.Iterations, remote.Preconditioner, local.Iterations, local.Preconditioner)
+	}
+	a, _, err := matrixio.ReadMatrixFile(matrix, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x1, _, err := matrixio.ReadVectorFile(xr, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x2, _, err := matrixio.ReadVectorFile(xl, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range x1 {
+		if math.Float64bits(x1[i]) != math.Float64bits(x2[i]) {
+			t.Fatalf("x[%d]: remote %v, local %v", i, x1[i], x2[i])
+		}
+	}
+	b := make([]float64, a.Rows)
+	a.MulVec(b, onesVec(a.Cols))
+	r := make([]float64, a.Rows)
+	a.MulVec(r, x1)
+	for i := range r {
+		r[i] = b[i] - r[i]
+	}
+	if rel := norm2(r) / norm2(b); rel > 1e-8 {
+		t.Errorf("true relative residual of the received x is %g > rtol 1e-8", rel)
+	}
+
+	// A detached job, then watch it to the end and download its solution.
+	gen := filepath.Join(dir, "j.mtx")
+	if _, stderr, code := cli(t, bin, "generate", "jump3d", "--size", "24", "-o", gen); code != 0 {
+		t.Fatal(stderr)
+	}
+	stdout, stderr, code = cli(t, bin, "solve", "--server", srv.grpc, gen, "--precond", "jacobi", "--detach")
+	if code != 0 {
+		t.Fatalf("detach: exit %d\n%s", code, stderr)
+	}
+	job := strings.TrimSpace(stdout)
+	xw := filepath.Join(dir, "watched.mtx")
+	stdout, stderr, code = cli(t, bin, "watch", job, "--server", srv.grpc, "--json", "-o", xw)
+	if code != 0 {
+		t.Fatalf("watch: exit %d\n%s", code, stderr)
+	}
+	if w := decodeReport(t, stdout); !w.Converged || w.JobID != job || w.SolutionFile != xw {
+		t.Errorf("watch summary: %+v", w)
+	}
+	if x, _, err := matrixio.ReadVectorFile(xw, nil); err != nil || maxErrorVsOnes(x) > 1e-2 {
+		t.Errorf("downloaded solution: %v (max |x_i − 1| %g)", err, maxErrorVsOnes(x))
+	}
+
+	// A long job (unpreconditioned CG to rtol 1e-13 on a 40³ jump3d grid
+	// takes thousands of iterations, seconds) cancelled from another
+	// client ends cancelled: exit 3.
+	big := filepath.Join(dir, "big.mtx")
+	if _, stderr, code := cli(t, bin, "generate", "jump3d", "--size", "40", "-o", big); code != 0 {
+		t.Fatal(stderr)
+	}
+	stdout, _, _ = cli(t, bin, "solve", "--server", srv.grpc, big, "--precond", "none", "--rtol", "1e-13", "--detach")
+	long := strings.TrimSpace(stdout)
+	if _, stderr, code := cli(t, bin, "cancel", long, "--server", srv.grpc); code != 0 {
+		t.Fatalf("cancel: exit %d\n%s", code, stderr)
+	}
+	stdout, _, code = cli(t, bin, "watch", long, "--server", srv.grpc, "--json")
+	if w := decodeReport(t, stdout); code != exitNotConverged || w.Status != "cancelled" {
+		t.Errorf("watch of a cancelled job: exit %d, status %q", code, w.Status)
+	}
+
+	// jobs --json lists all three with id and state.
+	stdout, _, code = cli(t, bin, "jobs", "--server", srv.grpc, "--json")
+	var list struct {
+		Jobs []struct{ ID, State string }
+	}
+	if err := json.Unmarshal([]byte(stdout), &list); err != nil || code != 0 {
+		t.Fatalf("jobs --json: exit %d, %v\n%s", code, err, stdout)
+	}
+	states := map[string]string{}
+	for _, j := range list.Jobs {
+		states[j.ID] = j.State
+	}
+	if states[remote.JobID] != "finished" || states[job] != "finished" || states[long] != "cancelled" {
+		t.Errorf("jobs: %v", states)
+	}
+
+	// The watch page lists the jobs too, and serves metrics.
+	resp, err := http.Get("http://" + srv.web + "/api/jobs")
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusOK || !strings.Contains(string(body), job) {
+		t.Errorf("/api/jobs: %s\n%s", resp.Status, body)
+	}
+	resp, err = http.Get("http://" + srv.web + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, _ = io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusOK || !strings.Contains(string(body), "residua_solves_running") {
+		t.Errorf("/metrics: %s", resp.Status)
+	}
+
+	// A malformed upload (the server parses it as it streams in) is
+	// refused with its line: exit 2.
+	bad := filepath.Join(dir, "bad.mtx")
+	os.WriteFile(bad, []byte("%%MatrixMarket matrix coordinate real symmetric\n2 2 2\n1 1 4\n3 3 4\n"), 0o644)
+	rhs := filepath.Join(dir, "b.mtx")
+	matrixio.WriteVectorFile(rhs, []float64{1, 2})
+	_, stderr, code = cli(t, bin, "solve", "--server", srv.grpc, bad, "-b", rhs)
+	if code != exitUsage || !strings.Contains(stderr, ":4") {
+		t.Errorf("malformed upload: exit %d, stderr %q", code, stderr)
+	}
+
+	// SIGTERM shuts the server down cleanly.
+	srv.cmd.Process.Signal(syscall.SIGTERM)
+	select {
+	case err := <-srv.done:
+		if err != nil {
+			t.Errorf("server exit after SIGTERM: %v\n%s", err, srv.stderr)
+		}
+	case <-time.After(20 * time.Second):
+		t.Error("server still running 20 s after SIGTERM")
+	}
+}
