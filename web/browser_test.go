@@ -41,6 +41,8 @@ func TestBrowser(t *testing.T) {
 	}
 	ctx, cancel := context.WithTimeout(context.Background(), 55*time.Second)
 	defer cancel()
+	start := time.Now()
+	phase := func(what string) { t.Logf("%5.1fs %s", time.Since(start).Seconds(), what) }
 
 	// The service, on a loopback port.
 	srv, err := api.NewServer(api.Config{Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), MaxConcurrentSolves: 2})
@@ -84,6 +86,7 @@ func TestBrowser(t *testing.T) {
 		t.Fatal(err)
 	}
 	slowID := out.JobID
+	phase("solves started")
 	defer cl.Cancel(context.Background(), slowID)
 
 	m := metrics.New()
@@ -109,6 +112,7 @@ func TestBrowser(t *testing.T) {
 	bctx, stopBrowser := chromedp.NewContext(alloc, chromedp.WithLogf(t.Logf))
 	defer stopBrowser()
 
+	phase("browser starting")
 	card := fmt.Sprintf("document.getElementById('job-%s')", slowID)
 	if err := chromedp.Do(bctx, chromedp.Navigate(hs.URL)); err != nil {
 		t.Fatal(err)
@@ -143,6 +147,7 @@ func TestBrowser(t *testing.T) {
 		}
 		return c
 	}
+	phase("chart redrawn twice")
 	running := read(slowID)
 	if running.State != "running" || running.CurvePoints < 3 || running.Iteration == "—" {
 		t.Errorf("running job's card: %+v", running)
@@ -180,6 +185,7 @@ func TestBrowser(t *testing.T) {
 	time.Sleep(600 * time.Millisecond) // one push interval, for a fresh frame
 	shot("watch-page-desktop.png")
 
+	phase("screenshots taken")
 	// Cancelling the slow job: the page shows the final state.
 	if _, err := cl.Cancel(ctx, slowID); err != nil {
 		t.Fatal(err)
@@ -189,6 +195,7 @@ func TestBrowser(t *testing.T) {
 		t.Fatalf("the cancelled job's card never said so: %+v (%v)", read(slowID), err)
 	}
 
+	phase("cancellation shown")
 	// /metrics, parsed with the Prometheus client library's text parser,
 	// has counted both jobs from the registry: one converged, one
 	// cancelled, and the iterations of both.
