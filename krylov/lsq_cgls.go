@@ -33,7 +33,7 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	r := make([]float64, m)  // recursive b − A·x
 	tm := make([]float64, m) // q = A·t and other m-scratch
 	s := make([]float64, n)  // D·(Aᵀr − λ²x)
-	dir := make([]float64, n)
+	dir := make([]float64, n) // the direction p (p names the problem here)
 	z := make([]float64, n)  // the iterate, x = D·z
 	tn := make([]float64, n) // t = D·p, then Aᵀr
 	p.z = z
