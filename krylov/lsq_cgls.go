@@ -30,12 +30,12 @@ func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
 	lam2 := lam * lam
 	done := p.ctx.Done()
 
-	r := make([]float64, m)  // recursive b − A·x
-	tm := make([]float64, m) // q = A·t and other m-scratch
-	s := make([]float64, n)  // D·(Aᵀr − λ²x)
+	r := make([]float64, m)   // recursive b − A·x
+	tm := make([]float64, m)  // q = A·t and other m-scratch
+	s := make([]float64, n)   // D·(Aᵀr − λ²x)
 	dir := make([]float64, n) // the direction p (p names the problem here)
-	z := make([]float64, n)  // the iterate, x = D·z
-	tn := make([]float64, n) // t = D·p, then Aᵀr
+	z := make([]float64, n)   // the iterate, x = D·z
+	tn := make([]float64, n)  // t = D·p, then Aᵀr
 	p.z = z
 
 	p.bnorm = math.Sqrt(lsqNorm2(b))
