@@ -16,13 +16,13 @@
 // # Endpoints
 //
 //	GET /                             the page (embedded HTML, CSS and JavaScript; no network needed)
-//	GET /api/jobs                     {"jobs": [Job, ...]}, newest first
+//	GET /api/jobs                     {"jobs": [Job, ...], "total": N}, newest first
 //	GET /api/jobs/{id}                one Job
 //	GET /api/jobs/{id}/history        {"id", "series": [{"rhs", "rows": [Row, ...]}, ...]}
 //	    ?rhs=N                        only right-hand side N (0-based)
 //	    ?format=csv|jsonl             one right-hand side (default 0) as a history file (package history)
 //	GET /api/jobs/{id}/chart.svg      the residual curves as SVG (package chart); 404 before any progress
-//	GET /api/events                   Server-Sent Events: "jobs" events carrying {"jobs": [...]}
+//	GET /api/events                   Server-Sent Events: "jobs" events carrying the 50 newest jobs and the total
 //	GET /metrics                      Prometheus text format (when Options.Metrics is set)
 //
 // Job and Row document their JSON fields. Numbers that do not exist yet,

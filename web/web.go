@@ -152,10 +152,18 @@ type Job struct {
 	Version     uint64 `json:"version"`
 }
 
-// JobList is the body of GET /api/jobs and of each "jobs" event.
+// JobList is the body of GET /api/jobs and of each "jobs" event. Total
+// counts every job the registry holds; the event stream carries only the
+// PageJobs newest of them, /api/jobs all.
 type JobList struct {
-	Jobs []Job `json:"jobs"`
+	Jobs  []Job `json:"jobs"`
+	Total int   `json:"total"`
 }
+
+// PageJobs bounds the jobs the page shows (and each event carries): a
+// server keeping a thousand finished jobs would otherwise send them all
+// twice a second.
+const PageJobs = 50
 
 func stateName(st pb.JobState) string {
 	switch st {
@@ -255,11 +263,16 @@ func (s *Server) view(j *pb.Job) Job {
 	return v
 }
 
-func (s *Server) list() JobList {
+// list describes the newest limit jobs (all when limit ≤ 0).
+func (s *Server) list(limit int) JobList {
 	s.t.mu.Lock()
 	jobs := s.t.list
 	s.t.mu.Unlock()
-	out := JobList{Jobs: make([]Job, 0, len(jobs))}
+	out := JobList{Total: len(jobs)}
+	if limit > 0 && len(jobs) > limit {
+		jobs = jobs[:limit]
+	}
+	out.Jobs = make([]Job, 0, len(jobs))
 	for _, j := range jobs {
 		out.Jobs = append(out.Jobs, s.view(j))
 	}
@@ -289,7 +302,7 @@ func notFound(w http.ResponseWriter, id string) {
 	http.Error(w, fmt.Sprintf("no job %q (unknown, or forgotten by the server)", id), http.StatusNotFound)
 }
 
-func (s *Server) jobs(w http.ResponseWriter, r *http.Request) { writeJSON(w, s.list()) }
+func (s *Server) jobs(w http.ResponseWriter, r *http.Request) { writeJSON(w, s.list(0)) }
 
 func (s *Server) job(w http.ResponseWriter, r *http.Request) {
 	j, ok := s.find(r.PathValue("id"))
@@ -478,7 +491,7 @@ func (s *Server) events(w http.ResponseWriter, r *http.Request) {
 	defer keepAlive.Stop()
 	for {
 		changed := s.t.wait()
-		body, _ := json.Marshal(s.list())
+		body, _ := json.Marshal(s.list(PageJobs))
 		if _, err := fmt.Fprintf(w, "event: jobs\ndata: %s\n\n", body); err != nil {
 			return
 		}

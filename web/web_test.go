@@ -4,6 +4,7 @@ import (
 	"bufio"
 	"encoding/json"
 	"encoding/xml"
+	"fmt"
 	"io"
 	"math"
 	"net/http"
@@ -44,7 +45,7 @@ func fixture(t *testing.T, opt Options) (*fakeSource, *httptest.Server) {
 	ts := httptest.NewServer(s)
 	t.Cleanup(func() { ts.Close(); s.Close() })
 	waitUntil(t, func() bool {
-		l := s.list()
+		l := s.list(0)
 		return len(l.Jobs) == 2 && l.Jobs[0].HistoryRows == 100 && l.Jobs[1].HistoryRows == 41
 	})
 	return src, ts
@@ -92,7 +93,7 @@ func TestJobsEndpoints(t *testing.T) {
 	if err := json.Unmarshal([]byte(body), &l); err != nil {
 		t.Fatal(err)
 	}
-	if len(l.Jobs) != 2 || l.Jobs[0].ID != "jb" || l.Jobs[1].ID != "ja" {
+	if len(l.Jobs) != 2 || l.Total != 2 || l.Jobs[0].ID != "jb" || l.Jobs[1].ID != "ja" {
 		t.Fatalf("jobs %+v", l.Jobs)
 	}
 	b, a := l.Jobs[0], l.Jobs[1]
@@ -357,5 +358,24 @@ func TestTrackerThinning(t *testing.T) {
 		if rows[i].Iteration <= rows[i-1].Iteration {
 			t.Fatalf("out of order at %d", i)
 		}
+	}
+}
+
+// The page (the event stream) carries the newest PageJobs jobs and the
+// total; /api/jobs lists them all.
+func TestPageJobsBound(t *testing.T) {
+	src := newFakeSource()
+	for i := 0; i < PageJobs+7; i++ {
+		src.add(&pb.Job{Id: fmt.Sprintf("j%03d", i), MatrixName: "m"})
+	}
+	s := New(src, Options{Poll: 5 * time.Millisecond})
+	defer s.Close()
+	waitUntil(t, func() bool { return s.list(0).Total == PageJobs+7 })
+	page := s.list(PageJobs)
+	if len(page.Jobs) != PageJobs || page.Total != PageJobs+7 || page.Jobs[0].ID != fmt.Sprintf("j%03d", PageJobs+6) {
+		t.Errorf("page: %d jobs of %d, first %s", len(page.Jobs), page.Total, page.Jobs[0].ID)
+	}
+	if all := s.list(0); len(all.Jobs) != PageJobs+7 {
+		t.Errorf("/api/jobs: %d jobs", len(all.Jobs))
 	}
 }

@@ -5,6 +5,7 @@
 
 const list = document.getElementById("jobs");
 const empty = document.getElementById("empty");
+const more = document.getElementById("more");
 const link = document.getElementById("link");
 const template = document.getElementById("job-template");
 const cards = new Map();
@@ -115,6 +116,8 @@ function render(data) {
     }
   }
   empty.hidden = data.jobs.length > 0;
+  more.hidden = data.total <= data.jobs.length;
+  more.textContent = "Showing the " + data.jobs.length + " newest of " + fmtInt.format(data.total) + " jobs; all are listed at /api/jobs.";
 }
 
 function connect() {
