@@ -39,6 +39,17 @@ const (
 	keepaliveServerTimeout = 20 * time.Second
 )
 
+// Flow-control windows for data the server receives (uploads). gRPC's
+// default starts at 64 KiB and grows with its bandwidth-delay estimate,
+// which leaves a multi-megabyte upload waiting on window updates much of
+// the time; a fixed 4 MiB per stream (a few upload chunks in flight) and
+// 16 MiB per connection keep the sender busy. They bound what one stream
+// (connection) can make the server buffer.
+const (
+	streamWindow = 4 << 20
+	connWindow   = 16 << 20
+)
+
 // Server is the residua gRPC service. Make one with NewServer and run it
 // with Serve; it serves once.
 type Server struct {
@@ -97,6 +108,8 @@ func NewServer(cfg Config) (*Server, error) {
 			Time:    keepaliveServerTime,
 			Timeout: keepaliveServerTimeout,
 		}),
+		grpc.InitialWindowSize(streamWindow),
+		grpc.InitialConnWindowSize(connWindow),
 		grpc.ChainUnaryInterceptor(s.unaryInterceptor),
 		grpc.ChainStreamInterceptor(s.streamInterceptor),
 	}

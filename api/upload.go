@@ -281,44 +281,58 @@ func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (
 func readRawArrays(r io.Reader, a *sparse.CSR, name string) error {
 	buf := make([]byte, 1<<20)
 	var off int64
-	fill := func(count, size int, put func(i int, b []byte)) error {
-		per := len(buf) / size
-		for i := 0; i < count; i += per {
-			k := min(per, count-i)
-			b := buf[:k*size]
-			if n, err := io.ReadFull(r, b); err != nil {
-				if err == io.EOF || err == io.ErrUnexpectedEOF {
-					return fmt.Errorf("%w: %s: CSR_RAW data ends at byte %d, but the sizes in the metadata need %d bytes: %w",
-						ErrInvalid, name, off+int64(n), csrBytes(int64(a.Rows), int64(len(a.Val))), io.ErrUnexpectedEOF)
-				}
-				return err
-			}
-			for j := 0; j < k; j++ {
-				put(i+j, b[j*size:(j+1)*size])
-			}
-			off += int64(len(b))
-		}
-		return nil
-	}
 	nnz := len(a.Val)
-	if err := fill(a.Rows+1, 8, func(i int, b []byte) {
-		v := int64(binary.LittleEndian.Uint64(b))
-		if v < 0 || v > int64(nnz) {
-			v = -1 // Validate reports the bad row pointer
+	// next reads the bytes of up to len(buf)/size values starting at value
+	// i of count, and returns them.
+	next := func(i, count, size int) ([]byte, error) {
+		k := min(len(buf)/size, count-i)
+		b := buf[:k*size]
+		if n, err := io.ReadFull(r, b); err != nil {
+			if err == io.EOF || err == io.ErrUnexpectedEOF {
+				return nil, fmt.Errorf("%w: %s: CSR_RAW data ends at byte %d, but the sizes in the metadata need %d bytes: %w",
+					ErrInvalid, name, off+int64(n), csrBytes(int64(a.Rows), int64(nnz)), io.ErrUnexpectedEOF)
+			}
+			return nil, err
 		}
-		a.RowPtr[i] = int(v)
-	}); err != nil {
-		return err
+		off += int64(len(b))
+		return b, nil
 	}
-	if err := fill(nnz, 4, func(i int, b []byte) { a.ColIdx[i] = int32(binary.LittleEndian.Uint32(b)) }); err != nil {
-		return err
+	for i := 0; i <= a.Rows; {
+		b, err := next(i, a.Rows+1, 8)
+		if err != nil {
+			return err
+		}
+		for ; len(b) >= 8; b = b[8:] {
+			v := int64(binary.LittleEndian.Uint64(b))
+			if v < 0 || v > int64(nnz) {
+				v = -1 // Validate reports the bad row pointer
+			}
+			a.RowPtr[i] = int(v)
+			i++
+		}
 	}
-	if err := fill(nnz, 8, func(i int, b []byte) { a.Val[i] = math.Float64frombits(binary.LittleEndian.Uint64(b)) }); err != nil {
-		return err
+	for i := 0; i < nnz; {
+		b, err := next(i, nnz, 4)
+		if err != nil {
+			return err
+		}
+		for ; len(b) >= 4; b = b[4:] {
+			a.ColIdx[i] = int32(binary.LittleEndian.Uint32(b))
+			i++
+		}
 	}
-	for i, v := range a.Val {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return invalidf("%s: CSR_RAW value %d is not finite (%g)", name, i, v)
+	for i := 0; i < nnz; {
+		b, err := next(i, nnz, 8)
+		if err != nil {
+			return err
+		}
+		for ; len(b) >= 8; b = b[8:] {
+			v := math.Float64frombits(binary.LittleEndian.Uint64(b))
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return invalidf("%s: CSR_RAW value %d is not finite (%g)", name, i, v)
+			}
+			a.Val[i] = v
+			i++
 		}
 	}
 	return nil

@@ -136,6 +136,12 @@ func Dial(ctx context.Context, addr string, opts ...Option) (*Client, error) {
 		grpc.WithKeepaliveParams(keepalive.ClientParameters{
 			Time: KeepaliveTime, Timeout: KeepaliveTimeout, PermitWithoutStream: true,
 		}),
+		// Fixed flow-control windows for what the client receives
+		// (solutions), as the server sets for uploads: gRPC's default
+		// starts at 64 KiB and makes a multi-megabyte transfer wait on
+		// window updates.
+		grpc.WithInitialWindowSize(4 << 20),
+		grpc.WithInitialConnWindowSize(16 << 20),
 	}
 	if o.tls != nil {
 		dial = append(dial, grpc.WithTransportCredentials(credentials.NewTLS(o.tls)))

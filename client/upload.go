@@ -81,14 +81,26 @@ func (c *Client) UploadCSR(ctx context.Context, a *sparse.CSR, name string) (*pb
 		TotalBytes: 8*int64(a.Rows+1) + 12*int64(nnz)}
 	return c.upload(ctx, meta, func(send func([]byte) error) error {
 		w := &chunkWriter{size: c.chunk, send: send}
-		for _, p := range a.RowPtr {
-			w.put64(uint64(p))
+		for rest := a.RowPtr; len(rest) > 0 && w.err == nil; {
+			k := w.room(8, len(rest))
+			for _, p := range rest[:k] {
+				w.buf = binary.LittleEndian.AppendUint64(w.buf, uint64(p))
+			}
+			rest = rest[k:]
 		}
-		for _, j := range a.ColIdx {
-			w.put32(uint32(j))
+		for rest := a.ColIdx; len(rest) > 0 && w.err == nil; {
+			k := w.room(4, len(rest))
+			for _, j := range rest[:k] {
+				w.buf = binary.LittleEndian.AppendUint32(w.buf, uint32(j))
+			}
+			rest = rest[k:]
 		}
-		for _, v := range a.Val {
-			w.put64(math.Float64bits(v))
+		for rest := a.Val; len(rest) > 0 && w.err == nil; {
+			k := w.room(8, len(rest))
+			for _, v := range rest[:k] {
+				w.buf = binary.LittleEndian.AppendUint64(w.buf, math.Float64bits(v))
+			}
+			rest = rest[k:]
 		}
 		return w.flush()
 	})
@@ -108,11 +120,12 @@ func (c *Client) UploadVector(ctx context.Context, x []float64, name string) (*p
 	w := &chunkWriter{size: c.chunk, send: func(b []byte) error {
 		return stream.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Chunk{Chunk: b}})
 	}}
-	for _, v := range x {
-		w.put64(math.Float64bits(v))
-		if w.err != nil {
-			break
+	for rest := x; len(rest) > 0 && w.err == nil; {
+		k := w.room(8, len(rest))
+		for _, v := range rest[:k] {
+			w.buf = binary.LittleEndian.AppendUint64(w.buf, math.Float64bits(v))
 		}
+		rest = rest[k:]
 	}
 	if err := w.flush(); err != nil {
 		return nil, closeAndRecvErr(stream, err)
@@ -152,9 +165,9 @@ func closeAndRecvErr[T any](stream interface{ CloseAndRecv() (T, error) }, err e
 	return err
 }
 
-// chunkWriter packs little-endian values into chunks of a fixed size and
-// sends each full one. A fresh buffer is used per chunk, because gRPC may
-// hold a sent message's bytes after Send returns.
+// chunkWriter packs little-endian values into chunks of about a fixed
+// size and sends each full one. A fresh buffer is used per chunk, because
+// gRPC may hold a sent message's bytes after Send returns.
 type chunkWriter struct {
 	size int
 	send func([]byte) error
@@ -162,13 +175,17 @@ type chunkWriter struct {
 	err  error
 }
 
-func (w *chunkWriter) room(n int) {
-	if len(w.buf)+n > w.size && len(w.buf) > 0 {
+// room makes space in the current chunk for up to want values of size
+// bytes, sending the chunk first if it has no room for one, and returns
+// how many fit (at least one).
+func (w *chunkWriter) room(size, want int) int {
+	if len(w.buf)+size > w.size && len(w.buf) > 0 {
 		w.emit()
 	}
 	if w.buf == nil {
-		w.buf = make([]byte, 0, max(w.size, 8))
+		w.buf = make([]byte, 0, max(w.size, size))
 	}
+	return max(1, min(want, (cap(w.buf)-len(w.buf))/size))
 }
 
 func (w *chunkWriter) emit() {
@@ -176,16 +193,6 @@ func (w *chunkWriter) emit() {
 		w.err = w.send(w.buf)
 	}
 	w.buf = nil
-}
-
-func (w *chunkWriter) put64(v uint64) {
-	w.room(8)
-	w.buf = binary.LittleEndian.AppendUint64(w.buf, v)
-}
-
-func (w *chunkWriter) put32(v uint32) {
-	w.room(4)
-	w.buf = binary.LittleEndian.AppendUint32(w.buf, v)
 }
 
 func (w *chunkWriter) flush() error {

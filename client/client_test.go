@@ -1,0 +1,139 @@
+package client_test
+
+import (
+	"context"
+	"io"
+	"log/slog"
+	"math"
+	"net"
+	"slices"
+	"testing"
+
+	"go.uber.org/goleak"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+	"google.golang.org/grpc/test/bufconn"
+
+	"github.com/residua/residua/api"
+	"github.com/residua/residua/client"
+	"github.com/residua/residua/sparse"
+	"github.com/residua/residua/sparse/stencil"
+)
+
+// TestPackLayout checks the wire form of vectors against IEEE 754
+// binary64: 1.0 is 0x3FF0000000000000 and −2.0 is 0xC000000000000000,
+// sent least significant byte first.
+func TestPackLayout(t *testing.T) {
+	got := client.Pack([]float64{1, -2})
+	want := []byte{0, 0, 0, 0, 0, 0, 0xf0, 0x3f, 0, 0, 0, 0, 0, 0, 0, 0xc0}
+	if !slices.Equal(got, want) {
+		t.Fatalf("Pack = % x, want % x", got, want)
+	}
+	x := []float64{math.Pi, math.Copysign(0, -1), math.SmallestNonzeroFloat64, math.MaxFloat64}
+	back, err := client.Unpack(client.Pack(x))
+	if err != nil || !slices.EqualFunc(back, x, func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) }) {
+		t.Fatalf("round trip %v, %v", back, err)
+	}
+	if _, err := client.Unpack(make([]byte, 9)); err == nil {
+		t.Fatalf("Unpack of 9 bytes succeeded")
+	}
+}
+
+// server starts an api server on bufconn and returns a client with the
+// given options; both stop at the end of the test, which then checks for
+// leaked goroutines.
+func server(t *testing.T, cfg api.Config, opts ...client.Option) *client.Client {
+	t.Helper()
+	sparse.Workers() // the kernels' worker pool lives as long as the process
+	ignore := goleak.IgnoreCurrent()
+	lis := bufconn.Listen(1 << 20)
+	cfg.Logger = slog.New(slog.NewTextHandler(io.Discard, nil))
+	srv, err := api.NewServer(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- srv.Serve(ctx, lis) }()
+	opts = append(opts, client.WithDialOptions(grpc.WithContextDialer(func(ctx context.Context, _ string) (net.Conn, error) {
+		return lis.DialContext(ctx)
+	})))
+	c, err := client.Dial(context.Background(), "passthrough:///bufconn", opts...)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		c.Close()
+		cancel()
+		if err := <-done; err != nil {
+			t.Error(err)
+		}
+		goleak.VerifyNone(t, ignore)
+	})
+	return c
+}
+
+// TestLargeVectors: a right-hand side too long to send inline goes up with
+// UploadVector; a kept solution comes back with DownloadSolution; odd
+// chunk sizes split values across messages.
+func TestLargeVectors(t *testing.T) {
+	c := server(t, api.Config{}, client.WithChunkSize(4093))
+	ctx := context.Background()
+	a := stencil.Poisson2D(530) // 280,900 rows: 2.2 MB per vector, over the inline budget
+	m, err := c.UploadCSR(ctx, a, "p530")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := make([]float64, a.Rows)
+	for i := range b {
+		b[i] = float64(i%11) - 5
+	}
+	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Precond: "ic0",
+		RTol: 1e-6, KeepSolution: true, Label: "big"}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if out.X != nil || !out.Results[0].Converged {
+		t.Fatalf("kept solution streamed anyway, or no convergence: %+v", out.Results[0])
+	}
+	x, err := c.DownloadSolution(ctx, out.JobID, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The stopping test of krylov.Settings on the true residual, with 1%
+	// slack for the summation order of this check.
+	ax := make([]float64, a.Rows)
+	a.MulVec(ax, x)
+	var r, nb float64
+	for i := range b {
+		r += (b[i] - ax[i]) * (b[i] - ax[i])
+		nb += b[i] * b[i]
+	}
+	if rel := math.Sqrt(r / nb); rel > 1.01e-6 {
+		t.Errorf("downloaded solution's relative residual %g", rel)
+	}
+	if _, err := c.DownloadSolution(ctx, out.JobID, 1); status.Code(err) != codes.NotFound {
+		t.Errorf("download of a missing right-hand side: %v, want NOT_FOUND", err)
+	}
+	job, err := c.Job(ctx, out.JobID)
+	if err != nil || job.GetLabel() != "big" || !job.GetSolutionKept() {
+		t.Errorf("Job: %v, %v", job, err)
+	}
+	w, err := c.Watch(ctx, out.JobID, nil)
+	if err != nil || w.Results[0] != out.Results[0] || w.State != "FINISHED" {
+		t.Errorf("Watch of the finished job: %+v, %v", w, err)
+	}
+	if n, err := c.DeleteMatrix(ctx, m.GetId()); err != nil || n < a.Bytes() {
+		t.Errorf("DeleteMatrix freed %d bytes (%v), the matrix has %d", n, err, a.Bytes())
+	}
+}
+
+// TestKeepaliveMatched: the client must not ping more often than the
+// server permits, or the server closes the connection ("too many pings")
+// and a long quiet solve stream dies with it.
+func TestKeepaliveMatched(t *testing.T) {
+	if client.KeepaliveTime < api.KeepaliveMinTime {
+		t.Fatalf("client pings every %v, the server permits every %v at most", client.KeepaliveTime, api.KeepaliveMinTime)
+	}
+}
