@@ -50,7 +50,7 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	f := newFlags("demo", "residua demo [--size N] [--contrast C] [--precond auto|none|jacobi|ic0] [flags]", demoAbout)
 	f.IntVar(&size, "size", demoSize, "grid points per side `N` (N³ unknowns)")
 	f.Float64Var(&contrast, "contrast", demoContrast, "ratio of the two materials' conductivities")
-	f.StringVar(&o.precond, "precond", "auto", "preconditioner: auto, none, jacobi or ic0")
+	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
 	addRunFlags(f, o)
 	pos, err := f.parse(e, args)
 	if err == errHelp {

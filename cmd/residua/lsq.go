@@ -50,8 +50,8 @@ func runLSQ(ctx context.Context, e *env, args []string) error {
 	f.Float64Var(&damp, "damp", 0, "damping `λ` ≥ 0: minimise ‖A·x − b‖² + λ²‖x‖²")
 	f.Float64Var(&atol, "atol", 1e-8, "relative error allowed in A (both stopping rules)")
 	f.Float64Var(&btol, "btol", 1e-8, "relative error allowed in b (the consistent-system rule)")
-	f.StringVar(&scaling, "precond", "auto", "column scaling: auto, none or colscale")
-	f.StringVar(&method, "method", "auto", "iteration: auto (LSQR), lsqr or cgls")
+	f.StringVar(&scaling, "precond", "auto", "column scaling `kind`: auto, none or colscale")
+	f.StringVar(&method, "method", "auto", "iteration `method`: auto (LSQR), lsqr or cgls")
 	addOutputFlags(f, o)
 	pos, err := f.parse(e, args)
 	if err == errHelp {

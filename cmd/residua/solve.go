@@ -118,7 +118,7 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--precond auto|none|jacobi|ic0] [flags]", solveAbout)
 	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
-	f.StringVar(&o.precond, "precond", "auto", "preconditioner: auto, none, jacobi or ic0")
+	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
 	addRunFlags(f, o)
 	so := &serverOpts{}
 	addServerFlags(f, so)
