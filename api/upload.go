@@ -78,13 +78,18 @@ func (c *chunkReader) Read(p []byte) (int, error) {
 	return n, nil
 }
 
+// maxTrailing bounds the white space accepted after a matrix, so that a
+// compressed stream of blanks cannot keep the server reading.
+const maxTrailing = 1 << 20
+
 // drain reads to the end of the stream (for the checksum) and fails when
-// more data than trailing white space follows the parsed content.
+// more data than a little trailing white space follows the parsed content.
 func (c *chunkReader) drain(r io.Reader, what string) error {
 	var buf [4096]byte
-	for {
+	for total := 0; ; {
 		n, err := r.Read(buf[:])
-		if strings.TrimSpace(string(buf[:n])) != "" {
+		total += n
+		if strings.TrimSpace(string(buf[:n])) != "" || total > maxTrailing {
 			return invalidf("%s: unexpected data after the end of the matrix", what)
 		}
 		if err == io.EOF {
