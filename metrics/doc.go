@@ -2,9 +2,11 @@
 // the Prometheus text exposition format, through
 // github.com/prometheus/client_golang. Package web serves Handler at
 // /metrics and counts the jobs' lifecycle from the job registry it follows
-// (SolveStarted, SolveFinished, IterationsDone); the gRPC service reports
-// what only it sees (UploadBytes, SetStoredBytes); ObserveQueue reads the
-// registry's queue at each scrape.
+// (SolveStarted, SolveFinished, IterationsDone). What only the service
+// knows is read at each scrape through functions it provides: the queue
+// (ObserveQueue, with api's Registry.Counts), the bytes uploaded
+// (ObserveUploads) and the bytes stored (ObserveStore). A metric whose
+// function was never given is absent rather than a misleading zero.
 //
 // # Metrics
 //
@@ -34,7 +36,7 @@
 // # Use
 //
 // New returns a Metrics with its own registry (not the global default one,
-// so tests and several servers in one process do not collide). Every hook
+// so tests and several servers in one process do not collide). Every
 // method is safe for concurrent use and does nothing on a nil *Metrics, so
-// a server without metrics just holds a nil pointer.
+// code without metrics just holds a nil pointer.
 package metrics

@@ -15,14 +15,11 @@ var Outcomes = []string{"converged", "iteration-limit", "time-limit", "stagnated
 
 // Metrics is the set of the service's metrics. Make one with New.
 type Metrics struct {
-	reg          *prometheus.Registry
-	started      prometheus.Counter
-	finished     *prometheus.CounterVec
-	iterations   prometheus.Counter
-	duration     prometheus.Histogram
-	uploadBytes  prometheus.Counter
-	matrixBytes  prometheus.Gauge
-	precondBytes prometheus.Gauge
+	reg        *prometheus.Registry
+	started    prometheus.Counter
+	finished   *prometheus.CounterVec
+	iterations prometheus.Counter
+	duration   prometheus.Histogram
 }
 
 // New returns a Metrics registered in a registry of its own.
@@ -49,20 +46,8 @@ func New() *Metrics {
 			Help:    "Wall time of a solve job from its submission to its end, queueing included.",
 			Buckets: prometheus.ExponentialBuckets(0.01, 4, 10),
 		}),
-		uploadBytes: prometheus.NewCounter(prometheus.CounterOpts{
-			Name: "residua_upload_bytes_total",
-			Help: "Bytes received by matrix and vector uploads.",
-		}),
-		matrixBytes: prometheus.NewGauge(prometheus.GaugeOpts{
-			Name: "residua_stored_matrix_bytes",
-			Help: "Bytes of the matrices the service stores.",
-		}),
-		precondBytes: prometheus.NewGauge(prometheus.GaugeOpts{
-			Name: "residua_cached_preconditioner_bytes",
-			Help: "Bytes of the preconditioners the service keeps cached.",
-		}),
 	}
-	m.reg.MustRegister(m.started, m.finished, m.iterations, m.duration, m.uploadBytes, m.matrixBytes, m.precondBytes,
+	m.reg.MustRegister(m.started, m.finished, m.iterations, m.duration,
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	// Every outcome appears from the start, at zero, so that rates over
 	// them work before the first job of that outcome.
@@ -115,24 +100,6 @@ func (m *Metrics) IterationsDone(n int) {
 	m.iterations.Add(float64(n))
 }
 
-// UploadBytes adds n bytes received by an upload.
-func (m *Metrics) UploadBytes(n int64) {
-	if m == nil || n <= 0 {
-		return
-	}
-	m.uploadBytes.Add(float64(n))
-}
-
-// SetStoredBytes sets the bytes of stored matrices and of cached
-// preconditioners.
-func (m *Metrics) SetStoredBytes(matrices, preconditioners int64) {
-	if m == nil {
-		return
-	}
-	m.matrixBytes.Set(float64(matrices))
-	m.precondBytes.Set(float64(preconditioners))
-}
-
 // ObserveQueue makes residua_solves_queued and residua_solves_running read
 // f at each scrape (api's Registry.Counts has this signature). Call it
 // once.
@@ -145,5 +112,36 @@ func (m *Metrics) ObserveQueue(f func() (queued, running int)) {
 			func() float64 { q, _ := f(); return float64(q) }),
 		prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "residua_solves_running", Help: "Solve jobs running now."},
 			func() float64 { _, r := f(); return float64(r) }),
+	)
+}
+
+// ObserveUploads makes residua_upload_bytes_total read f at each scrape: f
+// returns the bytes received by all uploads since the server started (a
+// count that only grows). Call it once.
+func (m *Metrics) ObserveUploads(f func() int64) {
+	if m == nil {
+		return
+	}
+	m.reg.MustRegister(prometheus.NewCounterFunc(prometheus.CounterOpts{
+		Name: "residua_upload_bytes_total",
+		Help: "Bytes received by matrix and vector uploads.",
+	}, func() float64 { return float64(f()) }))
+}
+
+// ObserveStore makes residua_stored_matrix_bytes and
+// residua_cached_preconditioner_bytes read f at each scrape. Call it once.
+func (m *Metrics) ObserveStore(f func() (matrices, preconditioners int64)) {
+	if m == nil {
+		return
+	}
+	m.reg.MustRegister(
+		prometheus.NewGaugeFunc(prometheus.GaugeOpts{
+			Name: "residua_stored_matrix_bytes",
+			Help: "Bytes of the matrices the service stores.",
+		}, func() float64 { a, _ := f(); return float64(a) }),
+		prometheus.NewGaugeFunc(prometheus.GaugeOpts{
+			Name: "residua_cached_preconditioner_bytes",
+			Help: "Bytes of the preconditioners the service keeps cached.",
+		}, func() float64 { _, b := f(); return float64(b) }),
 	)
 }

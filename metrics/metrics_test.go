@@ -23,8 +23,8 @@ func TestExposition(t *testing.T) {
 	m.SolveFinished("converged", 1500*time.Millisecond)
 	m.SolveFinished("no such outcome", time.Second)
 	m.IterationsDone(120)
-	m.UploadBytes(4096)
-	m.SetStoredBytes(1<<20, 1<<19)
+	m.ObserveUploads(func() int64 { return 4096 })
+	m.ObserveStore(func() (int64, int64) { return 1 << 20, 1 << 19 })
 	var nilM *Metrics
 	nilM.SolveStarted() // a server without metrics holds nil
 
