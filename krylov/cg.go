@@ -307,8 +307,7 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 
 	rho := rr
 	if m != nil {
-		m.Precondition(z, r)
-		rho = sparse.Dot(r, z)
+		rho = cgPrecondition(m, z, r)
 	}
 	if err := cgCheckRho(0, rho, z, m != nil); err != nil {
 		return Breakdown, err
@@ -408,8 +407,7 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 
 		rhoNew := rr
 		if m != nil {
-			m.Precondition(z, r)
-			rhoNew = sparse.Dot(r, z)
+			rhoNew = cgPrecondition(m, z, r)
 		}
 		if err := cgCheckRho(k, rhoNew, z, m != nil); err != nil {
 			if !xDone {

@@ -630,7 +630,7 @@ func TestCGAllocations(t *testing.T) {
 			}
 		})
 	}
-	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25)} {
+	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25), cgScaleDot(0.25)} {
 		if a10, a100 := allocs(10, m), allocs(100, m); a10 != a100 {
 			t.Errorf("preconditioner %v: %v allocations for 10 iterations, %v for 100", m, a10, a100)
 		}
@@ -642,6 +642,34 @@ type cgNopRecorder struct{}
 func (cgNopRecorder) Record(krylov.Progress) error { return nil }
 func (cgNopRecorder) Finish(*krylov.Result)        {}
 
+// cgScaleDot is cgScale with the fused PreconditionDot, its sum taken by
+// sparse.Dot as the interface requires.
+type cgScaleDot float64
+
+func (c cgScaleDot) Precondition(dst, r []float64) { cgScale(c).Precondition(dst, r) }
+func (c cgScaleDot) PreconditionDot(dst, r []float64) float64 {
+	cgScale(c).Precondition(dst, r)
+	return sparse.Dot(r, dst)
+}
+
+// TestCGDotPreconditioner: a preconditioner with PreconditionDot gives the
+// same answer, bit for bit, as the same preconditioner without it.
+func TestCGDotPreconditioner(t *testing.T) {
+	a := stencil.Poisson2D(50)
+	b := cgMul(a, cgOnes(2500))
+	x1, x2 := make([]float64, 2500), make([]float64, 2500)
+	r1, err1 := krylov.CG(context.Background(), a, b, x1, cgScale(0.25), krylov.Settings{})
+	r2, err2 := krylov.CG(context.Background(), a, b, x2, cgScaleDot(0.25), krylov.Settings{})
+	if err1 != nil || err2 != nil || r1.Status != krylov.Converged || r1.Iterations != r2.Iterations {
+		t.Fatalf("%v %v, %v after %d and %d iterations", err1, err2, r1.Status, r1.Iterations, r2.Iterations)
+	}
+	for i := range x1 {
+		if x1[i] != x2[i] {
+			t.Fatalf("x[%d]: %g vs %g", i, x1[i], x2[i])
+		}
+	}
+}
+
 // TestCGGenericOperator: an operator without sparse's fused product and
 // residual (cgOp hides them) goes through MulVec then a separate sweep. The
 // arithmetic is the same (sparse documents MulVecDot as Dot after MulVec bit
@@ -651,7 +679,7 @@ func TestCGGenericOperator(t *testing.T) {
 	a := stencil.Poisson2D(70) // above sparse's inline threshold: runs on the pool
 	b := cgMul(a, cgOnes(4900))
 	b[3] = 0
-	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25)} {
+	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25), cgScaleDot(0.25)} {
 		x1, x2 := make([]float64, 4900), make([]float64, 4900)
 		r1, err1 := krylov.CG(context.Background(), a, b, x1, m, krylov.Settings{RefreshEvery: 9, X0: cgOnes(4900)})
 		r2, err2 := krylov.CG(context.Background(), cgOp{a}, b, x2, m, krylov.Settings{RefreshEvery: 9, X0: cgOnes(4900)})

@@ -12,6 +12,7 @@ import "github.com/residua/residua/sparse"
 //	r −= α·q and rᵀr            sparse.AxpyDot
 //	x += α·p, p = z + β·p       sparse.Step
 //	r = b − A·x and rᵀr         (*sparse.CSR).Residual, or MulVec, Triad, Dot
+//	z = M⁻¹·r and rᵀz           PreconditionDot, or Precondition then Dot
 
 // mulVecDotter is an operator that can form y = A·x and xᵀy in one sweep,
 // as *sparse.CSR does.
@@ -57,4 +58,13 @@ func (op *cgOperator) residual(r, b, x []float64) float64 {
 	op.a.MulVec(r, x)
 	sparse.Triad(r, b, r, -1) // b + (−1)·y is exactly b − y
 	return sparse.Dot(r, r)
+}
+
+// cgPrecondition sets z = M⁻¹·r and returns rᵀz.
+func cgPrecondition(m Preconditioner, z, r []float64) float64 {
+	if f, ok := m.(DotPreconditioner); ok {
+		return f.PreconditionDot(z, r)
+	}
+	m.Precondition(z, r)
+	return sparse.Dot(r, z)
 }
