@@ -82,12 +82,15 @@ func openText(path, suffix string, read func(r io.Reader, name string) error) er
 	}
 	tb := bufio.NewReaderSize(r, 1<<20)
 	if head, _ := tb.Peek(512); len(head) == 512 && bytes.HasPrefix(head[257:], []byte("ustar")) {
-		name := bundleName(path)
-		want := name + "/" + name + suffix + ".mtx"
+		// The collection's layout is NAME/NAME.mtx (and NAME/NAME_b.mtx)
+		// in NAME.tar.gz. The member is found by that shape, so a bundle
+		// saved under another file name still reads.
 		tr := tar.NewReader(tb)
 		for {
 			hdr, err := tr.Next()
 			if err == io.EOF {
+				name := bundleName(path)
+				want := name + "/" + name + suffix + ".mtx"
 				if suffix == "_b" {
 					return fmt.Errorf("matrixio: %s: no member %s: %w", path, want, ErrNoRHS)
 				}
@@ -96,8 +99,10 @@ func openText(path, suffix string, read func(r io.Reader, name string) error) er
 			if err != nil {
 				return fmt.Errorf("matrixio: %s: reading the archive: %w", path, err)
 			}
-			if strings.TrimPrefix(hdr.Name, "./") == want && hdr.Typeflag == tar.TypeReg {
-				return read(tr, path+"!"+want)
+			member := strings.TrimPrefix(hdr.Name, "./")
+			dir, base, ok := strings.Cut(member, "/")
+			if ok && hdr.Typeflag == tar.TypeReg && base == dir+suffix+".mtx" {
+				return read(tr, path+"!"+member)
 			}
 		}
 	}

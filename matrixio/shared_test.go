@@ -5,6 +5,7 @@ import (
 	"bufio"
 	"bytes"
 	"compress/gzip"
+	"errors"
 	"io"
 	"math"
 	"os"
@@ -326,5 +327,33 @@ func TestSharedRoundTrip(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// A bundle saved under another name is still found by its members' shape
+// (NAME/NAME.mtx), and a defect inside it names the member.
+func TestBundleShape(t *testing.T) {
+	dir := t.TempDir()
+	text := []byte("%%MatrixMarket matrix coordinate real general\n2 2 1\n2 1 3\n")
+	rhs := []byte("%%MatrixMarket matrix array real general\n2 1\n1\n2\n")
+	p := writeBundle(t, dir, "truss", text, rhs)
+	renamed := filepath.Join(dir, "download (1).tar.gz")
+	if err := os.Rename(p, renamed); err != nil {
+		t.Fatal(err)
+	}
+	a, _, err := ReadMatrixFile(renamed, nil)
+	if err != nil || a.NNZ() != 1 || a.At(1, 0) != 3 {
+		t.Fatalf("renamed bundle: %v", err)
+	}
+	x, _, err := ReadBundleRHS(renamed, nil)
+	if err != nil || len(x) != 2 || x[1] != 2 {
+		t.Fatalf("renamed bundle rhs: %v %v", x, err)
+	}
+	// A defect inside a bundle names the member.
+	bad := writeBundle(t, dir, "beam", []byte("%%MatrixMarket matrix coordinate real general\n2 2 1\n3 1 3\n"), nil)
+	_, _, err = ReadMatrixFile(bad, nil)
+	var pe *ParseError
+	if !errors.As(err, &pe) || pe.File != bad+"!beam/beam.mtx" || pe.Line != 3 || !errors.Is(err, ErrIndexRange) {
+		t.Errorf("defect in bundle: %v", err)
 	}
 }
