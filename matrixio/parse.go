@@ -229,8 +229,8 @@ func fastEntry(hd *header, b []byte, q int) (r, c int, v float64, next int, ok b
 		default:
 			return
 		}
-		if neg {
-			v = -v
+		if neg && (v != 0 || hd.field == fieldReal) {
+			v = -v // an integer has no negative zero: "-0" is 0
 		}
 	}
 	switch {
@@ -435,7 +435,7 @@ func parseInteger(tok []byte) (float64, error) {
 		}
 		u = u*10 + uint64(d)
 	}
-	if neg {
+	if neg && u != 0 { // an integer has no negative zero: "-0" is 0
 		if u > 1<<63 {
 			return 0, reason(ErrValue, "expected an integer in the int64 range, found %s", clip(string(tok)))
 		}

@@ -161,7 +161,7 @@ func parseFloatStd(s string) (float64, error) { return strconv.ParseFloat(s, 64)
 // Integer files hold any int64 (the format paper's "integer" field); values
 // beyond 2^53 round to the nearest double, as float64(int64) does in Go.
 func TestIntegerField(t *testing.T) {
-	text := "%%MatrixMarket matrix coordinate integer general\n3 1 3\n1 1 -9223372036854775808\n2 1 9223372036854775807\n3 1 9007199254740993\n"
+	text := "%%MatrixMarket matrix coordinate integer general\n4 1 4\n1 1 -9223372036854775808\n2 1 9223372036854775807\n3 1 9007199254740993\n4 1 -0\n"
 	a, _, err := ReadMatrix(strings.NewReader(text), nil)
 	if err != nil {
 		t.Fatal(err)
@@ -171,6 +171,14 @@ func TestIntegerField(t *testing.T) {
 		if a.Val[k] != w {
 			t.Errorf("value %d = %v, want %v", k, a.Val[k], w)
 		}
+	}
+	// An integer has no negative zero: "-0" in an integer field is 0.
+	if a.Val[3] != 0 || math.Signbit(a.Val[3]) {
+		t.Errorf("integer -0 read as %v (sign bit %v)", a.Val[3], math.Signbit(a.Val[3]))
+	}
+	b, _, err := ReadMatrix(strings.NewReader("%%MatrixMarket matrix coordinate integer general\n1 1 1\n1  1  -0\n"), nil)
+	if err != nil || math.Signbit(b.Val[0]) {
+		t.Errorf("integer -0 on the general path: %v, %v", b.Val, err)
 	}
 }
 
