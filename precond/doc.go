@@ -70,19 +70,29 @@
 // recurrence's critical path runs, comes last and is taken from a register.
 // The backward solve folds in D⁻¹, so one application is two passes.
 //
-// Sequential versus level-scheduled solves. The triangular solves run
-// sequentially. The package measured level scheduling (Anderson and Saad,
-// 1989; Saad §11.6.2), which splits each solve into levels of independent
-// rows separated by barriers (see BenchmarkLevels). On the 7-point 3D
-// Poisson matrix the levels are the anti-diagonal planes x+y+z = const:
-// about 3n levels for n³ unknowns, a few thousand rows each, whose rows lie
-// far apart in memory. On this machine (2 cores) the level-ordered sweep was
-// slower than the natural-order one even on one goroutine (it touches a new
-// cache line for almost every row where the natural order streams), and on
-// two goroutines the ~600 barriers per application cost more than the
-// second core gave, especially when the machine is shared and the partner
-// goroutine is descheduled at a barrier. The sequential solves are therefore
-// the only ones shipped; BENCHMARKS.md has the figures.
+// Sequential versus level-scheduled solves. By default the triangular
+// solves run sequentially on the caller. IC0Options.Parallel runs them on
+// GOMAXPROCS goroutines by level scheduling (Anderson and Saad, 1989; Saad
+// §11.6.2) of row segments: maximal runs of rows each reading its
+// predecessor, done in order by one goroutine, grouped into levels of
+// independent segments separated by barriers (sched.go). On a 3D grid the
+// segments are the grid lines and the levels the planes of lines y+z =
+// const. Every row is computed by the same arithmetic as in the sequential
+// solve, so the result is bitwise identical. The parallel path uses one set
+// of helper goroutines for the whole package, started on first use and kept
+// for the life of the process; a solve that finds them busy runs
+// sequentially.
+//
+// Parallel is off by default because it did not pay on the machine this
+// was measured on (2 cores shared with other work; BENCHMARKS.md has the
+// figures): each application crosses about 4n barriers for n³ unknowns, and
+// when the partner goroutine's thread is descheduled at a barrier the
+// caller waits a scheduling quantum. Row-by-row level scheduling
+// (BenchmarkLevels; levels are the anti-diagonal planes x+y+z = const, about
+// 3n levels whose rows lie far apart in memory) was slower still: even on
+// one goroutine the level-ordered sweep loses to the natural-order one,
+// since it touches a new cache line for almost every row where the natural
+// order streams.
 //
 // # The automatic choice
 //

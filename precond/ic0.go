@@ -85,8 +85,9 @@ type IC0 struct {
 // It refuses a missing, zero, negative or non-finite diagonal entry with a
 // *DiagonalError, since a matrix with one is not positive definite. When a
 // pivot is not positive it retries with the diagonal shift A + α·diag(A),
-// α = opt.FirstShift·opt.Growth^(t−1) at try t (Manteuffel, Math. Comp. 34,
-// 1980), and reports the α that worked (Shift) and the tries used (Tries).
+// α = 0 at try 1 and opt.FirstShift·opt.Growth^(t−2) at try t ≥ 2
+// (Manteuffel, Math. Comp. 34, 1980), and reports the α that worked (Shift)
+// and the tries used (Tries).
 // After opt.MaxTries failures it returns a *BreakdownError; it never falls
 // back to another preconditioner by itself.
 func NewIC0(a *sparse.CSR, opt IC0Options) (*IC0, error) {
