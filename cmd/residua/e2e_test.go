@@ -257,6 +257,25 @@ func TestEndToEnd(t *testing.T) {
 		t.Errorf("malformed upload: exit %d, stderr %q", code, stderr)
 	}
 
+	// SIGINT stops a local solve within an iteration: it reports status
+	// cancelled and exits 3.
+	solve := exec.Command(bin, "solve", big, "--precond", "none", "--rtol", "1e-13", "--json", "--quiet")
+	var sout bytes.Buffer
+	solve.Stdout = &sout
+	if err := solve.Start(); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(700 * time.Millisecond) // past reading the file, into the iterations
+	solve.Process.Signal(syscall.SIGINT)
+	err = solve.Wait()
+	var ee *exec.ExitError
+	if !errors.As(err, &ee) || ee.ExitCode() != exitNotConverged {
+		t.Errorf("solve after SIGINT: %v, want exit 3", err)
+	}
+	if rep := decodeReport(t, sout.String()); rep.Status != "cancelled" || rep.Converged {
+		t.Errorf("solve after SIGINT: status %q", rep.Status)
+	}
+
 	// SIGTERM shuts the server down cleanly.
 	srv.cmd.Process.Signal(syscall.SIGTERM)
 	select {

@@ -139,6 +139,8 @@ func inspectFile(path string, symTol float64) (*inspection, error) {
 // tried, and if not, why. Indices are printed 1-based, as in the file.
 func verdict(r *sparse.Report) string {
 	switch {
+	case r.Cols == 1 && r.Rows > 1:
+		return fmt.Sprintf("a single column of %d entries: a vector (a right-hand side or a solution), nothing to solve", r.Rows)
 	case !r.Square:
 		return fmt.Sprintf("rectangular (%d×%d): not for CG; 'residua lsq' solves least-squares problems", r.Rows, r.Cols)
 	case r.NonFinite > 0:
