@@ -78,7 +78,8 @@ func New(src Source, opt Options) *Server {
 	return s
 }
 
-// Close stops following the jobs and ends the open event streams.
+// Close stops following the jobs and ends the open event streams. Calling
+// it again does nothing.
 func (s *Server) Close() { s.t.close() }
 
 func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) {
@@ -87,9 +88,14 @@ func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 }
 
 // Serve serves h on lis until ctx is done, then shuts the HTTP server down,
-// giving open requests up to grace to end (event streams are cut).
+// giving open requests up to grace to end before cutting them. When h is a
+// *Server, shutting down closes it, which ends its event streams at once
+// instead of after grace.
 func Serve(ctx context.Context, lis net.Listener, h http.Handler, grace time.Duration) error {
 	srv := &http.Server{Handler: h, ReadHeaderTimeout: 10 * time.Second}
+	if ws, ok := h.(*Server); ok {
+		srv.RegisterOnShutdown(ws.Close)
+	}
 	done := make(chan error, 1)
 	go func() { done <- srv.Serve(lis) }()
 	select {

@@ -2,11 +2,13 @@ package web
 
 import (
 	"bufio"
+	"context"
 	"encoding/json"
 	"encoding/xml"
 	"fmt"
 	"io"
 	"math"
+	"net"
 	"net/http"
 	"net/http/httptest"
 	"strings"
@@ -377,5 +379,37 @@ func TestPageJobsBound(t *testing.T) {
 	}
 	if all := s.list(0); len(all.Jobs) != PageJobs+7 {
 		t.Errorf("/api/jobs: %d jobs", len(all.Jobs))
+	}
+}
+
+// Shutting Serve down ends open event streams at once rather than after
+// the grace period.
+func TestServeShutdown(t *testing.T) {
+	src := newFakeSource()
+	s := New(src, Options{Poll: 5 * time.Millisecond})
+	defer s.Close()
+	lis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- Serve(ctx, lis, s, 20*time.Second) }()
+	res, err := http.Get("http://" + lis.Addr().String() + "/api/events")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	line, _ := bufio.NewReader(res.Body).ReadString('\n')
+	if line != "retry: 2000\n" {
+		t.Fatalf("first line %q", line)
+	}
+	start := time.Now()
+	cancel()
+	if err := <-done; err != nil {
+		t.Fatal(err)
+	}
+	if d := time.Since(start); d > 5*time.Second {
+		t.Errorf("shutdown took %v with an event stream open", d)
 	}
 }
