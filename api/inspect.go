@@ -14,9 +14,9 @@ import (
 const symmetryTol = 1e-12
 
 // inspect returns a's inspect report as JSON (the document `residua
-// inspect --json` prints), whether it is symmetric, and if not, which pair
-// of entries shows it, in words.
-func inspect(a *sparse.CSR) (report string, symmetric bool, why string) {
+// inspect --json` prints), whether it is symmetric within symmetryTol and
+// exactly, and if not, which pair of entries shows it, in words.
+func inspect(a *sparse.CSR) (report string, symmetric, exact bool, why string) {
 	r := sparse.Analyze(a, symmetryTol)
 	b, err := json.Marshal(r)
 	if err != nil {
@@ -33,5 +33,6 @@ func inspect(a *sparse.CSR) (report string, symmetric bool, why string) {
 	case !r.Symmetric:
 		why = "is not symmetric"
 	}
-	return string(b), r.Symmetric, why
+	exact = r.Symmetric && r.PatternSymmetric && r.Asymmetry == 0 && r.NonFinite == 0
+	return string(b), r.Symmetric, exact, why
 }

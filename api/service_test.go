@@ -3,6 +3,7 @@ package api
 import (
 	"context"
 	"encoding/json"
+	"reflect"
 	"slices"
 	"strings"
 	"sync"
@@ -211,7 +212,7 @@ func TestWatchers(t *testing.T) {
 		if outs[w].DroppedProgress > 0 && int64(len(seen[w]))+outs[w].DroppedProgress != int64(len(lateSeq)) {
 			t.Errorf("watcher %d: %d seen + %d dropped != %d", w, len(seen[w]), outs[w].DroppedProgress, len(lateSeq))
 		}
-		if outs[w].Results[0] != lateOut.Results[0] {
+		if !reflect.DeepEqual(outs[w].Results[0], lateOut.Results[0]) {
 			t.Errorf("watcher %d result differs", w)
 		}
 	}

@@ -41,6 +41,11 @@ type jobParams struct {
 	rhs      [][]float64
 	x0       [][]float64 // nil entries: start from zero
 	settings krylov.Settings
+	// lsq is set for a least-squares job, which uses lsqSet (and its
+	// Scaling and Method) instead of kind and settings.
+	lsq      bool
+	lsqSet   krylov.LSQSettings
+	method   string // the method's resolved name: "cg", "lsqr" or "cgls"
 	every    int
 	interval time.Duration
 	pinned   []*item // the matrix and stored vectors, unpinned when the job ends
@@ -176,19 +181,38 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}()
 	switch req.GetMethod() {
 	case "", "cg":
+		p.method = "cg"
+	case "lsq", "lsqr":
+		p.lsq, p.method, p.lsqSet.Method = true, "lsqr", krylov.LSQR
+	case "cgls":
+		p.lsq, p.method, p.lsqSet.Method = true, "cgls", krylov.CGLS
 	default:
-		return nil, nil, invalidf("unknown method %q (this server solves with \"cg\")", req.GetMethod())
+		return nil, nil, invalidf("unknown method %q (want cg, lsq, lsqr or cgls)", req.GetMethod())
 	}
 	kindName := req.GetPreconditioner()
 	if kindName == "" {
 		kindName = string(precond.KindAuto)
 	}
-	kind, err := precond.ParseKind(kindName)
-	if err != nil {
-		return nil, nil, fmt.Errorf("%w: %v", ErrInvalid, err)
+	if p.lsq {
+		switch kindName {
+		case "auto":
+			p.lsqSet.Scaling = krylov.ScaleAuto
+		case "colscale":
+			p.lsqSet.Scaling = krylov.ScaleColumns
+		case "none":
+			p.lsqSet.Scaling = krylov.ScaleNone
+		default:
+			return nil, nil, invalidf("unknown column scaling %q for least squares (want auto, colscale or none)", kindName)
+		}
+		p.kind = precond.Kind(kindName)
+	} else {
+		kind, err := precond.ParseKind(kindName)
+		if err != nil {
+			return nil, nil, fmt.Errorf("%w: %v", ErrInvalid, err)
+		}
+		p.kind = kind
 	}
-	p.kind = kind
-	if err := checkSettings(req); err != nil {
+	if err := checkSettings(req, p.lsq); err != nil {
 		return nil, nil, err
 	}
 	it, found := s.store.get(matrixKey(p.matrixID), 1)
@@ -198,13 +222,28 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	p.pinned = append(p.pinned, it)
 	p.m = it.value.(*matrixEntry)
 	a := p.m.a
-	if a.Rows != a.Cols {
-		return nil, nil, fmt.Errorf("%w: the matrix is %d×%d; conjugate gradients needs a square symmetric positive definite matrix (a least-squares method is needed for a rectangular one)", ErrMethod, a.Rows, a.Cols)
+	if !p.lsq && a.Rows != a.Cols {
+		return nil, nil, fmt.Errorf("%w: the matrix is %d×%d; conjugate gradients needs a square symmetric positive definite matrix (use method lsq for least squares)", ErrMethod, a.Rows, a.Cols)
 	}
-	if !p.m.symmetric {
-		return nil, nil, fmt.Errorf("%w: %s %s; conjugate gradients needs a symmetric positive definite matrix (solve the normal equations with a least-squares method instead)", ErrMethod, p.m.info.GetName(), p.m.asymmetry)
+	if !p.lsq && !p.m.symmetric {
+		return nil, nil, fmt.Errorf("%w: %s %s; conjugate gradients needs a symmetric positive definite matrix (method lsq solves the normal equations instead)", ErrMethod, p.m.info.GetName(), p.m.asymmetry)
 	}
-	n := a.Rows
+	if p.lsq && !p.m.exactSym {
+		// The products by Aᵀ use a transpose that sparse builds on first
+		// use and keeps with the matrix: account for it, pinned for the
+		// job, and let it go if it is evicted later.
+		key := precondKeyPrefix(p.matrixID) + "transpose"
+		it, ok := s.store.get(key, 1)
+		if !ok {
+			size := csrBytes(int64(a.Cols), int64(a.NNZ()))
+			if err := s.store.reserve(size, "the transpose of "+p.m.info.GetName()); err != nil {
+				return nil, nil, err
+			}
+			it, _ = s.store.insert(key, size, 1, nil, a.ForgetTranspose)
+		}
+		p.pinned = append(p.pinned, it)
+	}
+	n, ncols := a.Rows, a.Cols
 	nrhs := len(req.GetRhs())
 	if nrhs == 0 {
 		return nil, nil, invalidf("the request has no right-hand side")
@@ -216,12 +255,12 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 		return nil, nil, invalidf("%d starting guesses for %d right-hand sides (give none, one, or one each)", nx, nrhs)
 	}
 	inline := 0
-	resolve := func(ref *pb.VectorRef, what string) ([]float64, error) {
+	resolve := func(ref *pb.VectorRef, what string, n int, dim string) ([]float64, error) {
 		var x []float64
 		switch src := ref.GetSource().(type) {
 		case *pb.VectorRef_Data:
 			if len(src.Data) != 8*n {
-				return nil, invalidf("%s has %d bytes; the matrix has %d rows, so it needs %d", what, len(src.Data), n, 8*n)
+				return nil, invalidf("%s has %d bytes; the matrix has %d %s, so it needs %d", what, len(src.Data), n, dim, 8*n)
 			}
 			v, err := unpack(src.Data)
 			if err != nil {
@@ -237,7 +276,7 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 			p.pinned = append(p.pinned, it)
 			x = it.value.(*vectorEntry).x
 			if len(x) != n {
-				return nil, invalidf("%s has %d entries; the matrix has %d rows", what, len(x), n)
+				return nil, invalidf("%s has %d entries; the matrix has %d %s", what, len(x), n, dim)
 			}
 		default:
 			return nil, invalidf("%s is empty (give data or a vector id)", what)
@@ -245,7 +284,7 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 		return x, nil
 	}
 	for i, ref := range req.GetRhs() {
-		b, err := resolve(ref, fmt.Sprintf("right-hand side %d", i))
+		b, err := resolve(ref, fmt.Sprintf("right-hand side %d", i), n, "rows")
 		if err != nil {
 			return nil, nil, err
 		}
@@ -253,7 +292,7 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}
 	p.x0 = make([][]float64, nrhs)
 	for i, ref := range req.GetX0() {
-		x, err := resolve(ref, fmt.Sprintf("starting guess %d", i))
+		x, err := resolve(ref, fmt.Sprintf("starting guess %d", i), ncols, "columns")
 		if err != nil {
 			return nil, nil, err
 		}
@@ -265,13 +304,16 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 			p.x0[i] = x
 		}
 	}
+	var limit time.Duration
+	if req.GetTimeLimit() != nil {
+		limit = req.GetTimeLimit().AsDuration()
+	}
 	p.settings = krylov.Settings{
 		RelTol: req.GetRtol(), AbsTol: req.GetAtol(), MaxIter: int(req.GetMaxIter()),
-		TimeLimit: req.GetTimeLimit().AsDuration(), RefreshEvery: int(req.GetRefreshEvery()),
+		TimeLimit: limit, RefreshEvery: int(req.GetRefreshEvery()),
 	}
-	if req.GetTimeLimit() == nil {
-		p.settings.TimeLimit = 0
-	}
+	p.lsqSet.Damp, p.lsqSet.ATol, p.lsqSet.BTol = req.GetDamp(), req.GetAtol(), req.GetBtol()
+	p.lsqSet.MaxIter, p.lsqSet.TimeLimit = int(req.GetMaxIter()), limit
 	p.every = int(req.GetProgress().GetEveryIterations())
 	if req.GetProgress().GetInterval() != nil {
 		p.interval = req.GetProgress().GetInterval().AsDuration()
@@ -283,8 +325,8 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	keep := req.GetKeepSolution() || req.GetDetach()
 	id := newJobID()
 	// The job's vectors: the solutions, the inline vectors it decoded and
-	// CG's work vectors, all of length n.
-	mem := 8 * int64(n) * int64(nrhs+inline+cgWorkVectors)
+	// the method's work vectors.
+	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+cgWorkVectors)
 	if err := s.store.reserve(mem, "job "+id); err != nil {
 		return nil, nil, err
 	}
@@ -300,9 +342,12 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	if rtol == 0 {
 		rtol = 1e-8 // krylov.Settings' documented default
 	}
+	if p.lsq {
+		rtol = 0
+	}
 	j.info = &pb.Job{
 		Id: id, MatrixId: p.matrixID, MatrixName: p.m.info.GetName(), Rows: int64(n), Nonzeros: int64(a.NNZ()),
-		Method: "cg", PreconditionerRequested: string(kind), RhsCount: int32(nrhs),
+		Method: p.method, PreconditionerRequested: string(p.kind), RhsCount: int32(nrhs),
 		Detached: req.GetDetach(), Label: req.GetLabel(), Rtol: rtol,
 	}
 	ok = true
@@ -312,9 +357,17 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 // checkSettings refuses settings the solver would reject (it panics on
 // negative values, as a programmer's mistake; from a client they are bad
 // input).
-func checkSettings(req *pb.SolveRequest) error {
+func checkSettings(req *pb.SolveRequest, lsq bool) error {
 	bad := func(v float64) bool { return v < 0 || math.IsNaN(v) || math.IsInf(v, 0) }
 	switch {
+	case lsq && req.GetRtol() != 0:
+		return invalidf("least squares stops by atol and btol; rtol must be 0")
+	case !lsq && (req.GetBtol() != 0 || req.GetDamp() != 0):
+		return invalidf("btol and damp apply to least squares only, not to method cg")
+	case bad(req.GetBtol()):
+		return invalidf("btol %g must be a finite number ≥ 0", req.GetBtol())
+	case bad(req.GetDamp()):
+		return invalidf("damp %g must be a finite number ≥ 0", req.GetDamp())
 	case bad(req.GetRtol()):
 		return invalidf("rtol %g must be a finite number ≥ 0", req.GetRtol())
 	case bad(req.GetAtol()):
@@ -347,7 +400,7 @@ func (s *Server) runJob(j *job, p *jobParams) (state pb.JobState, err error) {
 		s.releaseParams(p)
 		// The work vectors are gone; the solutions stay accounted while
 		// kept (or until the attached stream has sent them).
-		s.store.shrink(j.mem, 8*int64(p.m.a.Rows)*int64(len(p.rhs)))
+		s.store.shrink(j.mem, 8*int64(p.m.a.Cols)*int64(len(p.rhs)))
 		if j.keep {
 			s.store.unpin(j.mem)
 		} else {
@@ -359,6 +412,9 @@ func (s *Server) runJob(j *job, p *jobParams) (state pb.JobState, err error) {
 		}
 		s.log.Info("job end", attrs...)
 	}()
+	if p.lsq {
+		return s.runLSQ(j, p)
+	}
 	choice, pit, fromCache, err := s.preconditioner(j.ctx, p)
 	if err != nil {
 		if j.ctx.Err() != nil {
@@ -539,7 +595,7 @@ func (r *progressRecorder) flush() {
 func (r *progressRecorder) send(p krylov.Progress) {
 	r.j.publish(&pb.JobEvent{Event: &pb.JobEvent_Progress{Progress: &pb.Progress{
 		Rhs: int32(r.rhs), Iteration: int64(p.Iteration), ElapsedSeconds: p.Elapsed.Seconds(),
-		ResidualNorm: p.ResidualNorm, RelativeResidual: p.RelResidual,
+		ResidualNorm: p.ResidualNorm, RelativeResidual: p.RelResidual, NormalResidualNorm: p.NormalResidualNorm,
 	}}})
 }
 

@@ -28,6 +28,9 @@ type matrixEntry struct {
 	// why not, in words.
 	symmetric bool
 	asymmetry string
+	// exactSym: A equals Aᵀ bit for bit, so products by Aᵀ need no
+	// transpose (sparse uses A itself).
+	exactSym bool
 }
 
 func matrixKey(id string) string { return "m:" + id }
@@ -178,7 +181,7 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 		Rows: int64(a.Rows), Cols: int64(a.Cols), Nonzeros: int64(a.NNZ()),
 		Symmetry: "general", Bytes: reserved,
 	}
-	e.info.InspectJson, e.symmetric, e.asymmetry = inspect(a)
+	e.info.InspectJson, e.symmetric, e.exactSym, e.asymmetry = inspect(a)
 	if e.symmetric {
 		e.info.Symmetry = "symmetric"
 	}

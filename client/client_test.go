@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"math"
 	"net"
+	"reflect"
 	"slices"
 	"testing"
 
@@ -121,7 +122,7 @@ func TestLargeVectors(t *testing.T) {
 		t.Errorf("Job: %v, %v", job, err)
 	}
 	w, err := c.Watch(ctx, out.JobID, nil)
-	if err != nil || w.Results[0] != out.Results[0] || w.State != "FINISHED" {
+	if err != nil || !reflect.DeepEqual(w.Results[0], out.Results[0]) || w.State != "FINISHED" {
 		t.Errorf("Watch of the finished job: %+v, %v", w, err)
 	}
 	if n, err := c.DeleteMatrix(ctx, m.GetId()); err != nil || n < a.Bytes() {

@@ -30,13 +30,19 @@ type SolveRequest struct {
 	// X0 holds the starting guesses: none (zeros), one for all, or one per
 	// right-hand side.
 	X0 [][]float64
-	// Method is "cg" (the default when empty).
+	// Method is "cg" (the default when empty) or, for least squares on any
+	// A, "lsq", "lsqr" or "cgls".
 	Method string
 	// Precond is the preconditioner kind: "auto" (default), "none",
-	// "jacobi", "ic0".
+	// "jacobi", "ic0"; for least squares the column scaling: "auto",
+	// "colscale", "none".
 	Precond string
-	// RTol and ATol: stop when ‖b − A·x‖₂ ≤ max(RTol·‖b‖₂, ATol).
+	// RTol and ATol: for CG, stop when ‖b − A·x‖₂ ≤ max(RTol·‖b‖₂, ATol).
+	// For least squares RTol must be 0; ATol and BTol are the relative
+	// tolerances of Paige and Saunders' stopping rules, and Damp is λ in
+	// min ‖A·x − b‖² + λ²‖x‖².
 	RTol, ATol float64
+	BTol, Damp float64
 	// MaxIter caps the iterations per right-hand side (0: 10·n).
 	MaxIter int
 	// TimeLimit is a time budget per right-hand side (0: none).
@@ -78,6 +84,8 @@ type Settings struct {
 	MaxIter          int64   `json:"max_iter"`
 	TimeLimitSeconds float64 `json:"time_limit_seconds"`
 	RefreshEvery     int     `json:"refresh_every"`
+	BTol             float64 `json:"btol,omitempty"`
+	Damp             float64 `json:"damp,omitempty"`
 }
 
 // Result is the outcome for one right-hand side, with the keys of the
@@ -103,6 +111,13 @@ type Result struct {
 	Settings             Settings `json:"settings"`
 	FromCache            bool     `json:"from_cache"`
 	Error                string   `json:"error,omitempty"`
+	// Least squares only: ‖Aᵀr − λ²x‖₂, ‖x‖₂, the estimate of ‖A‖, the
+	// stopping rule met, and A's zero columns (0-based).
+	NormalResidualNorm float64 `json:"normal_residual_norm,omitempty"`
+	XNorm              float64 `json:"x_norm,omitempty"`
+	NormEstimate       float64 `json:"norm_estimate,omitempty"`
+	StoppedBy          string  `json:"stopped_by,omitempty"`
+	ZeroColumns        []int64 `json:"zero_columns,omitempty"`
 }
 
 // ResultFrom converts the wire form of a result.
@@ -117,8 +132,11 @@ func ResultFrom(r *pb.SolveResult) Result {
 		PerIterationSeconds: r.GetPerIterationSeconds(),
 		LambdaMin:           r.GetLambdaMin(), LambdaMax: r.GetLambdaMax(), Cond: r.GetCond(),
 		Settings: Settings{RTol: s.GetRtol(), ATol: s.GetAtol(), MaxIter: s.GetMaxIter(),
-			TimeLimitSeconds: s.GetTimeLimitSeconds(), RefreshEvery: int(s.GetRefreshEvery())},
+			TimeLimitSeconds: s.GetTimeLimitSeconds(), RefreshEvery: int(s.GetRefreshEvery()),
+			BTol: s.GetBtol(), Damp: s.GetDamp()},
 		FromCache: r.GetFromCache(), Error: r.GetError(),
+		NormalResidualNorm: r.GetNormalResidualNorm(), XNorm: r.GetXNorm(), NormEstimate: r.GetANormEstimate(),
+		StoppedBy: r.GetStoppedBy(), ZeroColumns: r.GetZeroColumns(),
 	}
 }
 
@@ -151,7 +169,8 @@ type Outcome struct {
 func (c *Client) Solve(ctx context.Context, req SolveRequest, onEvent func(Event)) (*Outcome, error) {
 	preq := &pb.SolveRequest{
 		MatrixId: req.MatrixID, Method: req.Method, Preconditioner: req.Precond,
-		Rtol: req.RTol, Atol: req.ATol, MaxIter: int64(req.MaxIter), RefreshEvery: int32(req.RefreshEvery),
+		Rtol: req.RTol, Atol: req.ATol, Btol: req.BTol, Damp: req.Damp,
+		MaxIter: int64(req.MaxIter), RefreshEvery: int32(req.RefreshEvery),
 		Progress: &pb.ProgressPolicy{EveryIterations: int32(req.ProgressEvery)},
 		Detach:   req.Detach, KeepSolution: req.KeepSolution, Label: req.Label,
 	}

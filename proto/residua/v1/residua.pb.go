@@ -1045,18 +1045,28 @@ type SolveRequest struct {
 	// Starting guesses: none (zero), one per right-hand side, or one used
 	// for all.
 	X0 []*VectorRef `protobuf:"bytes,3,rep,name=x0,proto3" json:"x0,omitempty"`
-	// The method: "cg" (conjugate gradients for SPD matrices, the default
-	// when empty). Other values are INVALID_ARGUMENT until the server
-	// implements them.
+	// The method: "cg" (conjugate gradients, for a symmetric positive
+	// definite A; the default when empty), or a least-squares method for any
+	// A, square or rectangular, solving min ‖A·x − b‖₂² + damp²·‖x‖₂² with
+	// products by A and Aᵀ only: "lsq" (the server's choice, LSQR), "lsqr"
+	// (Paige and Saunders, ACM TOMS 8(1), 1982) or "cgls" (Björck, Numerical
+	// Methods for Least Squares Problems, 1996, §7.4). For least squares, b
+	// has as many entries as A has rows, x0 and x as many as A has columns.
 	Method string `protobuf:"bytes,4,opt,name=method,proto3" json:"method,omitempty"`
-	// The preconditioner: "auto" (default when empty), "none", or a kind the
-	// server's precond package knows (for example "jacobi", "ic0").
+	// The preconditioner. For "cg": "auto" (default when empty), "none", or
+	// a kind of the server's precond package ("jacobi", "ic0"). For least
+	// squares, the column scaling: "auto" (default: "colscale" when A has at
+	// least as many rows as columns, else "none"), "colscale" or "none".
 	Preconditioner string `protobuf:"bytes,5,opt,name=preconditioner,proto3" json:"preconditioner,omitempty"`
-	// Stopping test: ‖b − A·x‖₂ ≤ max(rtol·‖b‖₂, atol) on the true residual.
-	// Zero means the solver's default (rtol 1e-8, atol 0).
+	// For "cg", the stopping test ‖b − A·x‖₂ ≤ max(rtol·‖b‖₂, atol) on the
+	// true residual; zero means the solver's default (rtol 1e-8, atol 0).
+	// For least squares rtol must be 0, and atol and btol are the relative
+	// tolerances of Paige and Saunders' rules (§6): stop when
+	// ‖r‖ ≤ btol·‖b‖ + atol·‖A‖·‖x‖ or ‖Aᵀr‖ ≤ atol·‖A‖·‖r‖ (defaults 1e-8).
 	Rtol float64 `protobuf:"fixed64,6,opt,name=rtol,proto3" json:"rtol,omitempty"`
 	Atol float64 `protobuf:"fixed64,7,opt,name=atol,proto3" json:"atol,omitempty"`
-	// Iteration cap per right-hand side; 0 means the solver's default (10·n).
+	// Iteration cap per right-hand side; 0 means the solver's default (10·n
+	// for CG; 10·min(m, n), or 10·n when damped, for least squares).
 	MaxIter int64 `protobuf:"varint,8,opt,name=max_iter,json=maxIter,proto3" json:"max_iter,omitempty"`
 	// Wall-time budget per right-hand side; unset means none. Running out is
 	// the status "time-limit", not an error.
@@ -1071,7 +1081,10 @@ type SolveRequest struct {
 	// streaming them. Detached jobs always keep them.
 	KeepSolution bool `protobuf:"varint,13,opt,name=keep_solution,json=keepSolution,proto3" json:"keep_solution,omitempty"`
 	// A label for people, shown in job lists.
-	Label         string `protobuf:"bytes,14,opt,name=label,proto3" json:"label,omitempty"`
+	Label string `protobuf:"bytes,14,opt,name=label,proto3" json:"label,omitempty"`
+	// Least squares only: btol (see rtol) and the damping λ ≥ 0.
+	Btol          float64 `protobuf:"fixed64,15,opt,name=btol,proto3" json:"btol,omitempty"`
+	Damp          float64 `protobuf:"fixed64,16,opt,name=damp,proto3" json:"damp,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1202,6 +1215,20 @@ func (x *SolveRequest) GetLabel() string {
 		return x.Label
 	}
 	return ""
+}
+
+func (x *SolveRequest) GetBtol() float64 {
+	if x != nil {
+		return x.Btol
+	}
+	return 0
+}
+
+func (x *SolveRequest) GetDamp() float64 {
+	if x != nil {
+		return x.Damp
+	}
+	return 0
 }
 
 // JobEvent is one message of a Solve or Watch stream.
@@ -1558,8 +1585,10 @@ type Progress struct {
 	ResidualNorm float64 `protobuf:"fixed64,4,opt,name=residual_norm,json=residualNorm,proto3" json:"residual_norm,omitempty"`
 	// residual_norm/‖b‖₂ (or residual_norm when b = 0).
 	RelativeResidual float64 `protobuf:"fixed64,5,opt,name=relative_residual,json=relativeResidual,proto3" json:"relative_residual,omitempty"`
-	unknownFields    protoimpl.UnknownFields
-	sizeCache        protoimpl.SizeCache
+	// Least squares: ‖Aᵀr‖₂ as the method tracks it (0 for CG).
+	NormalResidualNorm float64 `protobuf:"fixed64,6,opt,name=normal_residual_norm,json=normalResidualNorm,proto3" json:"normal_residual_norm,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
 }
 
 func (x *Progress) Reset() {
@@ -1627,6 +1656,13 @@ func (x *Progress) GetRelativeResidual() float64 {
 	return 0
 }
 
+func (x *Progress) GetNormalResidualNorm() float64 {
+	if x != nil {
+		return x.NormalResidualNorm
+	}
+	return 0
+}
+
 // Settings echoes the settings a solve used, defaults filled in.
 type Settings struct {
 	state   protoimpl.MessageState `protogen:"open.v1"`
@@ -1636,8 +1672,11 @@ type Settings struct {
 	// Zero: no time budget.
 	TimeLimitSeconds float64 `protobuf:"fixed64,4,opt,name=time_limit_seconds,json=timeLimitSeconds,proto3" json:"time_limit_seconds,omitempty"`
 	RefreshEvery     int32   `protobuf:"varint,5,opt,name=refresh_every,json=refreshEvery,proto3" json:"refresh_every,omitempty"`
-	unknownFields    protoimpl.UnknownFields
-	sizeCache        protoimpl.SizeCache
+	// Least squares only.
+	Btol          float64 `protobuf:"fixed64,6,opt,name=btol,proto3" json:"btol,omitempty"`
+	Damp          float64 `protobuf:"fixed64,7,opt,name=damp,proto3" json:"damp,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *Settings) Reset() {
@@ -1705,8 +1744,22 @@ func (x *Settings) GetRefreshEvery() int32 {
 	return 0
 }
 
+func (x *Settings) GetBtol() float64 {
+	if x != nil {
+		return x.Btol
+	}
+	return 0
+}
+
+func (x *Settings) GetDamp() float64 {
+	if x != nil {
+		return x.Damp
+	}
+	return 0
+}
+
 // SolveResult is the outcome for one right-hand side: the same fields as
-// the CLI's solve --json summary.
+// the CLI's solve --json summary (lsq --json for least squares).
 type SolveResult struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	Rhs   int32                  `protobuf:"varint,1,opt,name=rhs,proto3" json:"rhs,omitempty"`
@@ -1737,9 +1790,19 @@ type SolveResult struct {
 	Settings  *Settings `protobuf:"bytes,19,opt,name=settings,proto3" json:"settings,omitempty"`
 	FromCache bool      `protobuf:"varint,20,opt,name=from_cache,json=fromCache,proto3" json:"from_cache,omitempty"`
 	// For a breakdown: what broke down, in words.
-	Error         string `protobuf:"bytes,21,opt,name=error,proto3" json:"error,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Error string `protobuf:"bytes,21,opt,name=error,proto3" json:"error,omitempty"`
+	// Least squares only: ‖Aᵀr − damp²·x‖₂ recomputed from x, ‖x‖₂, the
+	// estimate of ‖A‖ (Frobenius, of the scaled operator) the rules used,
+	// the rule that was met ("residual" or "normal-residual"), and A's zero
+	// columns (0-based; A is then rank deficient). cond above is then the
+	// condition estimate of the scaled operator (Paige and Saunders §5).
+	NormalResidualNorm float64 `protobuf:"fixed64,22,opt,name=normal_residual_norm,json=normalResidualNorm,proto3" json:"normal_residual_norm,omitempty"`
+	XNorm              float64 `protobuf:"fixed64,23,opt,name=x_norm,json=xNorm,proto3" json:"x_norm,omitempty"`
+	ANormEstimate      float64 `protobuf:"fixed64,24,opt,name=a_norm_estimate,json=aNormEstimate,proto3" json:"a_norm_estimate,omitempty"`
+	StoppedBy          string  `protobuf:"bytes,25,opt,name=stopped_by,json=stoppedBy,proto3" json:"stopped_by,omitempty"`
+	ZeroColumns        []int64 `protobuf:"varint,26,rep,packed,name=zero_columns,json=zeroColumns,proto3" json:"zero_columns,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
 }
 
 func (x *SolveResult) Reset() {
@@ -1917,6 +1980,41 @@ func (x *SolveResult) GetError() string {
 		return x.Error
 	}
 	return ""
+}
+
+func (x *SolveResult) GetNormalResidualNorm() float64 {
+	if x != nil {
+		return x.NormalResidualNorm
+	}
+	return 0
+}
+
+func (x *SolveResult) GetXNorm() float64 {
+	if x != nil {
+		return x.XNorm
+	}
+	return 0
+}
+
+func (x *SolveResult) GetANormEstimate() float64 {
+	if x != nil {
+		return x.ANormEstimate
+	}
+	return 0
+}
+
+func (x *SolveResult) GetStoppedBy() string {
+	if x != nil {
+		return x.StoppedBy
+	}
+	return ""
+}
+
+func (x *SolveResult) GetZeroColumns() []int64 {
+	if x != nil {
+		return x.ZeroColumns
+	}
+	return nil
 }
 
 // VectorChunk is a piece of a solution vector.
@@ -2620,7 +2718,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"freedBytes\"r\n" +
 	"\x0eProgressPolicy\x12)\n" +
 	"\x10every_iterations\x18\x01 \x01(\x05R\x0feveryIterations\x125\n" +
-	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\xe8\x03\n" +
+	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\x90\x04\n" +
 	"\fSolveRequest\x12\x1b\n" +
 	"\tmatrix_id\x18\x01 \x01(\tR\bmatrixId\x12'\n" +
 	"\x03rhs\x18\x02 \x03(\v2\x15.residua.v1.VectorRefR\x03rhs\x12%\n" +
@@ -2637,7 +2735,9 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\bprogress\x18\v \x01(\v2\x1a.residua.v1.ProgressPolicyR\bprogress\x12\x16\n" +
 	"\x06detach\x18\f \x01(\bR\x06detach\x12#\n" +
 	"\rkeep_solution\x18\r \x01(\bR\fkeepSolution\x12\x14\n" +
-	"\x05label\x18\x0e \x01(\tR\x05label\"\xf0\x02\n" +
+	"\x05label\x18\x0e \x01(\tR\x05label\x12\x12\n" +
+	"\x04btol\x18\x0f \x01(\x01R\x04btol\x12\x12\n" +
+	"\x04damp\x18\x10 \x01(\x01R\x04damp\"\xf0\x02\n" +
 	"\bJobEvent\x12\x10\n" +
 	"\x03seq\x18\x01 \x01(\x04R\x03seq\x12\x15\n" +
 	"\x06job_id\x18\x02 \x01(\tR\x05jobId\x12,\n" +
@@ -2663,19 +2763,22 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x14preconditioner_bytes\x18\t \x01(\x03R\x13preconditionerBytes\x12\x1b\n" +
 	"\trhs_count\x18\n" +
 	" \x01(\x05R\brhsCount\x12\x1a\n" +
-	"\bdetached\x18\v \x01(\bR\bdetached\"\xb5\x01\n" +
+	"\bdetached\x18\v \x01(\bR\bdetached\"\xe7\x01\n" +
 	"\bProgress\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\titeration\x18\x02 \x01(\x03R\titeration\x12'\n" +
 	"\x0felapsed_seconds\x18\x03 \x01(\x01R\x0eelapsedSeconds\x12#\n" +
 	"\rresidual_norm\x18\x04 \x01(\x01R\fresidualNorm\x12+\n" +
-	"\x11relative_residual\x18\x05 \x01(\x01R\x10relativeResidual\"\xa0\x01\n" +
+	"\x11relative_residual\x18\x05 \x01(\x01R\x10relativeResidual\x120\n" +
+	"\x14normal_residual_norm\x18\x06 \x01(\x01R\x12normalResidualNorm\"\xc8\x01\n" +
 	"\bSettings\x12\x12\n" +
 	"\x04rtol\x18\x01 \x01(\x01R\x04rtol\x12\x12\n" +
 	"\x04atol\x18\x02 \x01(\x01R\x04atol\x12\x19\n" +
 	"\bmax_iter\x18\x03 \x01(\x03R\amaxIter\x12,\n" +
 	"\x12time_limit_seconds\x18\x04 \x01(\x01R\x10timeLimitSeconds\x12#\n" +
-	"\rrefresh_every\x18\x05 \x01(\x05R\frefreshEvery\"\xd2\x05\n" +
+	"\rrefresh_every\x18\x05 \x01(\x05R\frefreshEvery\x12\x12\n" +
+	"\x04btol\x18\x06 \x01(\x01R\x04btol\x12\x12\n" +
+	"\x04damp\x18\a \x01(\x01R\x04damp\"\x85\a\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -2703,7 +2806,13 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\bsettings\x18\x13 \x01(\v2\x14.residua.v1.SettingsR\bsettings\x12\x1d\n" +
 	"\n" +
 	"from_cache\x18\x14 \x01(\bR\tfromCache\x12\x14\n" +
-	"\x05error\x18\x15 \x01(\tR\x05error\"w\n" +
+	"\x05error\x18\x15 \x01(\tR\x05error\x120\n" +
+	"\x14normal_residual_norm\x18\x16 \x01(\x01R\x12normalResidualNorm\x12\x15\n" +
+	"\x06x_norm\x18\x17 \x01(\x01R\x05xNorm\x12&\n" +
+	"\x0fa_norm_estimate\x18\x18 \x01(\x01R\raNormEstimate\x12\x1d\n" +
+	"\n" +
+	"stopped_by\x18\x19 \x01(\tR\tstoppedBy\x12!\n" +
+	"\fzero_columns\x18\x1a \x03(\x03R\vzeroColumns\"w\n" +
 	"\vVectorChunk\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x16\n" +
 	"\x06length\x18\x02 \x01(\x03R\x06length\x12\x16\n" +

@@ -1,0 +1,131 @@
+package api
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"time"
+
+	"github.com/residua/residua/krylov"
+	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/sparse"
+)
+
+// runLSQ is runJob for a least-squares job: LSQR or CGLS on each
+// right-hand side, with the column scaling of the request. There is no
+// set-up to cache: the scaling costs one sweep over A per solve.
+func (s *Server) runLSQ(j *job, p *jobParams) (pb.JobState, error) {
+	a := p.m.a
+	scaling, reason := p.lsqSet.Scaling, "as requested"
+	if scaling == krylov.ScaleAuto {
+		// krylov's rule for ScaleAuto with an operator that has column
+		// norms (ours does): scale when m ≥ n.
+		if a.Rows >= a.Cols {
+			scaling, reason = krylov.ScaleColumns, fmt.Sprintf("auto: %d rows ≥ %d columns", a.Rows, a.Cols)
+		} else {
+			scaling, reason = krylov.ScaleNone, fmt.Sprintf("auto: %d rows < %d columns (the minimum-norm solution needs the unscaled iteration)", a.Rows, a.Cols)
+		}
+	}
+	set := p.lsqSet
+	set.Scaling = scaling
+	j.mu.Lock()
+	j.chosen = scaling.String()
+	j.mu.Unlock()
+	j.publish(&pb.JobEvent{Event: &pb.JobEvent_Accepted{Accepted: &pb.Accepted{
+		MatrixId: p.matrixID, Method: p.method, Preconditioner: scaling.String(),
+		PreconditionerReason: scaling.String() + ": " + reason, RhsCount: int32(len(p.rhs)),
+		Detached: j.info.GetDetached(),
+	}}})
+	s.log.Info("job start", "job", j.id, "matrix", p.matrixID, "rows", a.Rows, "cols", a.Cols, "nonzeros", a.NNZ(),
+		"rhs", len(p.rhs), "method", p.method, "scaling", scaling.String(), "queued_for", time.Since(j.created).String())
+	op := lsqOperator(a)
+	for i, b := range p.rhs {
+		x := make([]float64, a.Cols)
+		si := set
+		si.X0 = p.x0[i]
+		rec := &progressRecorder{s: s, j: j, rhs: i, every: p.every, interval: p.interval}
+		si.Recorder = rec
+		res, lsqErr := krylov.LSQ(j.ctx, op, b, x, si)
+		rec.flush()
+		out := lsqResultMessage(i, &res, reason, lsqErr)
+		j.mu.Lock()
+		if j.solutions != nil {
+			j.solutions[i] = x
+		}
+		j.mu.Unlock()
+		j.publish(&pb.JobEvent{Event: &pb.JobEvent_Result{Result: out}})
+		s.log.Info("solve", "job", j.id, "rhs", i, "status", res.Status.String(), "iterations", res.Iterations,
+			"residual_norm", res.ResidualNorm, "normal_residual_norm", res.NormalResidualNorm, "solve", res.Solve.String())
+		switch {
+		case res.Status == krylov.Cancelled:
+			if cause := context.Cause(j.ctx); cause != nil {
+				return pb.JobState_CANCELLED, cause
+			}
+			if lsqErr == nil {
+				lsqErr = context.Canceled
+			}
+			return pb.JobState_CANCELLED, lsqErr
+		case lsqErr != nil:
+			return pb.JobState_FAILED, lsqErr
+		}
+	}
+	return pb.JobState_FINISHED, nil
+}
+
+// lsqResultMessage converts a least-squares result to the wire form.
+func lsqResultMessage(rhs int, r *krylov.LSQResult, reason string, err error) *pb.SolveResult {
+	out := &pb.SolveResult{
+		Rhs: int32(rhs), Converged: r.Status == krylov.Converged, Status: r.Status.String(),
+		Method: r.Method, Iterations: int64(r.Iterations), RelativeResidual: r.RelResidual,
+		ResidualNorm: r.ResidualNorm, TrueResidualNorm: r.ResidualNorm, RhsNorm: r.RHSNorm,
+		Preconditioner: r.Scaling, PreconditionerReason: r.Scaling + ": " + reason,
+		SolveSeconds: r.Solve.Seconds(), PerIterationSeconds: r.PerIteration.Seconds(),
+		Cond: r.CondEstimate,
+		Settings: &pb.Settings{
+			Atol: r.Settings.ATol, Btol: r.Settings.BTol, Damp: r.Settings.Damp, MaxIter: int64(r.Settings.MaxIter),
+			TimeLimitSeconds: r.Settings.TimeLimit.Seconds(),
+		},
+		NormalResidualNorm: r.NormalResidualNorm, XNorm: r.XNorm, ANormEstimate: r.ANormEstimate,
+		StoppedBy: r.StoppedBy,
+	}
+	for _, c := range r.ZeroColumns {
+		out.ZeroColumns = append(out.ZeroColumns, int64(c))
+	}
+	if err != nil && r.Status != krylov.Cancelled {
+		out.Error = err.Error()
+	}
+	return out
+}
+
+// lsqOperator gives the least-squares methods A with its column norms
+// (for the column scaling and the zero-column report): the matrix itself
+// if sparse provides them, else columnNormed. The CLI's local lsq does the
+// same, so remote and local solves scale, and answer, identically.
+func lsqOperator(a *sparse.CSR) krylov.TransOperator {
+	if op, ok := any(a).(interface {
+		krylov.TransOperator
+		krylov.ColumnNormer
+	}); ok {
+		return op
+	}
+	return columnNormed{a}
+}
+
+// columnNormed adds krylov.ColumnNormer to a CSR matrix.
+type columnNormed struct{ *sparse.CSR }
+
+// ColumnNorms sets dst[j] = ‖A(:, j)‖₂, accumulating the squares of each
+// column's entries in row order.
+func (c columnNormed) ColumnNorms(dst []float64) {
+	if len(dst) != c.Cols {
+		panic(fmt.Sprintf("api: ColumnNorms: len(dst) = %d, want %d", len(dst), c.Cols))
+	}
+	clear(dst)
+	for k, j := range c.ColIdx {
+		v := c.Val[k]
+		dst[j] += v * v
+	}
+	for j := range dst {
+		dst[j] = math.Sqrt(dst[j])
+	}
+}
