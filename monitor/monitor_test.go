@@ -322,3 +322,30 @@ func BenchmarkRecord(b *testing.B) {
 		m.Record(p)
 	}
 }
+
+// The panel follows the terminal's size at each redraw: after the terminal
+// grows, it is drawn once, at the new width, in the same place.
+func TestPanelFollowsResize(t *testing.T) {
+	scr := newScreen(t, 120, 30)
+	var mu sync.Mutex
+	cols := 80
+	size := func() (int, int, error) { mu.Lock(); defer mu.Unlock(); return cols, 30, nil }
+	scr.Write([]byte("$ prompt\n"))
+	m := New(scr, Options{Mode: Panel, Size: size, Target: 1e-8, Redraw: 2 * time.Millisecond})
+	for k := 0; k <= 50; k++ {
+		m.Record(geometric(k, 0.7))
+	}
+	waitFor(t, scr, "iteration 50")
+	mu.Lock()
+	cols = 120
+	mu.Unlock()
+	m.Record(geometric(51, 0.7))
+	waitFor(t, scr, "iteration 51")
+	got := scr.text()
+	// At 120 columns the x axis has 120 − 1 − 7 = 112 cells.
+	if !strings.Contains(got, "└"+strings.Repeat("─", 112)+"\n") || strings.Count(got, "relative residual") != 1 ||
+		!strings.HasPrefix(got, "$ prompt\nrelative residual") {
+		t.Errorf("after growing to 120 columns:\n%s", got)
+	}
+	m.Finish(nil)
+}
