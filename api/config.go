@@ -46,10 +46,12 @@ type Config struct {
 	// MaxRHS bounds the right-hand sides of one solve request. Default 64.
 	MaxRHS int
 	// MaxConcurrentSolves is the number of jobs that iterate at once; more
-	// wait in the queue. Default GOMAXPROCS: a CG iteration here is
-	// single-threaded and memory-bound, so one job per processor uses the
-	// machine without oversubscribing it, and a job never waits behind
-	// another when the machine has an idle core.
+	// wait in the queue. Default GOMAXPROCS: sparse's worker pool serves
+	// one solve's kernels at a time and the others run theirs on their own
+	// goroutine, so a job alone uses every core and GOMAXPROCS jobs use
+	// about one core each; more running jobs would only time-slice the
+	// cores and hold more memory, while a queued job waits for nothing
+	// but a core.
 	MaxConcurrentSolves int
 	// MaxQueued bounds the jobs waiting for a solve slot; a request past it
 	// gets RESOURCE_EXHAUSTED. Default 64.

@@ -1,7 +1,8 @@
 // Package api is the residua gRPC server: it stores uploaded matrices,
-// runs conjugate-gradient solve jobs on them with the same krylov and
-// precond code as a local solve (so a remote solve gives bitwise the same
-// x), and streams their progress to any number of clients. The service is
+// runs solve jobs on them (conjugate gradients for SPD matrices, LSQR or
+// CGLS for least squares) with the same krylov and precond code as a local
+// solve (so a remote solve gives bitwise the same x), and streams their
+// progress to any number of clients. The service is
 // defined, message by message, in proto/residua/v1/residua.proto; this
 // package implements it.
 //

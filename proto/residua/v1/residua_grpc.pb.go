@@ -146,7 +146,9 @@ type SolverClient interface {
 	// There is no server-side deadline: use time_limit for a time budget.
 	Solve(ctx context.Context, in *SolveRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[JobEvent], error)
 	// Watch replays a job's events so far (queued, accepted, the recorded
-	// progress history, results) and then follows the job live until it
+	// progress history, results; a very long solve's progress history is
+	// thinned to at most 2048 events spread over the whole solve, so a
+	// replay may show gaps in seq) and then follows the job live until it
 	// finishes, under the same contract as Solve except that solutions are
 	// never sent (fetch them with DownloadSolution). Any number of clients
 	// may watch a job; watching never affects the job. The stream ends with
@@ -392,7 +394,9 @@ type SolverServer interface {
 	// There is no server-side deadline: use time_limit for a time budget.
 	Solve(*SolveRequest, grpc.ServerStreamingServer[JobEvent]) error
 	// Watch replays a job's events so far (queued, accepted, the recorded
-	// progress history, results) and then follows the job live until it
+	// progress history, results; a very long solve's progress history is
+	// thinned to at most 2048 events spread over the whole solve, so a
+	// replay may show gaps in seq) and then follows the job live until it
 	// finishes, under the same contract as Solve except that solutions are
 	// never sent (fetch them with DownloadSolution). Any number of clients
 	// may watch a job; watching never affects the job. The stream ends with
