@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"runtime"
+	"runtime/debug"
 	"sort"
 	"sync"
 )
@@ -238,8 +239,9 @@ func (a *Assembler) count() {
 // twice.
 //
 // Memory: Build allocates the values first and places them, then drops the
-// blocks' values and, when they were large, runs the collector before
-// allocating the column indices. So the triplets (16 bytes each) and the whole
+// blocks' values and, when they were large (64 MiB or more), collects them
+// and returns their pages to the operating system (debug.FreeOSMemory)
+// before allocating the column indices. So the triplets (16 bytes each) and the whole
 // result (12 bytes per entry plus 8 per row) are never held at once. For a
 // symmetric matrix stored as one triangle, with s triplets and about 2s
 // entries in the result, the peak is near 16s + 16s + 8·rows bytes against a
@@ -318,10 +320,13 @@ func (a *Assembler) Build() (*CSR, BuildStats, error) {
 		blocks[b].V = nil
 	}
 	if 8*total >= gcThreshold {
-		// The released values are garbage the collector has not yet seen;
-		// reclaim them before the column indices are allocated, so the peak
-		// stays near the size of the result.
-		runtime.GC()
+		// The released values are garbage the collector has not yet seen.
+		// Collecting them is not enough: they lie in pieces (one per block)
+		// that the contiguous column-index array cannot reuse, so the
+		// process would keep their pages and take new ones. Returning them
+		// to the operating system keeps the resident peak, not only the
+		// heap's, near the size of the result.
+		debug.FreeOSMemory()
 	}
 	colIdx := make([]int32, nnz)
 	parallel(w, func(k int) {
