@@ -154,9 +154,11 @@ func readVector(r io.Reader, file string, opt *Options) ([]float64, Info, error)
 			}
 			if seen[p] {
 				info.Duplicates++
+				x[p] += v
+				continue
 			}
 			seen[p] = true
-			x[p] += v
+			x[p] = v // as given, so that a lone -0 keeps its sign
 		}
 	}
 	for p, s := range seen {
