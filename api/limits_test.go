@@ -175,6 +175,24 @@ func TestNotSPD(t *testing.T) {
 	if out.State != "FAILED" || len(out.Results) != 1 || out.Results[0].Status != "breakdown" {
 		t.Errorf("outcome %+v", out)
 	}
+	// Jacobi needs a positive diagonal (the diagonal of an SPD matrix is
+	// positive: Golub and Van Loan, 4th ed., §4.2.1): the set-up fails, the
+	// job goes from queued to finished without an accepted event.
+	var kinds []string
+	out, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Precond: "jacobi"},
+		func(e client.Event) {
+			switch {
+			case e.Queued != nil:
+				kinds = append(kinds, "queued")
+			case e.Accepted != nil:
+				kinds = append(kinds, "accepted")
+			case e.Finished != nil:
+				kinds = append(kinds, "finished")
+			}
+		})
+	if status.Code(err) != codes.FailedPrecondition || strings.Join(kinds, ",") != "queued,finished" || out.State != "FAILED" {
+		t.Errorf("jacobi on a negative diagonal: %v, events %v, state %s", err, kinds, out.State)
+	}
 	nonsym := "%%MatrixMarket matrix coordinate real general\n2 2 3\n1 1 2.0\n1 2 1.0\n2 2 2.0\n"
 	m, err = c.UploadReader(ctx, strings.NewReader(nonsym), "nonsym.mtx", nil)
 	if err != nil {

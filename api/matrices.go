@@ -38,8 +38,14 @@ func (s *Server) ListMatrices(ctx context.Context, _ *pb.ListMatricesRequest) (*
 
 // DeleteMatrix implements the DeleteMatrix RPC.
 func (s *Server) DeleteMatrix(ctx context.Context, req *pb.DeleteMatrixRequest) (*pb.DeleteMatrixResponse, error) {
+	// The cached preconditioners go with the matrix (matrixEvicted); count
+	// their bytes first, while they are still there.
 	pfx := precondKeyPrefix(req.GetId())
-	freedP := s.store.removeWhere(func(k string) bool { return strings.HasPrefix(k, pfx) })
+	items, _ := s.store.snapshot(func(k string) bool { return strings.HasPrefix(k, pfx) })
+	freedP := int64(0)
+	for _, it := range items {
+		freedP += s.store.size(it)
+	}
 	freed, ok, err := s.store.remove(matrixKey(req.GetId()))
 	if err != nil {
 		return nil, err

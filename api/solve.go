@@ -528,14 +528,30 @@ func (s *Server) preconditioner(ctx context.Context, p *jobParams) (*precond.Cho
 		s.mu.Unlock()
 
 		var it *item
-		choice, err := precond.New(p.m.a, p.kind)
-		if err == nil {
-			err = s.store.reserve(choice.Bytes, "preconditioner "+string(choice.Kind))
-		}
-		if err == nil {
-			b.choice = choice
-			it, _ = s.store.insert(key, choice.Bytes, 1, b, nil)
-		}
+		var choice *precond.Choice
+		err := func() (err error) {
+			// Whatever happens, even a panic (recovered by the job), the
+			// jobs waiting for this set-up must be released.
+			defer func() {
+				if p := recover(); p != nil {
+					b.err = ErrPanic
+					s.mu.Lock()
+					delete(s.building, key)
+					s.mu.Unlock()
+					close(b.ready)
+					panic(p)
+				}
+			}()
+			choice, err = precond.New(p.m.a, p.kind)
+			if err == nil {
+				err = s.store.reserve(choice.Bytes, "preconditioner "+string(choice.Kind))
+			}
+			if err == nil {
+				b.choice = choice
+				it, _ = s.store.insert(key, choice.Bytes, 1, b, nil)
+			}
+			return err
+		}()
 		s.mu.Lock()
 		delete(s.building, key)
 		s.mu.Unlock()

@@ -228,6 +228,13 @@ func (s *store) snapshot(match func(key string) bool) (items []*item, pins []int
 	return items, pins
 }
 
+// size returns an item's accounted bytes.
+func (s *store) size(it *item) int64 {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return it.bytes
+}
+
 // usage reports the bytes in use and the budget.
 func (s *store) usage() (used, budget int64) {
 	s.mu.Lock()

@@ -114,9 +114,10 @@ type SolverClient interface {
 	// Stream contract, in order:
 	//  0. exactly one `queued` event, at once (its job_id is the job's id;
 	//     position 0 when a solve slot is free);
-	//  1. exactly one `accepted` event (the preconditioner chosen and why,
-	//     whether it came from the cache), sent once the preconditioner is
-	//     ready;
+	//  1. one `accepted` event (the preconditioner chosen and why, whether
+	//     it came from the cache), sent once the preconditioner is ready; a
+	//     job cancelled while queued, or whose preconditioner cannot be set
+	//     up, goes straight to `finished`;
 	//  2. for each right-hand side, in order: `progress` events (the first
 	//     at iteration 0, at most one per iteration, the last at the final
 	//     iteration), then one `result`, then, unless keep_solution is set,
@@ -362,9 +363,10 @@ type SolverServer interface {
 	// Stream contract, in order:
 	//  0. exactly one `queued` event, at once (its job_id is the job's id;
 	//     position 0 when a solve slot is free);
-	//  1. exactly one `accepted` event (the preconditioner chosen and why,
-	//     whether it came from the cache), sent once the preconditioner is
-	//     ready;
+	//  1. one `accepted` event (the preconditioner chosen and why, whether
+	//     it came from the cache), sent once the preconditioner is ready; a
+	//     job cancelled while queued, or whose preconditioner cannot be set
+	//     up, goes straight to `finished`;
 	//  2. for each right-hand side, in order: `progress` events (the first
 	//     at iteration 0, at most one per iteration, the last at the final
 	//     iteration), then one `result`, then, unless keep_solution is set,
