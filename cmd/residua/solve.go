@@ -4,10 +4,14 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
 	"math"
+	"os"
 	"path/filepath"
 	"strings"
 	"time"
+
+	"golang.org/x/term"
 
 	"github.com/residua/residua/chart"
 	"github.com/residua/residua/history"
@@ -345,6 +349,11 @@ func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (kry
 	}
 	var mon *monitor.Monitor
 	if !o.quiet {
+		if f, ok := e.stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
+			// On a terminal the summary printed after the solve replaces
+			// the panel, so the panel leaves nothing behind.
+			mo.Summary = func(io.Writer, *krylov.Result) {}
+		}
 		mon = monitor.New(e.stderr, mo)
 		t = append(t, mon)
 	}
