@@ -93,6 +93,9 @@ type call struct {
 	next   []atomic.Int64 // next unclaimed block of each part
 	done   atomic.Int64   // blocks completed
 	refs   atomic.Int32   // hand-offs to helpers not yet finished
+	// finished receives one token per use, from whoever completes the last
+	// block; the caller takes it before returning.
+	finished chan struct{}
 }
 
 type workerPool struct {
@@ -137,7 +140,11 @@ func newPool(parts, blk, minWork int) *workerPool {
 		jobs:    make([]chan *call, parts-1),
 	}
 	for range 2*parts + 1 {
-		p.calls = append(p.calls, &call{bounds: make([]int, parts+1), next: make([]atomic.Int64, parts)})
+		p.calls = append(p.calls, &call{
+			bounds:   make([]int, parts+1),
+			next:     make([]atomic.Int64, parts),
+			finished: make(chan struct{}, 1),
+		})
 	}
 	for h := range p.jobs {
 		ch := make(chan *call, 1)
@@ -164,13 +171,16 @@ func (c *call) work(k, blk int) {
 				break
 			}
 			c.j.sums[b] = c.j.block(int(b), blk)
-			c.done.Add(1)
+			if c.done.Add(1) == int64(c.nb) {
+				c.finished <- struct{}{}
+			}
 		}
 	}
 }
 
 // run hands c to the helpers, works on it, and waits until every block is
-// done. p.mu must be held and c filled in except for the counters.
+// done. p.mu must be held, c filled in except for the counters, and
+// c.nb > 0.
 func (p *workerPool) run(c *call) float64 {
 	for k := range c.next {
 		c.next[k].Store(int64(c.bounds[k]))
@@ -187,13 +197,13 @@ func (p *workerPool) run(c *call) float64 {
 		}
 	}
 	c.work(0, p.blk)
-	// Wait for blocks that helpers have claimed but not finished: at most
-	// one block each, a few microseconds.
-	for spin := 0; c.done.Load() < int64(c.nb); spin++ {
-		if spin > 100 {
-			runtime.Gosched()
-		}
+	// Wait for blocks that helpers have claimed but not finished (at most
+	// one each, a few microseconds): spin briefly, then sleep on the
+	// channel rather than take the CPU from a helper that the operating
+	// system has descheduled.
+	for spin := 0; spin < 1000 && c.done.Load() < int64(c.nb); spin++ {
 	}
+	<-c.finished
 	return sumBlocks(c.j.sums)
 }
 
@@ -220,7 +230,7 @@ func sumBlocks(sums []float64) float64 {
 // block sums (zero for kernels without a reduction).
 func (p *workerPool) vecOp(j job, n int) float64 {
 	nb := (n + p.blk - 1) / p.blk
-	if n < p.minWork || p.parts == 1 || !p.mu.TryLock() {
+	if nb == 0 || n < p.minWork || p.parts == 1 || !p.mu.TryLock() {
 		return j.inline(nb, p.blk)
 	}
 	defer p.mu.Unlock()
@@ -241,7 +251,7 @@ func (p *workerPool) vecOp(j job, n int) float64 {
 func (p *workerPool) matOp(j job) float64 {
 	a := j.a
 	nb := (a.Rows + p.blk - 1) / p.blk
-	if a.NNZ()+a.Rows < p.minWork || p.parts == 1 || !p.mu.TryLock() {
+	if nb == 0 || a.NNZ()+a.Rows < p.minWork || p.parts == 1 || !p.mu.TryLock() {
 		return j.inline(nb, p.blk)
 	}
 	defer p.mu.Unlock()
