@@ -189,3 +189,33 @@ func BenchmarkSmall(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkAnalyze measures the report on a 3D Poisson matrix (one sweep for
+// the row figures, one with a binary search per off-diagonal entry for the
+// symmetry).
+func BenchmarkAnalyze(b *testing.B) {
+	for _, n := range []int{40, 100} {
+		a := stencil.Poisson3D(n)
+		b.Run(fmt.Sprintf("poisson3d-%d", n), func(b *testing.B) {
+			b.SetBytes(a.Bytes())
+			b.ReportAllocs()
+			for b.Loop() {
+				sparse.Analyze(a, 1e-12)
+			}
+		})
+	}
+}
+
+// BenchmarkTranspose measures building the transpose that MulVecTrans keeps.
+func BenchmarkTranspose(b *testing.B) {
+	for _, n := range []int{40, 100} {
+		a := stencil.Poisson3D(n)
+		b.Run(fmt.Sprintf("poisson3d-%d", n), func(b *testing.B) {
+			b.SetBytes(a.Bytes())
+			b.ReportAllocs()
+			for b.Loop() {
+				a.Transpose()
+			}
+		})
+	}
+}
