@@ -4,16 +4,17 @@ import (
 	"fmt"
 	"math"
 	"testing"
+	"time"
 
 	"github.com/residua/residua/sparse"
-
 	"github.com/residua/residua/sparse/stencil"
 )
 
-// This file holds the level-scheduled triangular solves that the package
-// measured against its sequential ones (see BenchmarkLevels and doc.go); they
-// live beside the benchmark, not in the package, because the sequential
-// solves won on this machine.
+// This file holds the row-by-row level-scheduled triangular solves that the
+// package measured against its sequential and segment-scheduled ones (see
+// BenchmarkLevels and doc.go). They live beside the benchmark, not in the
+// package, because they lost to both: they are the measured alternative,
+// not a product. The file also tests the segment schedule of sched.go.
 
 // Level scheduling of the triangular solves (Anderson and Saad, Int. J.
 // High Speed Computing 1, 1989; Saad, 2nd ed., §11.6.2): row i of the
@@ -142,43 +143,51 @@ func (m *IC0) levelsApply(dst, r []float64, fw, bw *levelSolve, parts int) {
 	}
 }
 
-// BenchmarkLevels compares one IC(0) application done by the sequential
-// solves (seq), by the level-scheduled ones on one goroutine (levels-1: the
-// cost of level order alone) and on two (levels-2).
+// BenchmarkLevels compares one IC(0) application on 3D Poisson done by the
+// sequential solves, by row-by-row level scheduling on one goroutine (the
+// cost of level order alone) and on two, and by the segment schedule of
+// sched.go on the package's helpers. Each reports its ratio to one SpMV
+// (sparse.(*CSR).MulVec, parallel) measured just before it.
 func BenchmarkLevels(b *testing.B) {
-	for _, n := range []int{100} {
+	for _, n := range []int{100, 160} {
 		a := stencil.Poisson3D(n)
 		m, _ := NewIC0(a, IC0Options{})
 		fw := buildLevels(m.n, m.lPtr, m.lCol, m.lVal, true)
 		bw := buildLevels(m.n, m.uPtr, m.uCol, m.uVal, false)
-		b.Logf("levels fwd %d bwd %d", len(fw.levPtr)-1, len(bw.levPtr)-1)
+		seg := newSchedule(m, 2)
 		r := stencil.Ones(a)
 		z := make([]float64, a.Rows)
-		z2 := make([]float64, a.Rows)
-		m.Precondition(z, r)
-		m.levelsApply(z2, r, fw, bw, 2)
-		for i := range z {
-			if z[i] != z2[i] {
-				b.Fatalf("differ at %d", i)
-			}
+		y := make([]float64, a.Rows)
+		for _, v := range []struct {
+			name  string
+			apply func()
+		}{
+			{"sequential", func() { m.forward(z, r, 0, m.n); m.backward(z, 0, m.n) }},
+			{"row-levels-1", func() { m.levelsApply(z, r, fw, bw, 1) }},
+			{"row-levels-2", func() { m.levelsApply(z, r, fw, bw, 2) }},
+			{"segment-levels-2", func() {
+				if !seg.applyParallel(m, z, r) {
+					b.Fatal("helpers busy or sized differently")
+				}
+			}},
+		} {
+			b.Run(fmt.Sprintf("%s/poisson3d-%d", v.name, n), func(b *testing.B) {
+				spmv := time.Duration(1 << 62)
+				for k := 0; k < 5; k++ {
+					t0 := time.Now()
+					a.MulVec(y, r)
+					spmv = min(spmv, time.Since(t0))
+				}
+				b.ResetTimer()
+				for b.Loop() {
+					v.apply()
+				}
+				b.StopTimer()
+				b.ReportMetric(float64(b.Elapsed()/time.Duration(b.N))/float64(spmv), "spmv/op")
+			})
 		}
-		for rep := 0; rep < 3; rep++ {
-			b.Run(fmt.Sprintf("seq/%d", n), func(b *testing.B) {
-				for b.Loop() {
-					m.Precondition(z, r)
-				}
-			})
-			b.Run(fmt.Sprintf("lev1/%d", n), func(b *testing.B) {
-				for b.Loop() {
-					m.levelsApply(z, r, fw, bw, 1)
-				}
-			})
-			b.Run(fmt.Sprintf("lev2/%d", n), func(b *testing.B) {
-				for b.Loop() {
-					m.levelsApply(z, r, fw, bw, 2)
-				}
-			})
-		}
+		b.Logf("poisson3d-%d: %d row levels forward, %d backward; %d segment levels forward, %d backward",
+			n, len(fw.levPtr)-1, len(bw.levPtr)-1, seg.fwd.count, seg.bwd.count)
 	}
 }
 
@@ -218,6 +227,16 @@ func TestSegmentScheduleMatchesSequential(t *testing.T) {
 			for i := range got {
 				if math.Float64bits(got[i]) != math.Float64bits(want[i]) {
 					t.Fatalf("row %d: scheduled %v, sequential %v", i, got[i], want[i])
+				}
+			}
+			// The row-by-row levels of BenchmarkLevels too.
+			fw := buildLevels(m.n, m.lPtr, m.lCol, m.lVal, true)
+			bw := buildLevels(m.n, m.uPtr, m.uCol, m.uVal, false)
+			rowLevels := make([]float64, len(r))
+			m.levelsApply(rowLevels, r, fw, bw, 2)
+			for i := range rowLevels {
+				if math.Float64bits(rowLevels[i]) != math.Float64bits(want[i]) {
+					t.Fatalf("row %d: row levels %v, sequential %v", i, rowLevels[i], want[i])
 				}
 			}
 			// And through Precondition with the helpers.
