@@ -5,6 +5,8 @@ import (
 	"io"
 	"math"
 	"path/filepath"
+	"runtime"
+	"strings"
 	"testing"
 )
 
@@ -193,5 +195,38 @@ func TestLenient(t *testing.T) {
 	}
 	if math.Signbit(x[1]) {
 		t.Errorf("absent entry is -0")
+	}
+}
+
+// A short file that claims a huge matrix costs nothing: without any limit,
+// reading huge-claim.mtx (10^12 entries claimed, 2 present) and files of
+// 2·10^9 rows whose data end early allocate only the fixed buffers (about
+// 140 KB for a stream, 1.1 MB with ReadMatrixFile's file buffers, measured
+// with runtime.MemStats.TotalAlloc), nothing that grows with the claim.
+func TestHugeClaimsCostNothing(t *testing.T) {
+	texts := map[string]string{
+		"huge-claim.mtx": "",
+		"rows":           "%%MatrixMarket matrix coordinate real general\n2000000000 2000000000 5\n1 1 1\n",
+		"array":          "%%MatrixMarket matrix array real general\n2000000000 2000000000\n1\n",
+	}
+	for name, text := range texts {
+		var err error
+		var ms0, ms1 runtime.MemStats
+		runtime.ReadMemStats(&ms0)
+		if text == "" {
+			_, _, err = ReadMatrixFile(filepath.Join(catalogue, name), nil)
+		} else {
+			_, _, err = ReadMatrix(strings.NewReader(text), nil)
+		}
+		runtime.ReadMemStats(&ms1)
+		if !errors.Is(err, io.ErrUnexpectedEOF) {
+			t.Errorf("%s: err = %v, want io.ErrUnexpectedEOF", name, err)
+		}
+		// Fixed costs: the 64 KiB line buffer, a first chunk of 64 KiB and
+		// the file's read buffers (2 MiB for ReadMatrixFile).
+		t.Logf("%s: %d bytes allocated", name, ms1.TotalAlloc-ms0.TotalAlloc)
+		if got := ms1.TotalAlloc - ms0.TotalAlloc; got > 3<<20 {
+			t.Errorf("%s: allocated %d bytes", name, got)
+		}
 	}
 }
