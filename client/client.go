@@ -39,9 +39,10 @@ const maxChunkSize = 4_000_000
 // Client is a connection to a residua server. Its methods are safe for
 // concurrent use.
 type Client struct {
-	conn  *grpc.ClientConn
-	rpc   pb.SolverClient
-	chunk int
+	conn   *grpc.ClientConn
+	rpc    pb.SolverClient
+	chunk  int
+	inline int
 }
 
 type options struct {
@@ -49,6 +50,7 @@ type options struct {
 	tokenErr error
 	tls      *tls.Config
 	chunk    int
+	inline   int
 	dialOpts []grpc.DialOption
 }
 
@@ -108,6 +110,14 @@ func WithChunkSize(n int) Option {
 	return func(o *options) { o.chunk = n }
 }
 
+// WithInlineVectorBytes sets how many bytes of vectors a solve request
+// may carry inline (default 2 MiB, at most 3 MiB so the request fits
+// gRPC's 4 MiB message limit); longer vectors are uploaded first with
+// UploadVector. Zero uploads every vector.
+func WithInlineVectorBytes(n int) Option {
+	return func(o *options) { o.inline = n }
+}
+
 // WithDialOptions adds gRPC dial options (a custom dialer in tests, for
 // example).
 func WithDialOptions(opts ...grpc.DialOption) Option {
@@ -119,7 +129,7 @@ func WithDialOptions(opts ...grpc.DialOption) Option {
 // server shows up as an UNAVAILABLE error from the first call. ctx is not
 // kept.
 func Dial(ctx context.Context, addr string, opts ...Option) (*Client, error) {
-	o := options{chunk: DefaultChunkSize}
+	o := options{chunk: DefaultChunkSize, inline: inlineBudget}
 	for _, opt := range opts {
 		opt(&o)
 	}
@@ -128,6 +138,9 @@ func Dial(ctx context.Context, addr string, opts ...Option) (*Client, error) {
 	}
 	if o.chunk < 1 || o.chunk > maxChunkSize {
 		return nil, fmt.Errorf("client: chunk size %d is outside [1, %d]", o.chunk, maxChunkSize)
+	}
+	if o.inline < 0 || o.inline > maxInline {
+		return nil, fmt.Errorf("client: inline vector bytes %d is outside [0, %d]", o.inline, maxInline)
 	}
 	if err := ctx.Err(); err != nil {
 		return nil, err
@@ -156,7 +169,7 @@ func Dial(ctx context.Context, addr string, opts ...Option) (*Client, error) {
 	if err != nil {
 		return nil, fmt.Errorf("client: %w", err)
 	}
-	return &Client{conn: conn, rpc: pb.NewSolverClient(conn), chunk: o.chunk}, nil
+	return &Client{conn: conn, rpc: pb.NewSolverClient(conn), chunk: o.chunk, inline: o.inline}, nil
 }
 
 // Close closes the connection.

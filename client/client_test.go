@@ -79,10 +79,12 @@ func server(t *testing.T, cfg api.Config, opts ...client.Option) *client.Client 
 // UploadVector; a kept solution comes back with DownloadSolution; odd
 // chunk sizes split values across messages.
 func TestLargeVectors(t *testing.T) {
-	c := server(t, api.Config{}, client.WithChunkSize(4093))
+	// A 4 KiB inline budget sends this problem's vectors through
+	// UploadVector.
+	c := server(t, api.Config{}, client.WithChunkSize(4093), client.WithInlineVectorBytes(4096))
 	ctx := context.Background()
-	a := stencil.Poisson2D(530) // 280,900 rows: 2.2 MB per vector, over the inline budget
-	m, err := c.UploadCSR(ctx, a, "p530")
+	a := stencil.Poisson2D(64) // 4096 rows: 32 KiB per vector
+	m, err := c.UploadCSR(ctx, a, "p64")
 	if err != nil {
 		t.Fatal(err)
 	}

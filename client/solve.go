@@ -15,9 +15,13 @@ import (
 )
 
 // inlineBudget is how many bytes of vectors a solve request carries
-// inline; longer vectors are uploaded first with UploadVector, so the
-// request stays well under gRPC's 4 MiB message limit.
-const inlineBudget = 2 << 20
+// inline by default; longer vectors are uploaded first with UploadVector,
+// so the request stays well under gRPC's 4 MiB message limit. maxInline
+// bounds WithInlineVectorBytes.
+const (
+	inlineBudget = 2 << 20
+	maxInline    = 3 << 20
+)
 
 // SolveRequest describes a remote solve. Zero fields take the server's
 // defaults, which are the solver's.
@@ -180,7 +184,7 @@ func (c *Client) Solve(ctx context.Context, req SolveRequest, onEvent func(Event
 	if req.ProgressInterval > 0 {
 		preq.Progress.Interval = durationpb.New(req.ProgressInterval)
 	}
-	budget := inlineBudget
+	budget := c.inline
 	ref := func(x []float64, name string) (*pb.VectorRef, error) {
 		if 8*len(x) <= budget {
 			budget -= 8 * len(x)
