@@ -21,17 +21,16 @@ const (
 // residual meets the stopping test). A recomputation that lowers the
 // smallest true residual seen so far (initial residual, refreshes, checks)
 // by at least the factor cgStagnationGain clears the strikes. Otherwise it
-// is a strike if it is a failed convergence check, or a refresh at which the
-// recursive residual had drifted below the true one by more than the
-// fraction cgDriftGap of it (far above the rounding floor the two agree to
-// many more digits than that).
-// After cgStagnationStrikes strikes without a clearing, the solve stops with
-// status Stagnated: the recursive residual keeps falling but the true one no
-// longer follows, which is the attainable-accuracy floor of finite
-// precision (Greenbaum, Iterative Methods for Solving Linear Systems, 1997,
-// §7.3; van der Vorst and Ye, SIAM J. Sci. Comput. 22, 2000). A plateau on
-// which both residuals stall together is not a strike: CG may still leave
-// it. The factor and the count are our own choice.
+// is a strike if the recursive residual has run ahead of the true one, below
+// it by more than the fraction cgDriftGap (far above the rounding floor the
+// two agree to many more digits than that). After cgStagnationStrikes
+// strikes without a clearing, the solve stops with status Stagnated: the
+// recursive residual keeps falling but the true one no longer follows,
+// which is the attainable-accuracy floor of finite precision (Greenbaum,
+// Iterative Methods for Solving Linear Systems, 1997, §7.3; van der Vorst
+// and Ye, SIAM J. Sci. Comput. 22, 2000). A plateau on which both residuals
+// stall together is not a strike: CG may still leave it. The factor, the
+// fraction and the count are our own choice.
 const (
 	cgStagnationStrikes = 3
 	cgStagnationGain    = 0.5
@@ -107,7 +106,7 @@ func CGMulti(ctx context.Context, a Operator, bs, xs [][]float64, m Precondition
 	return results, nil
 }
 
-// checkSystem panics on a programmer's mistake in the arguments and returns
+// cgCheckSystem panics on a programmer's mistake in the arguments and returns
 // the dimension.
 func cgCheckSystem(a Operator, b, x []float64, s Settings) int {
 	rows, cols := a.Dims()

@@ -26,16 +26,16 @@
 // and it is only ever declared met on the true residual b − A·x recomputed
 // from x, never on the recursively updated one alone: when the recursive
 // residual meets the test, the true one is computed; if it falls short, the
-// iteration goes on, with the true residual replacing the recursive one when
-// they have drifted apart by more than a quarter of the tolerance (the same
-// check runs every Settings.RefreshEvery iterations; replacing
-// unconditionally would perturb CG's recurrences and cost iterations). If the true residual
-// then stops improving while the recursive one still falls (CG's rule is
-// documented beside cgStagnationStrikes in cg.go: three true-residual
-// recomputations that fail to halve the best true residual so far, each a
-// failed convergence check or a refresh showing the recursive residual more
-// than 1% below the true one), the solve ends with status Stagnated, never with a
-// false Converged. When b = 0 the solution x = 0 is returned at once.
+// iteration goes on, with the true residual replacing the recursive one
+// when they have drifted apart by more than a quarter of the tolerance.
+// The same check runs every Settings.RefreshEvery iterations (replacing
+// unconditionally would perturb CG's recurrences and cost iterations). If
+// the true residual then stops improving while the recursive one still
+// falls (CG's rule is documented beside cgStagnationStrikes in cg.go: three
+// true-residual recomputations that fail to halve the best true residual so
+// far while the recursive residual runs more than 1% below the true one),
+// the solve ends with status Stagnated, never with a false Converged. When
+// b = 0 the solution x = 0 is returned at once.
 //
 // An iteration is one product with A inside the loop; the initial
 // residual's product and the true-residual recomputations are not
