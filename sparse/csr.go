@@ -62,6 +62,9 @@ func (a *CSR) Validate() error {
 		if hi < lo {
 			return fmt.Errorf("%w: row pointer decreases at row %d", ErrInvalidCSR, i)
 		}
+		if hi > nnz {
+			return fmt.Errorf("%w: row %d ends at entry %d, past the %d entries", ErrInvalidCSR, i, hi, nnz)
+		}
 		prev := int32(-1)
 		for _, j := range a.ColIdx[lo:hi] {
 			if j < 0 || int(j) >= a.Cols {
