@@ -212,23 +212,30 @@ func TestCGDistinctEigenvalues(t *testing.T) {
 	}
 
 	for _, c := range []struct {
-		name string
-		a    krylov.Operator
-	}{{"diagonal", cgDiagOp(d)}, {"orthogonally similar", cgDenseOp{sym}}} {
+		name  string
+		a     krylov.Operator
+		m     krylov.Preconditioner
+		scale float64 // M⁻¹ = scale·I multiplies the eigenvalues
+	}{
+		{"diagonal", cgDiagOp(d), nil, 1},
+		{"orthogonally similar", cgDenseOp{sym}, nil, 1},
+		{"preconditioned", cgDenseOp{sym}, cgScale(0.25), 0.25},
+	} {
 		t.Run(c.name, func(t *testing.T) {
 			x := make([]float64, n)
-			res, err := krylov.CG(context.Background(), c.a, b, x, nil, krylov.Settings{RelTol: 1e-10})
+			res, err := krylov.CG(context.Background(), c.a, b, x, c.m, krylov.Settings{RelTol: 1e-10})
 			if err != nil {
 				t.Fatal(err)
 			}
 			if res.Status != krylov.Converged || res.Iterations > k {
 				t.Errorf("status %v after %d iterations, want convergence in at most %d", res.Status, res.Iterations, k)
 			}
-			// After k steps the Ritz values are the k eigenvalues themselves
-			// (the Krylov space is invariant), so the Lanczos estimates are
-			// the extremes 1 and 30.
-			if math.Abs(res.LambdaMin-1) > 1e-6 || math.Abs(res.LambdaMax-30) > 1e-6 {
-				t.Errorf("Lanczos extremes (%g, %g), want (1, 30)", res.LambdaMin, res.LambdaMax)
+			// After k steps the Ritz values are the k eigenvalues of M⁻¹A
+			// themselves (the Krylov space is invariant), so the Lanczos
+			// estimates are its extremes, scale·1 and scale·30.
+			lo, hi := c.scale*1, c.scale*30
+			if math.Abs(res.LambdaMin-lo) > 1e-6*hi || math.Abs(res.LambdaMax-hi) > 1e-6*hi {
+				t.Errorf("Lanczos extremes (%g, %g), want (%g, %g)", res.LambdaMin, res.LambdaMax, lo, hi)
 			}
 		})
 	}

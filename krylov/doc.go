@@ -60,6 +60,13 @@
 // loop had not just done so). A wall-time budget (Settings.TimeLimit) is a
 // status, TimeLimit, while a context deadline is a cancellation.
 //
+// # Memory
+//
+// CG holds, besides A, the preconditioner and the caller's b and x, the
+// vectors r, p and A·p, and z = M⁻¹·r with a preconditioner: at most six
+// vectors of length n in all. The Lanczos coefficients behind the
+// eigenvalue estimates take at most 1 MiB, however many iterations run.
+//
 // # Progress
 //
 // A Recorder in Settings gets Record at iteration 0 (the initial residual),
