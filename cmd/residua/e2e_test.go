@@ -12,6 +12,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"sync"
 	"syscall"
 	"testing"
 	"time"
@@ -34,15 +35,23 @@ func buildBinary(t *testing.T) string {
 type server struct {
 	cmd       *exec.Cmd
 	grpc, web string
-	stderr    *bytes.Buffer // everything it printed, once it has exited
+	mu        sync.Mutex    // guards stderr, written by the reading goroutine
+	stderr    *bytes.Buffer // everything it printed so far
 	done      chan error
+}
+
+func (s *server) log() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.stderr.String()
 }
 
 // startServer runs 'residua serve' on loopback ports picked at run time
 // (port 0) and reads the addresses it prints.
-func startServer(t *testing.T, bin string) *server {
+func startServer(t *testing.T, bin string, extra ...string) *server {
 	t.Helper()
-	cmd := exec.Command(bin, "serve", "--listen", "127.0.0.1:0", "--http", "127.0.0.1:0", "--shutdown-grace", "2s")
+	args := append([]string{"serve", "--listen", "127.0.0.1:0", "--http", "127.0.0.1:0", "--shutdown-grace", "2s"}, extra...)
+	cmd := exec.Command(bin, args...)
 	pipe, err := cmd.StderrPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -57,7 +66,9 @@ func startServer(t *testing.T, bin string) *server {
 		var a [2]string
 		for sc.Scan() {
 			line := sc.Text()
+			s.mu.Lock()
 			s.stderr.WriteString(line + "\n")
+			s.mu.Unlock()
 			if v, ok := strings.CutPrefix(line, "residua: serving gRPC on "); ok {
 				a[0] = v
 			}
@@ -78,7 +89,7 @@ func startServer(t *testing.T, bin string) *server {
 	case a := <-addrs:
 		s.grpc, s.web = a[0], a[1]
 	case err := <-s.done:
-		t.Fatalf("server exited: %v\n%s", err, s.stderr)
+		t.Fatalf("server exited: %v\n%s", err, s.log())
 	case <-time.After(20 * time.Second):
 		t.Fatal("server printed no address within 20 s")
 	}
@@ -88,7 +99,14 @@ func startServer(t *testing.T, bin string) *server {
 // cli runs the binary and returns stdout, stderr and the exit status.
 func cli(t *testing.T, bin string, args ...string) (string, string, int) {
 	t.Helper()
+	return cliEnv(t, nil, bin, args...)
+}
+
+// cliEnv is cli with extra environment variables ("NAME=value").
+func cliEnv(t *testing.T, env []string, bin string, args ...string) (string, string, int) {
+	t.Helper()
 	cmd := exec.Command(bin, args...)
+	cmd.Env = append(os.Environ(), env...)
 	var out, errb bytes.Buffer
 	cmd.Stdout, cmd.Stderr = &out, &errb
 	err := cmd.Run()
@@ -100,6 +118,27 @@ func cli(t *testing.T, bin string, args ...string) (string, string, int) {
 		t.Fatalf("running %q: %v", args, err)
 	}
 	return out.String(), errb.String(), 0
+}
+
+// sameBits fails unless two vector files hold bitwise equal values.
+func sameBits(t *testing.T, remote, local string) {
+	t.Helper()
+	x1, _, err := matrixio.ReadVectorFile(remote, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x2, _, err := matrixio.ReadVectorFile(local, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(x1) != len(x2) {
+		t.Fatalf("%d entries remote, %d local", len(x1), len(x2))
+	}
+	for i := range x1 {
+		if math.Float64bits(x1[i]) != math.Float64bits(x2[i]) {
+			t.Fatalf("x[%d]: remote %v, local %v", i, x1[i], x2[i])
+		}
+	}
 }
 
 func decodeReport(t *testing.T, stdout string) solveReport {
@@ -123,6 +162,7 @@ func TestEndToEnd(t *testing.T) {
 	}
 	matrix := sharedMatrix(t, "bcsstk14.mtx")
 	bin := buildBinary(t)
+	t.Run("token", func(t *testing.T) { testToken(t, bin) })
 	srv := startServer(t, bin)
 	dir := t.TempDir()
 	xr, xl := filepath.Join(dir, "remote.mtx"), filepath.Join(dir, "local.mtx")
@@ -151,15 +191,7 @@ func TestEndToEnd(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	x2, _, err := matrixio.ReadVectorFile(xl, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i := range x1 {
-		if math.Float64bits(x1[i]) != math.Float64bits(x2[i]) {
-			t.Fatalf("x[%d]: remote %v, local %v", i, x1[i], x2[i])
-		}
-	}
+	sameBits(t, xr, xl)
 	b := make([]float64, a.Rows)
 	a.MulVec(b, onesVec(a.Cols))
 	r := make([]float64, a.Rows)
@@ -170,6 +202,22 @@ func TestEndToEnd(t *testing.T) {
 	if rel := norm2(r) / norm2(b); rel > 1e-8 {
 		t.Errorf("true relative residual of the received x is %g > rtol 1e-8", rel)
 	}
+
+	// Least squares through the server: the same answer, bitwise, as a
+	// local lsq (the same krylov.LSQ code).
+	lr, ll := filepath.Join(dir, "lsq-remote.mtx"), filepath.Join(dir, "lsq-local.mtx")
+	well, wellB := sharedMatrix(t, "well1033.mtx"), sharedMatrix(t, "well1033_b.mtx")
+	stdout, stderr, code = cli(t, bin, "lsq", "--server", srv.grpc, well, "-b", wellB, "--json", "-o", lr)
+	if code != 0 {
+		t.Fatalf("remote lsq: exit %d\n%s", code, stderr)
+	}
+	if rep := decodeReport(t, stdout); rep.NormalResidualNorm == nil || rep.JobID == "" {
+		t.Errorf("remote lsq summary: %+v", rep)
+	}
+	if _, stderr, code := cli(t, bin, "lsq", well, "-b", wellB, "--quiet", "-o", ll); code != 0 {
+		t.Fatalf("local lsq: exit %d\n%s", code, stderr)
+	}
+	sameBits(t, lr, ll)
 
 	// A detached job, then watch it to the end and download its solution.
 	gen := filepath.Join(dir, "j.mtx")
@@ -281,9 +329,29 @@ func TestEndToEnd(t *testing.T) {
 	select {
 	case err := <-srv.done:
 		if err != nil {
-			t.Errorf("server exit after SIGTERM: %v\n%s", err, srv.stderr)
+			t.Errorf("server exit after SIGTERM: %v\n%s", err, srv.log())
 		}
 	case <-time.After(20 * time.Second):
 		t.Error("server still running 20 s after SIGTERM")
+	}
+}
+
+// testToken: a server started with --token-file refuses calls without the
+// token (exit 1, Unauthenticated), never logs it, and accepts the address
+// and token from RESIDUA_SERVER and RESIDUA_TOKEN_FILE.
+func testToken(t *testing.T, bin string) {
+	token := filepath.Join(t.TempDir(), "token")
+	os.WriteFile(token, []byte("s3cret-for-the-test\n"), 0o600)
+	srv := startServer(t, bin, "--token-file", token)
+	_, stderr, code := cli(t, bin, "jobs", "--server", srv.grpc)
+	if code != exitFailure || !strings.Contains(stderr, "Unauthenticated") {
+		t.Errorf("no token: exit %d, stderr %q", code, stderr)
+	}
+	if strings.Contains(srv.log(), "s3cret") {
+		t.Error("the server logged the token")
+	}
+	stdout, stderr, code := cliEnv(t, []string{envServer + "=" + srv.grpc, envTokenFile + "=" + token}, bin, "jobs", "--json")
+	if code != 0 || !strings.Contains(stdout, `"jobs"`) {
+		t.Errorf("token from the environment: exit %d, stdout %q, stderr %q", code, stdout, stderr)
 	}
 }

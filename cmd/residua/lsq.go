@@ -36,9 +36,9 @@ Right-hand side: -b FILE; else a bundle's own NAME_b.mtx; else b = A·1 (a
 consistent system: x = 1 solves it, and is the unique least-squares
 solution when A has full column rank).
 
-Display, summary, --json, --history, --plot and -o behave as for solve; the
-JSON summary adds residual_norm (‖b − A·x‖) and normal_residual_norm
-(‖Aᵀ(b − A·x) − damp²·x‖).`
+Display, summary, --json, --history, --plot, -o and --server (with
+--detach) behave as for solve; the JSON summary adds residual_norm
+(‖b − A·x‖) and normal_residual_norm (‖Aᵀ(b − A·x) − damp²·x‖).`
 
 func runLSQ(ctx context.Context, e *env, args []string) error {
 	o := &solveOpts{}
@@ -53,6 +53,9 @@ func runLSQ(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&scaling, "precond", "auto", "column scaling `kind`: auto, none or colscale")
 	f.StringVar(&method, "method", "auto", "iteration `method`: auto (LSQR), lsqr or cgls")
 	addOutputFlags(f, o)
+	so := &serverOpts{}
+	addServerFlags(f, so)
+	detach := f.Bool("detach", false, "with --server: start the job, print its id and return (the job keeps its solution for 'residua watch JOB -o x.mtx')")
 	pos, err := f.parse(e, args)
 	if err == errHelp {
 		return nil
@@ -92,6 +95,17 @@ func runLSQ(ctx context.Context, e *env, args []string) error {
 	default:
 		return usageErrorf("lsq: --method %q: want auto, lsqr or cgls", method)
 	}
+	so.resolve()
+	if so.addr != "" {
+		remoteMethod := method
+		if remoteMethod == "auto" {
+			remoteMethod = "lsq"
+		}
+		return remoteSolve(ctx, e, pos[0], o, so, *detach, &lsqRemote{method: remoteMethod, scaling: scaling, damp: damp, atol: atol, btol: btol})
+	}
+	if *detach {
+		return usageErrorf("lsq: --detach needs --server (or $%s)", envServer)
+	}
 	p, err := loadProblem(pos[0], o.b)
 	if err != nil {
 		return err
@@ -109,18 +123,8 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 		Matrix: p.name, Rows: p.a.Rows, Cols: p.a.Cols, Nonzeros: p.a.NNZ(), RHS: p.rhs,
 		ReadSeconds: seconds(p.read),
 	}
-	// With b = A·1 the system is consistent and x = 1 solves it; it is the
-	// solution LSQR returns only when it is the only one (full column rank,
-	// which needs rows ≥ cols) and there is no damping.
-	ones := p.ones && p.a.Rows >= p.a.Cols && s.Damp == 0
-	if p.ones {
-		rep.RHS = "b = A·1 (no -b given): a consistent system that x = 1 solves"
-		if ones {
-			rep.RHS += "; the unique solution when A has full column rank"
-		} else {
-			rep.RHS += "; not the solution sought here (damped, or fewer rows than columns: the minimum-norm one)"
-		}
-	}
+	ones, rhs := lsqOnes(p, s.Damp)
+	rep.RHS = rhs
 	rec, finish, err := recorders(e, o, true, monitor.Options{Matrix: filepath.Base(p.name), Preconditioner: s.Scaling.String()})
 	if err != nil {
 		return err
@@ -131,6 +135,14 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 
 	rep.Method = res.Method
 	rep.Preconditioner = res.Scaling
+	switch {
+	case s.Scaling != krylov.ScaleAuto:
+		rep.PreconditionerReason = res.Scaling + ": as requested"
+	case res.Scaling == krylov.ScaleColumns.String():
+		rep.PreconditionerReason = fmt.Sprintf("colscale: auto: %d rows ≥ %d columns", p.a.Rows, p.a.Cols)
+	default:
+		rep.PreconditionerReason = fmt.Sprintf("none: auto: %d rows < %d columns, where scaling would change the minimum-norm solution", p.a.Rows, p.a.Cols)
+	}
 	rep.Converged = res.Status == krylov.Converged
 	rep.Status = res.Status.String()
 	rep.Iterations = res.Iterations
@@ -156,6 +168,22 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 		rep.Error = solveErr.Error()
 	}
 	return finishRun(e, o, p.name, rep, x, finish, solveErr)
+}
+
+// lsqOnes says whether x = 1 is the answer lsq should find for p, and
+// describes p's right-hand side. With b = A·1 the system is consistent and
+// x = 1 solves it; it is the solution sought only when it is the only one
+// (full column rank, which needs rows ≥ cols) and there is no damping.
+func lsqOnes(p *problem, damp float64) (bool, string) {
+	if !p.ones {
+		return false, p.rhs
+	}
+	ones := p.a.Rows >= p.a.Cols && damp == 0
+	rhs := "b = A·1 (no -b given): a consistent system that x = 1 solves"
+	if ones {
+		return true, rhs + "; the unique solution when A has full column rank"
+	}
+	return false, rhs + "; not the solution sought here (damped, or fewer rows than columns: the minimum-norm one)"
 }
 
 // lsqOperator gives the least-squares methods an operator with column

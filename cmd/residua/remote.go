@@ -119,16 +119,19 @@ type remoteDisplay struct {
 	finish   func(*solveReport) error
 	mon      *monitor.Monitor
 	accepted *pb.Accepted
+	target   float64
 }
 
-func newRemoteDisplay(e *env, o *solveOpts, name string) (*remoteDisplay, error) {
+// newRemoteDisplay makes the display of a remote job; target is the
+// relative residual aimed at (0 for least squares, which has none).
+func newRemoteDisplay(e *env, o *solveOpts, name string, target float64) (*remoteDisplay, error) {
 	quiet := *o
 	quiet.quiet = true // the monitor is added on the accepted event
-	rec, finish, err := recorders(e, &quiet, false, monitor.Options{Matrix: name, Target: o.rtol})
+	rec, finish, err := recorders(e, &quiet, false, monitor.Options{Matrix: name, Target: target})
 	if err != nil {
 		return nil, err
 	}
-	return &remoteDisplay{e: e, o: o, name: name, rec: rec.(tee), finish: finish}, nil
+	return &remoteDisplay{e: e, o: o, name: name, target: target, rec: rec.(tee), finish: finish}, nil
 }
 
 func (d *remoteDisplay) event(ev client.Event) {
@@ -136,7 +139,7 @@ func (d *remoteDisplay) event(ev client.Event) {
 	case ev.Accepted != nil:
 		d.accepted = ev.Accepted
 		if !d.o.quiet && d.mon == nil {
-			d.mon = monitor.New(d.e.stderr, monitor.Options{Target: d.o.rtol, Matrix: d.name, Preconditioner: ev.Accepted.GetPreconditioner()})
+			d.mon = monitor.New(d.e.stderr, monitor.Options{Target: d.target, Matrix: d.name, Preconditioner: ev.Accepted.GetPreconditioner()})
 			d.rec = append(d.rec, d.mon)
 		}
 	case ev.Progress != nil && ev.Progress.GetRhs() == 0:
@@ -157,37 +160,62 @@ func (d *remoteDisplay) stop() {
 	}
 }
 
-// fill copies a remote result into a summary.
+// fillRemote copies a remote result into a summary.
 func fillRemote(rep *solveReport, r client.Result, acc *pb.Accepted) {
 	rep.Method, rep.Converged, rep.Status, rep.Error = r.Method, r.Converged, r.Status, r.Error
 	rep.Iterations = int(r.Iterations)
 	rep.RelativeResidual, rep.TrueResidualNorm, rep.RHSNorm = num(r.RelativeResidual), num(r.TrueResidualNorm), num(r.RHSNorm)
+	rep.Preconditioner, rep.PreconditionerReason = r.Preconditioner, r.PreconditionerReason
+	cached := r.FromCache
+	rep.PreconditionerCached = &cached
+	rep.SetupSeconds, rep.SolveSeconds, rep.SecondsPerIteration = num(r.SetupSeconds), num(r.SolveSeconds), num(r.PerIterationSeconds)
+	rep.CondEstimate = num(r.Cond)
+	rep.AbsTol = num(r.Settings.ATol)
+	rep.MaxIter, rep.TimeLimitSeconds = int(r.Settings.MaxIter), num(r.Settings.TimeLimitSeconds)
+	if r.Method != "cg" {
+		// Least squares: the fields lsq reports locally.
+		rep.PreconditionerCached = nil
+		rep.ResidualNorm, rep.NormalResidualNorm = numPtr(r.ResidualNorm), numPtr(r.NormalResidualNorm)
+		rep.NormEstimate, rep.StoppedBy = numPtr(r.NormEstimate), r.StoppedBy
+		for _, c := range r.ZeroColumns {
+			rep.ZeroColumns = append(rep.ZeroColumns, int(c))
+		}
+		rep.BTol, rep.Damp = numPtr(r.Settings.BTol), numPtr(r.Settings.Damp)
+		return
+	}
 	rep.RecursiveResidualNorm = numPtr(r.ResidualNorm)
 	rep.RecursiveRelativeResidual = numPtr(r.ResidualNorm)
 	if r.RHSNorm > 0 {
 		rep.RecursiveRelativeResidual = numPtr(r.ResidualNorm / r.RHSNorm)
 	}
-	rep.Preconditioner, rep.PreconditionerReason, rep.Shift = r.Preconditioner, r.PreconditionerReason, numPtr(r.Shift)
-	cached := r.FromCache
-	rep.PreconditionerCached = &cached
+	rep.Shift = numPtr(r.Shift)
 	if acc != nil {
 		rep.ShiftTries = int(acc.GetTries())
 		bytes := acc.GetPreconditionerBytes()
 		rep.PreconditionerBytes = &bytes
 	}
-	rep.SetupSeconds, rep.SolveSeconds, rep.SecondsPerIteration = num(r.SetupSeconds), num(r.SolveSeconds), num(r.PerIterationSeconds)
-	rep.LambdaMin, rep.LambdaMax, rep.CondEstimate = numPtr(r.LambdaMin), numPtr(r.LambdaMax), num(r.Cond)
-	rep.RelTol, rep.AbsTol = numPtr(r.Settings.RTol), num(r.Settings.ATol)
-	rep.MaxIter, rep.TimeLimitSeconds = int(r.Settings.MaxIter), num(r.Settings.TimeLimitSeconds)
+	rep.LambdaMin, rep.LambdaMax = numPtr(r.LambdaMin), numPtr(r.LambdaMax)
+	rep.RelTol = numPtr(r.Settings.RTol)
 }
 
-// remoteSolve is solve --server: upload, solve with the live display, and
-// the same summary and outputs as a local solve.
-func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *serverOpts, detach bool) error {
-	if detach && (o.out != "" || o.hist != "" || o.plot != "") {
-		return usageErrorf("solve: --detach returns at once; fetch the outputs later with 'residua watch JOB -o ... --history ... --plot ...'")
+// lsqRemote holds the least-squares settings of lsq --server.
+type lsqRemote struct {
+	method, scaling  string
+	damp, atol, btol float64
+}
+
+// remoteSolve is solve --server (lsq == nil) and lsq --server: upload,
+// solve with the live display, and the same summary and outputs as a
+// local run.
+func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *serverOpts, detach bool, lsq *lsqRemote) error {
+	cmd := "solve"
+	if lsq != nil {
+		cmd = "lsq"
 	}
-	c, err := so.dial(ctx, "solve")
+	if detach && (o.out != "" || o.hist != "" || o.plot != "") {
+		return usageErrorf("%s: --detach returns at once; fetch the outputs later with 'residua watch JOB -o ... --history ... --plot ...'", cmd)
+	}
+	c, err := so.dial(ctx, cmd)
 	if err != nil {
 		return err
 	}
@@ -213,21 +241,26 @@ func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *ser
 		if err != nil {
 			return err
 		}
-		if err := checkSPDShape(p); err != nil {
-			return err
-		}
 		b, ones, rep.RHS, rep.ReadSeconds = p.b, p.ones, p.rhs, seconds(p.read)
+		if lsq == nil {
+			if err := checkSPDShape(p); err != nil {
+				return err
+			}
+		} else {
+			ones, rep.RHS = lsqOnes(p, lsq.damp)
+		}
 		if m, err = c.UploadCSR(ctx, p.a, name); err != nil {
 			return remoteError("uploading "+path, err)
 		}
 	}
 	rep.MatrixID, rep.Rows, rep.Cols, rep.Nonzeros = m.GetId(), int(m.GetRows()), int(m.GetCols()), int(m.GetNonzeros())
 	rep.UploadSeconds = numPtr(m.GetUploadSeconds())
-	if m.GetRows() != m.GetCols() {
+	switch {
+	case lsq != nil:
+	case m.GetRows() != m.GetCols():
 		return usageErrorf("%s is %d×%d, not square: conjugate gradients solves square SPD systems; for least squares run 'residua lsq %s -b b.mtx' (locally)",
 			path, m.GetRows(), m.GetCols(), path)
-	}
-	if m.GetSymmetry() != "symmetric" {
+	case m.GetSymmetry() != "symmetric":
 		return &exitError{code: exitBreakdown, err: fmt.Errorf("%s is not symmetric: conjugate gradients needs a symmetric positive definite matrix; 'residua lsq %s' solves the normal equations instead", path, path)}
 	}
 	if len(b) != rep.Rows {
@@ -242,6 +275,12 @@ func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *ser
 		RTol: o.rtol, ATol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit,
 		Detach: detach, KeepSolution: detach, Label: name,
 	}
+	target := o.rtol
+	if lsq != nil {
+		req.Method, req.Precond, req.RTol = lsq.method, lsq.scaling, 0
+		req.ATol, req.BTol, req.Damp = lsq.atol, lsq.btol, lsq.damp
+		target = 0
+	}
 	if x0 != nil {
 		req.X0 = [][]float64{x0}
 	}
@@ -251,7 +290,7 @@ func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *ser
 	if detach {
 		out, err := c.Solve(ctx, req, nil)
 		if err != nil {
-			return remoteError("solve", err)
+			return remoteError(cmd, err)
 		}
 		if o.json {
 			return writeJSON(e.stdout, map[string]string{"job_id": out.JobID, "matrix_id": m.GetId(), "server": so.addr})
@@ -260,7 +299,7 @@ func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *ser
 		fmt.Fprintf(e.stderr, "residua: job %s started on %s; follow it with 'residua watch %s'\n", out.JobID, so.addr, out.JobID)
 		return nil
 	}
-	disp, err := newRemoteDisplay(e, o, name)
+	disp, err := newRemoteDisplay(e, o, name, target)
 	if err != nil {
 		return err
 	}
@@ -274,7 +313,7 @@ func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *ser
 		if solveErr == nil {
 			solveErr = fmt.Errorf("job ended %s without a result: %s", out.State, out.Error)
 		}
-		return remoteError("solve on "+so.addr, solveErr)
+		return remoteError(cmd+" on "+so.addr, solveErr)
 	}
 	fillRemote(rep, out.Results[0], out.Accepted)
 	var x []float64
@@ -436,8 +475,12 @@ func runWatch(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return remoteError("watch", err)
 	}
-	o.rtol = job.GetRtol()
-	disp, err := newRemoteDisplay(e, o, job.GetMatrixName())
+	target := job.GetRtol()
+	if job.GetMethod() != "cg" {
+		target = 0 // least squares has no target relative residual
+	}
+	o.rtol = target
+	disp, err := newRemoteDisplay(e, o, job.GetMatrixName(), target)
 	if err != nil {
 		return err
 	}

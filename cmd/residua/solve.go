@@ -146,7 +146,7 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	}
 	so.resolve()
 	if so.addr != "" {
-		return remoteSolve(ctx, e, pos[0], o, so, *detach)
+		return remoteSolve(ctx, e, pos[0], o, so, *detach, nil)
 	}
 	if *detach {
 		return usageErrorf("solve: --detach needs --server (or $%s)", envServer)
