@@ -196,6 +196,16 @@ func TestLenient(t *testing.T) {
 	if math.Signbit(x[1]) {
 		t.Errorf("absent entry is -0")
 	}
+	// A vector object in array format (the paper's "vector" object, size
+	// line "n"), as a vector and as an n×1 matrix.
+	x, info, err = ReadVectorFile(filepath.Join(catalogue, "ok-vector-array.mtx"), nil)
+	if err != nil || len(x) != 3 || x[0] != 1.5 || x[1] != -2 || x[2] != 0 || info.Header.Object != "vector" {
+		t.Errorf("vector array: %v, %+v, %v", x, info.Header, err)
+	}
+	a, _, err = ReadMatrixFile(filepath.Join(catalogue, "ok-vector-array.mtx"), nil)
+	if err != nil || a.Rows != 3 || a.Cols != 1 || a.At(1, 0) != -2 {
+		t.Errorf("vector array as a matrix: %v", err)
+	}
 }
 
 // A short file that claims a huge matrix costs nothing: without any limit,
