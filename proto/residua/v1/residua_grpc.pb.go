@@ -107,9 +107,9 @@ type SolverClient interface {
 	// A matrix that a queued or running job uses cannot be deleted
 	// (FAILED_PRECONDITION). NOT_FOUND if the id is unknown.
 	DeleteMatrix(ctx context.Context, in *DeleteMatrixRequest, opts ...grpc.CallOption) (*DeleteMatrixResponse, error)
-	// Solve starts a job that solves A·x = b for each right-hand side b in
-	// the request, one after the other, with the same preconditioner, and
-	// streams its events.
+	// Solve starts a job that solves A·x = b (or, with a least-squares
+	// method, min ‖A·x − b‖₂) for each right-hand side b in the request, one
+	// after the other, with the same preconditioner, and streams its events.
 	//
 	// Stream contract, in order:
 	//  0. exactly one `queued` event, at once (its job_id is the job's id;
@@ -134,8 +134,14 @@ type SolverClient interface {
 	//
 	// The stream ends with OK when the job ran to a status (converged,
 	// iteration-limit, time-limit, stagnated); with FAILED_PRECONDITION after
-	// the `result` and `finished` events when the method broke down; with
-	// CANCELED when the job was cancelled (by CancelJob or server shutdown).
+	// the `result` and `finished` events when the method broke down or the
+	// preconditioner could not be set up (the matrix is not positive
+	// definite); with CANCELED when the job was cancelled (by CancelJob or
+	// server shutdown); with INTERNAL if the server failed (it logs why).
+	// Requests it cannot accept end at once with INVALID_ARGUMENT, NOT_FOUND,
+	// FAILED_PRECONDITION (CG on a matrix that is not square and symmetric),
+	// RESOURCE_EXHAUSTED (the queue is full, too many right-hand sides, no
+	// memory for the job's vectors) or UNAVAILABLE (shutting down).
 	//
 	// Attached (the default): when the stream ends early (the client
 	// cancelled, its deadline passed, or the connection dropped) the job is
@@ -356,9 +362,9 @@ type SolverServer interface {
 	// A matrix that a queued or running job uses cannot be deleted
 	// (FAILED_PRECONDITION). NOT_FOUND if the id is unknown.
 	DeleteMatrix(context.Context, *DeleteMatrixRequest) (*DeleteMatrixResponse, error)
-	// Solve starts a job that solves A·x = b for each right-hand side b in
-	// the request, one after the other, with the same preconditioner, and
-	// streams its events.
+	// Solve starts a job that solves A·x = b (or, with a least-squares
+	// method, min ‖A·x − b‖₂) for each right-hand side b in the request, one
+	// after the other, with the same preconditioner, and streams its events.
 	//
 	// Stream contract, in order:
 	//  0. exactly one `queued` event, at once (its job_id is the job's id;
@@ -383,8 +389,14 @@ type SolverServer interface {
 	//
 	// The stream ends with OK when the job ran to a status (converged,
 	// iteration-limit, time-limit, stagnated); with FAILED_PRECONDITION after
-	// the `result` and `finished` events when the method broke down; with
-	// CANCELED when the job was cancelled (by CancelJob or server shutdown).
+	// the `result` and `finished` events when the method broke down or the
+	// preconditioner could not be set up (the matrix is not positive
+	// definite); with CANCELED when the job was cancelled (by CancelJob or
+	// server shutdown); with INTERNAL if the server failed (it logs why).
+	// Requests it cannot accept end at once with INVALID_ARGUMENT, NOT_FOUND,
+	// FAILED_PRECONDITION (CG on a matrix that is not square and symmetric),
+	// RESOURCE_EXHAUSTED (the queue is full, too many right-hand sides, no
+	// memory for the job's vectors) or UNAVAILABLE (shutting down).
 	//
 	// Attached (the default): when the stream ends early (the client
 	// cancelled, its deadline passed, or the connection dropped) the job is
