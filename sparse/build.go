@@ -300,12 +300,16 @@ func (a *Assembler) Build() (*CSR, BuildStats, error) {
 		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
 		for _, t := range blocks {
 			for q, r := range t.I {
-				c, x := t.J[q], t.V[q]
+				c := t.J[q]
+				// The value is loaded only where this worker writes it: the
+				// other workers' share of the triplets costs it no traffic
+				// beyond the indices.
 				if uint32(r-lo) < n {
-					val[rowPtr[r]] = x
+					val[rowPtr[r]] = t.V[q]
 					rowPtr[r]++
 				}
 				if mirror && r != c && uint32(c-lo) < n {
+					x := t.V[q]
 					if skew {
 						x = -x
 					}
