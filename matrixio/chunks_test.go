@@ -11,6 +11,7 @@ import (
 	"testing"
 
 	"github.com/residua/residua/sparse"
+	"go.uber.org/goleak"
 )
 
 // bigText returns a general coordinate file of about 3 MB (many chunks, so
@@ -43,8 +44,10 @@ func replaceLine(text string, ln int, with string) string {
 
 // The pipeline must give the same matrix as assembling the triplets
 // directly, and report defects deep in the file with their exact line (the
-// line numbers of chunks are added up in file order).
+// line numbers of chunks are added up in file order). No goroutine of the
+// pipeline may outlive a read, whether it fails or not (goleak).
 func TestManyChunks(t *testing.T) {
+	defer goleak.VerifyNone(t)
 	for _, sym := range []string{"general", "symmetric"} {
 		text, ii, jj, vv := bigText(t, sym)
 		if len(text) < 4*chunkSize {
