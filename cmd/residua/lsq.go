@@ -167,7 +167,7 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 	if solveErr != nil {
 		rep.Error = solveErr.Error()
 	}
-	return finishRun(e, o, p.name, rep, x, finish, solveErr)
+	return recorderFailure(ctx, res.Status, finishRun(e, o, p.name, rep, x, finish, solveErr))
 }
 
 // lsqOnes says whether x = 1 is the answer lsq should find for p, and

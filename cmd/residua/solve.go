@@ -324,7 +324,7 @@ func solveCG(ctx context.Context, e *env, p *problem, kind precond.Kind, o *solv
 	if solveErr != nil {
 		rep.Error = solveErr.Error()
 	}
-	return finishRun(e, o, p.name, rep, x, finish, solveErr)
+	return recorderFailure(ctx, res.Status, finishRun(e, o, p.name, rep, x, finish, solveErr))
 }
 
 // recorders builds the recorder chain of a solve: the live display (unless
@@ -409,6 +409,17 @@ func finishRun(e *env, o *solveOpts, name string, rep *solveReport, x []float64,
 		return outErr
 	}
 	return statusError(rep.Status, rep.Iterations, solveErr)
+}
+
+// recorderFailure turns the exit status of a solve that a recorder stopped
+// (the history file could not be written: status cancelled although the
+// context is live) from 3 into 1, an I/O failure rather than a stop.
+func recorderFailure(ctx context.Context, st krylov.Status, err error) error {
+	var ee *exitError
+	if st == krylov.Cancelled && ctx.Err() == nil && errors.As(err, &ee) && ee.code == exitNotConverged {
+		ee.code = exitFailure
+	}
+	return err
 }
 
 // statusError maps a solve's outcome to the error that carries its exit
