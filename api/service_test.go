@@ -7,7 +7,6 @@ import (
 	"slices"
 	"strings"
 	"sync"
-	"sync/atomic"
 	"testing"
 	"time"
 
@@ -315,22 +314,24 @@ func TestDeadline(t *testing.T) {
 	h := startServer(t, Config{})
 	c := h.dial(t)
 	id, b := slowProblem(t, c)
-	var jobID atomic.Value
-	h.srv.testHookIteration = func(_ context.Context, j string, _, it int) {
-		jobID.Store(j)
-		time.Sleep(time.Millisecond) // a solve of a few hundred ms
+	h.srv.testHookIteration = func(_ context.Context, _ string, _, it int) {
+		time.Sleep(3 * time.Millisecond) // a solve of about a second
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), 100*time.Millisecond)
+	ctx, cancel := context.WithTimeout(context.Background(), 300*time.Millisecond)
 	defer cancel()
 	_, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none"}, nil)
 	if status.Code(err) != codes.DeadlineExceeded {
 		t.Fatalf("Solve error %v, want DEADLINE_EXCEEDED", err)
 	}
+	jobs := h.srv.jobs.Jobs()
+	if len(jobs) != 1 {
+		t.Fatalf("%d jobs, want 1", len(jobs))
+	}
 	waitFor(t, "job to end", func() bool {
-		j, _ := h.srv.jobs.Job(jobID.Load().(string))
+		j, _ := h.srv.jobs.Job(jobs[0].GetId())
 		return j.GetState() == pb.JobState_CANCELLED
 	})
-	j, _ := h.srv.jobs.Job(jobID.Load().(string))
+	j, _ := h.srv.jobs.Job(jobs[0].GetId())
 	if !strings.Contains(j.GetError(), "deadline") {
 		t.Errorf("job error %q does not name the deadline", j.GetError())
 	}
