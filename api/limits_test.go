@@ -2,6 +2,8 @@ package api
 
 import (
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"io"
@@ -337,5 +339,52 @@ func TestStatusMapping(t *testing.T) {
 	}
 	if Status(nil) != nil {
 		t.Errorf("Status(nil) != nil")
+	}
+}
+
+// TestUploadForms: a gzip-compressed Matrix Market file, a correct
+// expected SHA-256, and vector uploads of the wrong size.
+func TestUploadForms(t *testing.T) {
+	h := startServer(t, Config{})
+	c := h.dial(t, client.WithChunkSize(1000))
+	ctx := context.Background()
+	_, gz := sharedMatrix(t, "bcsstk13.mtx.gz")
+	m, err := c.UploadFile(ctx, gz, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The collection's index (MANIFEST.tsv): bcsstk13 is 2003×2003 with
+	// 83883 entries in full storage.
+	if m.GetRows() != 2003 || m.GetNonzeros() != 83883 || m.GetName() != "bcsstk13.mtx.gz" {
+		t.Errorf("gzip upload: %v×%v, %v entries, name %q", m.GetRows(), m.GetCols(), m.GetNonzeros(), m.GetName())
+	}
+	text := "%%MatrixMarket matrix coordinate real general\n1 1 1\n1 1 4.0\n"
+	h256 := sha256.Sum256([]byte(text))
+	if _, err := c.UploadReader(ctx, strings.NewReader(text), "one.mtx", &client.UploadOptions{ExpectedSHA256: hex.EncodeToString(h256[:])}); err != nil {
+		t.Errorf("upload with the right checksum: %v", err)
+	}
+	for _, tc := range []struct {
+		name  string
+		meta  *pb.VectorMetadata
+		bytes int
+		code  codes.Code
+	}{
+		{"short", &pb.VectorMetadata{Length: 4}, 31, codes.InvalidArgument},
+		{"long", &pb.VectorMetadata{Length: 4}, 33, codes.InvalidArgument},
+		{"over the row limit", &pb.VectorMetadata{Length: DefaultMaxRows + 1}, 8, codes.ResourceExhausted},
+		{"exact", &pb.VectorMetadata{Length: 4}, 32, codes.OK},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			stream, err := c.RPC().UploadVector(ctx)
+			if err != nil {
+				t.Fatal(err)
+			}
+			stream.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Metadata{Metadata: tc.meta}})
+			stream.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Chunk{Chunk: make([]byte, tc.bytes)}})
+			_, err = stream.CloseAndRecv()
+			if status.Code(err) != tc.code {
+				t.Errorf("%v, want %v", err, tc.code)
+			}
+		})
 	}
 }
