@@ -125,7 +125,19 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 func printOverview(w io.Writer) {
 	fmt.Fprintf(w, "residua solves sparse SPD systems and least-squares problems with Krylov methods.\n\n")
 	fmt.Fprintf(w, "Usage: residua COMMAND [arguments and flags]\n\nCommands:\n")
-	for _, c := range commands {
+	// The order a newcomer meets them in: the main job first, the service last.
+	order := []string{"demo", "solve", "lsq", "inspect", "generate", "plot", "bench", "serve", "jobs", "watch", "cancel"}
+	rank := func(name string) int {
+		for i, n := range order {
+			if n == name {
+				return i
+			}
+		}
+		return len(order)
+	}
+	sorted := append([]*command(nil), commands...)
+	sort.SliceStable(sorted, func(i, j int) bool { return rank(sorted[i].name) < rank(sorted[j].name) })
+	for _, c := range sorted {
 		fmt.Fprintf(w, "  %-9s %s\n", c.name, c.summary)
 	}
 	fmt.Fprintf(w, "  %-9s %s\n", "help", "this text; 'residua help COMMAND' or 'residua COMMAND --help' for one command")
