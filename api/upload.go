@@ -174,10 +174,13 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 		return s.uploadFailed(name, cr, start, orRecv(cr, err))
 	}
 
-	id := matrixID(a)
+	// The content hash and the inspect report each read the whole matrix;
+	// they run side by side.
+	idc := make(chan string, 1)
+	go func() { idc <- matrixID(a) }()
 	e := &matrixEntry{a: a}
 	e.info = &pb.Matrix{
-		Id: id, Name: name,
+		Name: name,
 		Rows: int64(a.Rows), Cols: int64(a.Cols), Nonzeros: int64(a.NNZ()),
 		Symmetry: "general", Bytes: reserved,
 	}
@@ -185,6 +188,8 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	if e.symmetric {
 		e.info.Symmetry = "symmetric"
 	}
+	id := <-idc
+	e.info.Id = id
 	it, existed := s.store.insert(matrixKey(id), reserved, 0, e, func() { s.matrixEvicted(id) })
 	out := cloneMatrix(it.value.(*matrixEntry).info)
 	out.AlreadyStored = existed
