@@ -43,7 +43,7 @@ func vectorKey(id string) string { return "v:" + id }
 type chunkReader struct {
 	recv  func() ([]byte, error) // the next chunk; io.EOF at the end
 	limit int64
-	hash  hash.Hash // of the bytes as received
+	hash  hash.Hash // of the bytes as received; nil when no checksum was asked for
 
 	buf     []byte
 	n       int64 // bytes received
@@ -73,7 +73,9 @@ func (c *chunkReader) Read(p []byte) (int, error) {
 			c.recvErr = limitf("the upload passed the server's limit of %d bytes (%d received so far)", c.limit, c.n)
 			return 0, c.recvErr
 		}
-		c.hash.Write(b)
+		if c.hash != nil {
+			c.hash.Write(b)
+		}
 		c.buf = b
 	}
 	n := copy(p, c.buf)
@@ -128,7 +130,10 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	if meta.GetTotalBytes() > s.cfg.MaxUploadBytes {
 		return limitf("%s: upload of %d bytes exceeds the server's limit of %d bytes", name, meta.GetTotalBytes(), s.cfg.MaxUploadBytes)
 	}
-	cr := &chunkReader{limit: s.cfg.MaxUploadBytes, hash: sha256.New()}
+	cr := &chunkReader{limit: s.cfg.MaxUploadBytes}
+	if meta.GetExpectedSha256() != "" {
+		cr.hash = sha256.New()
+	}
 	cr.recv = func() ([]byte, error) {
 		req, err := stream.Recv()
 		if err != nil {
