@@ -3,8 +3,10 @@ package krylov_test
 import (
 	"context"
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"strings"
 	"testing"
 	"time"
@@ -336,37 +338,48 @@ func TestCGZeroRHS(t *testing.T) {
 }
 
 // TestCGDeterministic: the same solve twice gives bitwise identical x,
-// history and counts.
+// history and counts, both on a small problem (sparse's kernels inline) and
+// on one above sparse's inline threshold of 2¹⁵ elements, where the
+// products and sweeps run on its worker pool (and under -race, this is the
+// test that exercises the pool from CG).
 func TestCGDeterministic(t *testing.T) {
-	a := stencil.Poisson2D(40)
-	b := cgMul(a, cgOnes(1600))
-	b[7] += 1
-	run := func() ([]float64, *cgHistory, krylov.Result) {
-		x := make([]float64, 1600)
-		h := &cgHistory{}
-		res, err := krylov.CG(context.Background(), a, b, x, cgScale(0.25), krylov.Settings{Recorder: h, RefreshEvery: 7})
-		if err != nil {
-			t.Fatal(err)
-		}
-		return x, h, res
-	}
-	x1, h1, r1 := run()
-	x2, h2, r2 := run()
-	for i := range x1 {
-		if math.Float64bits(x1[i]) != math.Float64bits(x2[i]) {
-			t.Fatalf("x[%d] differs: %x vs %x", i, math.Float64bits(x1[i]), math.Float64bits(x2[i]))
-		}
-	}
-	if len(h1.rows) != len(h2.rows) {
-		t.Fatalf("history lengths %d and %d", len(h1.rows), len(h2.rows))
-	}
-	for i := range h1.rows {
-		if math.Float64bits(h1.rows[i].ResidualNorm) != math.Float64bits(h2.rows[i].ResidualNorm) {
-			t.Fatalf("history row %d differs", i)
-		}
-	}
-	if r1.Iterations != r2.Iterations || r1.TrueResidualNorm != r2.TrueResidualNorm || r1.Cond != r2.Cond {
-		t.Errorf("results differ: %+v vs %+v", r1, r2)
+	for _, c := range []struct {
+		side int
+		rtol float64
+	}{{40, 0}, {190, 1e-4}} {
+		t.Run(fmt.Sprintf("side %d", c.side), func(t *testing.T) {
+			a := stencil.Poisson2D(c.side)
+			n := a.Rows
+			b := cgMul(a, cgOnes(n))
+			b[7] += 1
+			run := func() ([]float64, *cgHistory, krylov.Result) {
+				x := make([]float64, n)
+				h := &cgHistory{}
+				res, err := krylov.CG(context.Background(), a, b, x, cgScale(0.25), krylov.Settings{Recorder: h, RefreshEvery: 7, RelTol: c.rtol})
+				if err != nil || res.Status != krylov.Converged {
+					t.Fatal(res.Status, err)
+				}
+				return x, h, res
+			}
+			x1, h1, r1 := run()
+			x2, h2, r2 := run()
+			for i := range x1 {
+				if math.Float64bits(x1[i]) != math.Float64bits(x2[i]) {
+					t.Fatalf("x[%d] differs: %x vs %x", i, math.Float64bits(x1[i]), math.Float64bits(x2[i]))
+				}
+			}
+			if len(h1.rows) != len(h2.rows) {
+				t.Fatalf("history lengths %d and %d", len(h1.rows), len(h2.rows))
+			}
+			for i := range h1.rows {
+				if math.Float64bits(h1.rows[i].ResidualNorm) != math.Float64bits(h2.rows[i].ResidualNorm) {
+					t.Fatalf("history row %d differs", i)
+				}
+			}
+			if r1.Iterations != r2.Iterations || r1.TrueResidualNorm != r2.TrueResidualNorm || r1.Cond != r2.Cond {
+				t.Errorf("results differ: %+v vs %+v", r1, r2)
+			}
+		})
 	}
 }
 
@@ -623,6 +636,9 @@ func TestCGPanics(t *testing.T) {
 // TestCGAllocations: no allocation per iteration. A full solve allocates
 // its workspace once, so 10 and 100 iterations must allocate the same.
 func TestCGAllocations(t *testing.T) {
+	if cgRace {
+		t.Skip("the race detector's runtime allocates on its own; allocation counts mean nothing under -race")
+	}
 	// 40 000 unknowns: above sparse's inline threshold, so the kernels run on
 	// its worker pool; and well over 100 iterations to converge.
 	a := stencil.Poisson2D(200)
@@ -701,5 +717,39 @@ func TestCGGenericOperator(t *testing.T) {
 				t.Fatalf("x[%d]: %g vs %g", i, x1[i], x2[i])
 			}
 		}
+	}
+}
+
+// TestCGMemory: a solve allocates CG's work vectors r, p, A·p and z (four
+// vectors of n with a preconditioner; the caller's b and x make six) and the
+// Lanczos coefficients (two arrays of at most min(MaxIter, 2¹⁶) entries),
+// and nothing in proportion to the iterations.
+func TestCGMemory(t *testing.T) {
+	if cgRace {
+		t.Skip("the race detector's runtime allocates on its own; allocation counts mean nothing under -race")
+	}
+	a := stencil.Poisson2D(200)
+	n := a.Rows
+	b := cgMul(a, cgOnes(n))
+	x := make([]float64, n)
+	solve := func() krylov.Result {
+		res, err := krylov.CG(context.Background(), a, b, x, cgScale(0.25), krylov.Settings{})
+		if err != nil || res.Status != krylov.Converged {
+			t.Fatal(res.Status, err)
+		}
+		return res
+	}
+	solve() // warm sparse's pool, whose scratch grows once per vector size
+	var before, after runtime.MemStats
+	runtime.ReadMemStats(&before)
+	res := solve()
+	runtime.ReadMemStats(&after)
+	got := after.TotalAlloc - before.TotalAlloc
+	// Go rounds an allocation above 32 KiB up to whole 8 KiB pages (the
+	// runtime's size classes, from memory); 4 KiB covers the small objects.
+	pages := func(bytes int) int { return (bytes + 8191) / 8192 * 8192 }
+	limit := uint64(4*pages(8*n) + 2*pages(8*min(10*n, 1<<16)) + 4096)
+	if got > limit {
+		t.Errorf("a %d-iteration solve allocated %d bytes, more than 4 vectors and the Lanczos history (%d)", res.Iterations, got, limit)
 	}
 }
