@@ -112,6 +112,7 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 			return fail(err)
 		}
 		b := req.GetChunk()
+		s.uploaded.Add(int64(len(b)))
 		if req.GetMetadata() != nil {
 			return fail(invalidf("metadata sent twice in one vector upload"))
 		}

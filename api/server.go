@@ -13,6 +13,7 @@ import (
 	"runtime/debug"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"google.golang.org/grpc"
@@ -62,6 +63,8 @@ type Server struct {
 	health *health.Server
 	store  *store
 	jobs   *Registry
+	// uploaded counts the bytes received by all uploads (for metrics).
+	uploaded atomic.Int64
 
 	mu sync.Mutex // guards the fields below
 	// building holds the preconditioners being set up, by cache key, so
@@ -135,6 +138,28 @@ func NewServer(cfg Config) (*Server, error) {
 // Registry returns the server's job registry, for other front ends (the
 // web page, metrics) to list and follow jobs.
 func (s *Server) Registry() *Registry { return s.jobs }
+
+// UploadBytes returns the bytes received by all matrix and vector uploads
+// since the server started, refused ones included: a count that only
+// grows.
+func (s *Server) UploadBytes() int64 { return s.uploaded.Load() }
+
+// StoredBytes returns the bytes held now by stored matrices (with the
+// transposes kept for least-squares products) and by cached
+// preconditioners.
+func (s *Server) StoredBytes() (matrices, preconditioners int64) {
+	items, _ := s.store.snapshot(func(k string) bool { return strings.HasPrefix(k, "m:") || strings.HasPrefix(k, "p:") })
+	for _, it := range items {
+		n := s.store.size(it)
+		switch {
+		case strings.HasPrefix(it.key, "m:"), strings.HasSuffix(it.key, "/transpose"):
+			matrices += n
+		default:
+			preconditioners += n
+		}
+	}
+	return matrices, preconditioners
+}
 
 // Config returns the configuration in use, defaults filled in.
 func (s *Server) Config() Config { return s.cfg }

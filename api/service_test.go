@@ -3,6 +3,7 @@ package api
 import (
 	"context"
 	"encoding/json"
+	"os"
 	"reflect"
 	"slices"
 	"strings"
@@ -115,6 +116,13 @@ func TestUploadSolveSuiteSparse(t *testing.T) {
 	if ms, err := c.Matrices(ctx); err != nil || len(ms) != 1 {
 		t.Errorf("Matrices: %d, %v; want 1", len(ms), err)
 	}
+	st, err := os.Stat(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got, want := h.srv.UploadBytes(), st.Size()+m2.GetUploadBytes(); got != want {
+		t.Errorf("UploadBytes = %d, want the file's %d bytes plus the raw upload's", got, want)
+	}
 
 	// The second solve takes the preconditioner from the cache.
 	out2, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Precond: "jacobi"}, nil)
@@ -126,6 +134,10 @@ func TestUploadSolveSuiteSparse(t *testing.T) {
 	}
 	if !slices.Equal(out2.X[0], x) {
 		t.Errorf("second solve's x differs")
+	}
+	// Jacobi keeps the n inverse diagonal entries (8 bytes each).
+	if mb, pcb := h.srv.StoredBytes(); mb != a.Bytes() || pcb != 8*1806 {
+		t.Errorf("StoredBytes = %d, %d; want %d, %d", mb, pcb, a.Bytes(), 8*1806)
 	}
 	logs := h.logs.String()
 	for _, want := range []string{"msg=upload", "msg=\"job start\"", "msg=\"job end\"", "matrix=" + m.GetId()} {

@@ -12,6 +12,7 @@ import (
 	"io"
 	"math"
 	"strings"
+	"sync/atomic"
 	"time"
 
 	"github.com/residua/residua/matrixio"
@@ -45,6 +46,7 @@ type chunkReader struct {
 	limit int64
 	hash  hash.Hash // of the bytes as received; nil when no checksum was asked for
 
+	count   *atomic.Int64 // the server's upload counter, if not nil
 	buf     []byte
 	n       int64 // bytes received
 	eof     bool
@@ -69,6 +71,9 @@ func (c *chunkReader) Read(p []byte) (int, error) {
 			return 0, err
 		}
 		c.n += int64(len(b))
+		if c.count != nil {
+			c.count.Add(int64(len(b)))
+		}
 		if c.n > c.limit {
 			c.recvErr = limitf("the upload passed the server's limit of %d bytes (%d received so far)", c.limit, c.n)
 			return 0, c.recvErr
@@ -130,7 +135,7 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	if meta.GetTotalBytes() > s.cfg.MaxUploadBytes {
 		return limitf("%s: upload of %d bytes exceeds the server's limit of %d bytes", name, meta.GetTotalBytes(), s.cfg.MaxUploadBytes)
 	}
-	cr := &chunkReader{limit: s.cfg.MaxUploadBytes}
+	cr := &chunkReader{limit: s.cfg.MaxUploadBytes, count: &s.uploaded}
 	if meta.GetExpectedSha256() != "" {
 		cr.hash = sha256.New()
 	}
