@@ -109,17 +109,19 @@
 //     Jacobi-CG converges in a few tens of iterations; IC(0) could not save
 //     its set-up cost.
 //  4. IC(0) with shifts 0, 1e-3, 1e-2 and 1e-1 (AutoMaxShift): the first that
-//     succeeds gives ic0. Measured on the shared SPD matrices, IC(0) at these
-//     shifts took 1.4 to 47 times fewer iterations than Jacobi and was the
-//     fastest or within 20% of the fastest in total time.
-//  5. Otherwise (IC(0) would need a shift of 1 or more, which makes it a poor
-//     approximation of A: on the shared matrices that needed shift 1 it lost
-//     to Jacobi or to no preconditioner by up to 3.5 times): jacobi when the
-//     diagonal varies (largest/smallest > 1e3, AutoFlatDiagonal), which
-//     Jacobi corrects; none when the diagonal is nearly constant, since
-//     Jacobi would then only rescale (on the two such shared matrices,
-//     plat362 and plat1919, Jacobi-CG did not even converge in 10·n
-//     iterations while plain CG did).
+//     succeeds gives ic0. On the shared SPD matrices that IC(0) factors at
+//     these shifts it took 1.5 (bcsstk21) to 40 (bcsstk02) times fewer
+//     iterations than Jacobi, and in total time (set-up included) it was
+//     the fastest or within the timing noise of the fastest.
+//  5. Otherwise IC(0) would need a shift of 1 or more, which makes it a poor
+//     approximation of A: on four of the five shared matrices that needed
+//     shift 1 it lost to Jacobi or to no preconditioner by 1.4 to 1.6 times
+//     (bcsstk13, the fifth, it won by 16%). Then: jacobi when the diagonal
+//     varies (largest/smallest > 1e3, AutoFlatDiagonal), which Jacobi
+//     corrects; none when the diagonal is nearly constant, since Jacobi
+//     would then only rescale (on the two such shared matrices, plat362 and
+//     plat1919, Jacobi-CG did not converge in 10·n iterations while plain CG
+//     did, as in the SciPy reference counts).
 //
 // The thresholds of rules 4 and 5 are not theorems: they were fixed from the
 // measurements of the shared SPD matrices and 3D Poisson problems listed in
