@@ -97,3 +97,16 @@ func scaledKershaw() *sparse.CSR {
 	}
 	return a
 }
+
+func TestEmptyMatrix(t *testing.T) {
+	a := &sparse.CSR{RowPtr: []int{0}}
+	for _, k := range Kinds {
+		c, err := New(a, k)
+		if err != nil {
+			t.Fatalf("%s: %v", k, err)
+		}
+		if c.M != nil {
+			c.M.Precondition(nil, nil)
+		}
+	}
+}
