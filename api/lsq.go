@@ -3,12 +3,10 @@ package api
 import (
 	"context"
 	"fmt"
-	"math"
 	"time"
 
 	"github.com/residua/residua/krylov"
 	pb "github.com/residua/residua/proto/residua/v1"
-	"github.com/residua/residua/sparse"
 )
 
 // runLSQ is runJob for a least-squares job: LSQR or CGLS on each
@@ -38,14 +36,13 @@ func (s *Server) runLSQ(j *job, p *jobParams) (pb.JobState, error) {
 	}}})
 	s.log.Info("job start", "job", j.id, "matrix", p.matrixID, "rows", a.Rows, "cols", a.Cols, "nonzeros", a.NNZ(),
 		"rhs", len(p.rhs), "method", p.method, "scaling", scaling.String(), "queued_for", time.Since(j.created).String())
-	op := lsqOperator(a)
 	for i, b := range p.rhs {
 		x := make([]float64, a.Cols)
 		si := set
 		si.X0 = p.x0[i]
 		rec := &progressRecorder{s: s, j: j, rhs: i, every: p.every, interval: p.interval}
 		si.Recorder = rec
-		res, lsqErr := krylov.LSQ(j.ctx, op, b, x, si)
+		res, lsqErr := krylov.LSQ(j.ctx, a, b, x, si)
 		rec.flush()
 		out := lsqResultMessage(i, &res, reason, lsqErr)
 		j.mu.Lock()
@@ -95,37 +92,4 @@ func lsqResultMessage(rhs int, r *krylov.LSQResult, reason string, err error) *p
 		out.Error = err.Error()
 	}
 	return out
-}
-
-// lsqOperator gives the least-squares methods A with its column norms
-// (for the column scaling and the zero-column report): the matrix itself
-// if sparse provides them, else columnNormed. The CLI's local lsq does the
-// same, so remote and local solves scale, and answer, identically.
-func lsqOperator(a *sparse.CSR) krylov.TransOperator {
-	if op, ok := any(a).(interface {
-		krylov.TransOperator
-		krylov.ColumnNormer
-	}); ok {
-		return op
-	}
-	return columnNormed{a}
-}
-
-// columnNormed adds krylov.ColumnNormer to a CSR matrix.
-type columnNormed struct{ *sparse.CSR }
-
-// ColumnNorms sets dst[j] = ‖A(:, j)‖₂, accumulating the squares of each
-// column's entries in row order.
-func (c columnNormed) ColumnNorms(dst []float64) {
-	if len(dst) != c.Cols {
-		panic(fmt.Sprintf("api: ColumnNorms: len(dst) = %d, want %d", len(dst), c.Cols))
-	}
-	clear(dst)
-	for k, j := range c.ColIdx {
-		v := c.Val[k]
-		dst[j] += v * v
-	}
-	for j := range dst {
-		dst[j] = math.Sqrt(dst[j])
-	}
 }

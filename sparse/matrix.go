@@ -2,6 +2,7 @@ package sparse
 
 import (
 	"fmt"
+	"math"
 
 	"gonum.org/v1/gonum/mat"
 )
@@ -100,6 +101,24 @@ func (a *CSR) Diagonal(dst []float64) []float64 {
 		}
 	}
 	return dst
+}
+
+// ColumnNorms sets dst[j] = ‖A(:, j)‖₂ for every column j, accumulating the
+// squares of each column's entries in storage (row) order, so the result is
+// the same bits on every call. Column scaling for least squares needs it.
+// Panics if len(dst) != Cols.
+func (a *CSR) ColumnNorms(dst []float64) {
+	if len(dst) != a.Cols {
+		panic(fmt.Sprintf("sparse: ColumnNorms: len(dst) = %d, want %d", len(dst), a.Cols))
+	}
+	clear(dst)
+	for k, j := range a.ColIdx {
+		v := a.Val[k]
+		dst[j] += v * v
+	}
+	for j := range dst {
+		dst[j] = math.Sqrt(dst[j])
+	}
 }
 
 // Lower returns the lower triangle of A, diagonal included (the entries with

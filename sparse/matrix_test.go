@@ -1,8 +1,10 @@
 package sparse
 
 import (
+	"math"
 	"testing"
 
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -125,5 +127,22 @@ func TestTransposeCache(t *testing.T) {
 	sym.trust("test")
 	if sym.cachedTranspose() != nil {
 		t.Fatal("exactly symmetric matrix not used as its own transpose")
+	}
+}
+
+// ColumnNorms against the definition ‖A(:, j)‖₂ computed through gonum's
+// dense column view (mat.Col and floats.Norm), including an empty column.
+func TestColumnNorms(t *testing.T) {
+	a := &CSR{Rows: 3, Cols: 4, RowPtr: []int{0, 2, 3, 5}, ColIdx: []int32{0, 2, 2, 0, 3}, Val: []float64{3, -1, 2, 4, 0.5}}
+	got := make([]float64, 4)
+	a.ColumnNorms(got)
+	for j := range got {
+		want := floats.Norm(mat.Col(nil, j, a), 2)
+		if math.Abs(got[j]-want) > 1e-15*want {
+			t.Errorf("column %d: norm %v, want %v", j, got[j], want)
+		}
+	}
+	if got[1] != 0 {
+		t.Errorf("empty column 1: norm %v, want 0", got[1])
 	}
 }

@@ -11,6 +11,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"sync"
 	"syscall"
@@ -293,6 +294,13 @@ func TestEndToEnd(t *testing.T) {
 	if resp.StatusCode != http.StatusOK || !strings.Contains(string(body), "residua_solves_running") {
 		t.Errorf("/metrics: %s", resp.Status)
 	}
+	// serve wires the server's upload and store figures into the metrics:
+	// after the uploads above both are positive.
+	for _, name := range []string{"residua_upload_bytes_total", "residua_stored_matrix_bytes"} {
+		if v := metricValue(string(body), name); !(v > 0) {
+			t.Errorf("/metrics: %s = %v, want > 0", name, v)
+		}
+	}
 
 	// A malformed upload (the server parses it as it streams in) is
 	// refused with its line: exit 2.
@@ -354,4 +362,18 @@ func testToken(t *testing.T, bin string) {
 	if code != 0 || !strings.Contains(stdout, `"jobs"`) {
 		t.Errorf("token from the environment: exit %d, stdout %q, stderr %q", code, stdout, stderr)
 	}
+}
+
+// metricValue returns the value of an unlabelled sample in Prometheus text
+// exposition, or NaN when the metric is absent.
+func metricValue(text, name string) float64 {
+	for _, line := range strings.Split(text, "\n") {
+		if rest, ok := strings.CutPrefix(line, name+" "); ok {
+			v, err := strconv.ParseFloat(strings.TrimSpace(rest), 64)
+			if err == nil {
+				return v
+			}
+		}
+	}
+	return math.NaN()
 }

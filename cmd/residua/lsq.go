@@ -8,7 +8,6 @@ import (
 
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/monitor"
-	"github.com/residua/residua/sparse"
 )
 
 func init() {
@@ -131,7 +130,7 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 	}
 	s.Recorder = rec
 	x := make([]float64, p.a.Cols)
-	res, solveErr := krylov.LSQ(ctx, lsqOperator(p.a), p.b, x, s)
+	res, solveErr := krylov.LSQ(ctx, p.a, p.b, x, s)
 
 	rep.Method = res.Method
 	rep.Preconditioner = res.Scaling
@@ -184,35 +183,4 @@ func lsqOnes(p *problem, damp float64) (bool, string) {
 		return true, rhs + "; the unique solution when A has full column rank"
 	}
 	return false, rhs + "; not the solution sought here (damped, or fewer rows than columns: the minimum-norm one)"
-}
-
-// lsqOperator gives the least-squares methods an operator with column
-// norms, which column scaling needs.
-func lsqOperator(a *sparse.CSR) krylov.TransOperator {
-	if op, ok := any(a).(interface {
-		krylov.TransOperator
-		krylov.ColumnNormer
-	}); ok {
-		return op
-	}
-	return columnNormed{a}
-}
-
-// columnNormed adds krylov.ColumnNormer to a CSR matrix.
-type columnNormed struct{ *sparse.CSR }
-
-// ColumnNorms sets dst[j] = ‖A(:, j)‖₂, accumulating the squares of each
-// column's entries in row order.
-func (c columnNormed) ColumnNorms(dst []float64) {
-	if len(dst) != c.Cols {
-		panic(fmt.Sprintf("residua: ColumnNorms: len(dst) = %d, want %d", len(dst), c.Cols))
-	}
-	clear(dst)
-	for k, j := range c.ColIdx {
-		v := c.Val[k]
-		dst[j] += v * v
-	}
-	for j := range dst {
-		dst[j] = math.Sqrt(dst[j])
-	}
 }

@@ -112,6 +112,8 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		}
 		m := metrics.New()
 		m.ObserveQueue(srv.Registry().Counts)
+		m.ObserveUploads(srv.UploadBytes)
+		m.ObserveStore(srv.StoredBytes)
 		page := web.New(web.FromRegistry(srv.Registry()), web.Options{Metrics: m})
 		fmt.Fprintf(e.stderr, "residua: watch page on http://%s/\n", hl.Addr())
 		wg.Add(1)
