@@ -60,6 +60,82 @@
 // loop had not just done so). A wall-time budget (Settings.TimeLimit) is a
 // status, TimeLimit, while a context deadline is a cancellation.
 //
+// # Least squares
+//
+// LSQ solves the damped least-squares problem
+//
+//	min ‖A·x − b‖₂² + λ²‖x‖₂²,  λ = LSQSettings.Damp ≥ 0,
+//
+// for a TransOperator A with m rows and n columns, tall (m ≥ n) or wide
+// (m < n), with products by A and Aᵀ only: AᵀA is never formed, which would
+// square the condition number and fill in. Without damping, a wide or rank
+// deficient A has many minimisers; started from x0 = 0 without column
+// scaling the methods return the minimum-norm one (their iterates stay in
+// the Krylov space of AᵀA started from Aᵀb, inside range(Aᵀ)).
+//
+// Two methods, equal in exact arithmetic: LSQR (Paige and Saunders, ACM TOMS
+// 8(1), 1982), Golub–Kahan bidiagonalization with plane rotations, and CGLS
+// (Björck, Numerical Methods for Least Squares Problems, SIAM 1996, §7.4),
+// conjugate gradients on the normal equations. LSQAuto picks LSQR, always:
+// the two cost the same two products per iteration, and LSQR is the more
+// reliable in floating point when A is ill-conditioned (Paige and Saunders
+// 1982, §7–8). Both iterate on the augmented, scaled problem
+//
+//	Ā·z ≈ b̄,  Ā = [A·D; λD],  b̄ = [b; 0],  x = D·z,
+//
+// with D the column scaling (or I); a warm start X0 solves for the
+// correction from r0 = b − A·x0, the damping rows included, so it is exact
+// with damping too. An iteration applies A once and Aᵀ once and allocates
+// nothing. The default cap is 10·min(m, n) iterations (10·n when damped):
+// in exact arithmetic both methods end within rank(Ā) iterations.
+//
+// Stopping rules (Paige and Saunders 1982, §6), with r̄ = [b − A·x; −λx]
+// (so Āᵀr̄ = D·(Aᵀr − λ²x)) and ‖Ā‖ the Frobenius estimate ‖B_k‖_F built up
+// by the bidiagonalization (CGLS builds the same number, the trace of the
+// Lanczos tridiagonal of ĀᵀĀ, from its coefficients):
+//
+//	residual (compatible):          ‖r̄‖ ≤ BTol·‖b‖ + ATol·‖Ā‖·‖D⁻¹x‖
+//	normal-residual (least squares): ‖Āᵀr̄‖ ≤ ATol·‖Ā‖·‖r̄‖
+//
+// ATol and BTol default to 1e-8. The first says x solves exactly a system
+// whose A and b are within relative distances ATol and BTol of the given
+// ones; the second, that x is the exact least-squares solution for an A
+// perturbed by ATol relatively. The methods' recursive estimates only
+// trigger a check: convergence is declared on the residual and normal
+// residual recomputed from x (two more products), and LSQResult.StoppedBy
+// names the rule met. Reaching MaxIter ends with IterationLimit; a failed
+// check when the estimates have reached the rounding floor, or three failed
+// checks in a row that do not halve the true ‖Āᵀr̄‖, end with Stagnated;
+// neither is ever Converged. b = 0 with x0 = 0 returns x = 0 at iteration 0,
+// Converged. LSQResult reports the true ‖b − A·x‖ and ‖Aᵀr − λ²x‖, ‖x‖,
+// the ‖Ā‖ and condition estimates, and echoes the settings used.
+//
+// Column scaling (LSQSettings.Scaling) is the default preconditioner: D_jj =
+// 1/√(‖A(:, j)‖² + λ²), the inverse square roots of the diagonal of
+// AᵀA + λ²I, so that Ā has unit columns. It needs the column norms, which
+// the operator gives by implementing ColumnNormer; ScaleColumns on an
+// operator that does not returns ErrNoColumnNorms, and ScaleAuto then uses
+// no scaling. ScaleAuto scales tall problems only: for m < n the eigenvalue
+// λ² of AᵀA + λ²I repeats n − m times, a cluster the Krylov methods resolve
+// in one step and scaling would spread, and undamped the scaling would
+// change which minimiser is found. Scaling never changes a unique minimiser
+// (full column rank, or λ > 0); for a rank-deficient A without damping it
+// gives the minimiser with least ‖D⁻¹(x − x0)‖. Zero columns of A are found
+// whenever the column norms are known, reported 0-based in
+// LSQResult.ZeroColumns, and never divided by: left unscaled without
+// damping, where their entries of x keep x0's values (the minimum-norm
+// choice from x0 = 0), and scaled by 1/λ with damping, where they go to 0,
+// the damped minimiser.
+//
+// The Recorder gets Record at iteration 0 and after each iteration, with
+// ResidualNorm = ‖b − A·x‖ and NormalResidualNorm = ‖Aᵀr − λ²x‖ (the
+// methods' recursive estimates; the recomputed values at checks), and
+// Finish once with a *Result carrying the fields that mean the same
+// (Method "lsqr" or "cgls", Preconditioner "colscale" or "none", Status,
+// Iterations, Products, TrueResidualNorm, RHSNorm, RelResidual, timings).
+// Cancellation, the time budget, the errors and the panics follow the rules
+// above; x may be X0 itself and must not be b.
+//
 // # Memory
 //
 // CG holds, besides A, the preconditioner and the caller's b and x, the

@@ -136,7 +136,7 @@ func BenchmarkLSQIteration(b *testing.B) {
 			var spent time.Duration
 			var op TransOperator = timedOp{a, &spent}
 			if c.scaled {
-				op = timedNormedOp{timedOp{a, &spent}, csrNormed{a}}
+				op = timedNormedOp{timedOp{a, &spent}, a}
 			}
 			minPair, minIter := time.Duration(math.MaxInt64), time.Duration(math.MaxInt64)
 			var iterSum, opsSum time.Duration
