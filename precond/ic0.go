@@ -302,12 +302,20 @@ func (m *IC0) forward(w, r []float64, lo, hi int) {
 		cs := col[p:q]
 		vs := val[p:q]
 		vs = vs[:len(cs)]
-		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i-1 && i > lo {
+		k := len(cs) - 1
+		switch {
+		case k == 2 && int(cs[2]) == i-1 && i > lo:
+			// The 7-point stencil's row, unrolled: the same
+			// subtractions in the same order as the loop below.
+			s -= vs[0] * w[cs[0]]
+			s -= vs[1] * w[cs[1]]
+			s -= vs[2] * prev
+		case k >= 0 && int(cs[k]) == i-1 && i > lo:
 			for t, j := range cs[:k] {
 				s -= vs[t] * w[j]
 			}
 			s -= vs[k] * prev
-		} else {
+		default:
 			for t, j := range cs {
 				s -= vs[t] * w[j]
 			}
@@ -333,12 +341,18 @@ func (m *IC0) backward(z []float64, lo, hi int) {
 		cs := col[p:q]
 		vs := val[p:q]
 		vs = vs[:len(cs)]
-		if k := len(cs) - 1; k >= 0 && int(cs[k]) == i+1 && i < hi-1 {
+		k := len(cs) - 1
+		switch {
+		case k == 2 && int(cs[2]) == i+1 && i < hi-1:
+			s -= vs[0] * z[cs[0]]
+			s -= vs[1] * z[cs[1]]
+			s -= vs[2] * next
+		case k >= 0 && int(cs[k]) == i+1 && i < hi-1:
 			for t, j := range cs[:k] {
 				s -= vs[t] * z[j]
 			}
 			s -= vs[k] * next
-		} else {
+		default:
 			for t, j := range cs {
 				s -= vs[t] * z[j]
 			}
