@@ -84,15 +84,22 @@
 // sequentially.
 //
 // Parallel is off by default because it did not pay on the machine this
-// was measured on (2 cores shared with other work; BENCHMARKS.md has the
-// figures): each application crosses about 4n barriers for n³ unknowns, and
-// when the partner goroutine's thread is descheduled at a barrier the
-// caller waits a scheduling quantum. Row-by-row level scheduling
-// (BenchmarkLevels; levels are the anti-diagonal planes x+y+z = const, about
-// 3n levels whose rows lie far apart in memory) was slower still: even on
-// one goroutine the level-ordered sweep loses to the natural-order one,
-// since it touches a new cache line for almost every row where the natural
-// order streams.
+// was measured on (2 cores; BENCHMARKS.md has the figures). On 3D Poisson
+// 100³, whose factor fits in the last-level cache, one application took
+// 6.4 to 9 ms sequentially against 10.6 to 11 ms on two goroutines: about
+// 400 barriers per application, and the two goroutines each stream a
+// different part of the grid. On 160³, whose factor does not fit, two
+// goroutines applied it faster (35 against 56 ms, memory bandwidth being
+// the limit) but the whole IC(0)-PCG solve was no faster (9.06 against
+// 9.14 s, set-up included), and when the machine is shared every barrier
+// at which the partner goroutine's thread is descheduled costs a
+// scheduling quantum: under load the parallel application was 3 to 10
+// times slower. Row-by-row level scheduling (BenchmarkLevels; the levels of
+// the 7-point stencil are the anti-diagonal planes x+y+z = const, 298 of
+// them at 100³, whose rows lie far apart in memory) was slower still: on
+// one goroutine the level-ordered sweep took three times as long as the
+// natural-order one, since it touches a new cache line for almost every
+// row where the natural order streams.
 //
 // # The automatic choice
 //
