@@ -15,6 +15,7 @@ import (
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
 
+	"github.com/residua/residua/internal/atomicfile"
 	"github.com/residua/residua/krylov"
 )
 
@@ -79,26 +80,12 @@ func Write(path string, opt Options, series ...Series) (err error) {
 	if err != nil {
 		return err
 	}
-	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".*.tmp")
-	if err != nil {
+	err = atomicfile.Write(path, func(w io.Writer) error { return render(w, p, opt, format) })
+	var pe *os.PathError
+	if errors.As(err, &pe) {
 		return fmt.Errorf("chart: %w", err)
 	}
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-		}
-	}()
-	if err := render(f, p, opt, format); err != nil {
-		return err
-	}
-	if err := f.Close(); err != nil {
-		return fmt.Errorf("chart: %w", err)
-	}
-	if err := os.Rename(f.Name(), path); err != nil {
-		return fmt.Errorf("chart: %w", err)
-	}
-	return nil
+	return err
 }
 
 // SVG draws the series as an SVG document to w.

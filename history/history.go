@@ -5,13 +5,13 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
 	"sync"
 	"time"
 
+	"github.com/residua/residua/internal/atomicfile"
 	"github.com/residua/residua/krylov"
 )
 
@@ -91,9 +91,8 @@ type Writer struct {
 	err    error
 
 	// Set by Create only.
-	file      *os.File
-	finalPath string
-	closed    bool
+	file   *atomicfile.File
+	closed bool
 }
 
 // NewWriter returns a Writer writing to w. It panics if opt.Format is
@@ -118,13 +117,12 @@ func Create(path string, opt Options) (*Writer, error) {
 		return nil, fmt.Errorf("history: %s: unknown extension %q (want .csv, .json, .jsonl or .ndjson)", path, filepath.Ext(path))
 	}
 	opt.Format = f
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".*.tmp")
+	file, err := atomicfile.Create(path)
 	if err != nil {
 		return nil, fmt.Errorf("history: %w", err)
 	}
-	w := NewWriter(tmp, opt)
-	w.file = tmp
-	w.finalPath = path
+	w := NewWriter(file, opt)
+	w.file = file
 	return w, nil
 }
 
@@ -227,22 +225,12 @@ func (w *Writer) Close() error {
 	if w.file == nil {
 		return w.err
 	}
-	tmp := w.file.Name()
-	if w.err == nil {
-		if err := w.file.Sync(); err != nil {
-			w.err = fmt.Errorf("history: %w", err)
-		}
-	}
-	if err := w.file.Close(); err != nil && w.err == nil {
-		w.err = fmt.Errorf("history: %w", err)
-	}
-	if w.err == nil {
-		if err := os.Rename(tmp, w.finalPath); err != nil {
-			w.err = fmt.Errorf("history: %w", err)
-		}
-	}
 	if w.err != nil {
-		os.Remove(tmp)
+		w.file.Abort()
+		return w.err
+	}
+	if err := w.file.Commit(); err != nil {
+		w.err = fmt.Errorf("history: %w", err)
 	}
 	return w.err
 }

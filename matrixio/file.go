@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"strings"
 
+	"github.com/residua/residua/internal/atomicfile"
 	"github.com/residua/residua/sparse"
 )
 
@@ -109,62 +110,29 @@ func openText(path, suffix string, read func(r io.Reader, name string) error) er
 	return read(tb, path)
 }
 
-// writeFileAtomic writes a file through a temporary file in the same folder:
-// write, flush, fsync, close, rename. A run interrupted at any point leaves
-// either the old file or the complete new one, never a part. A path ending
-// in ".gz" is written gzip-compressed.
-func writeFileAtomic(path string, write func(w io.Writer) error) (err error) {
-	dir, base := filepath.Split(path)
-	if dir == "" {
-		dir = "."
-	}
-	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
-	if err != nil {
-		return err
-	}
-	defer func() {
-		if err != nil {
-			tmp.Close()
-			os.Remove(tmp.Name())
+// writeFileAtomic writes a file atomically (see internal/atomicfile: a run
+// interrupted at any point leaves either the old file or the complete new
+// one, never a part), buffered, and gzip-compressed when the path ends in
+// ".gz".
+func writeFileAtomic(path string, write func(w io.Writer) error) error {
+	return atomicfile.Write(path, func(f io.Writer) error {
+		bw := bufio.NewWriterSize(f, 1<<20)
+		var w io.Writer = bw
+		var gz *gzip.Writer
+		if strings.HasSuffix(path, ".gz") {
+			gz = gzip.NewWriter(bw)
+			w = gz
 		}
-	}()
-	bw := bufio.NewWriterSize(tmp, 1<<20)
-	var w io.Writer = bw
-	var gz *gzip.Writer
-	if strings.HasSuffix(base, ".gz") {
-		gz = gzip.NewWriter(bw)
-		w = gz
-	}
-	if err = write(w); err != nil {
-		return err
-	}
-	if gz != nil {
-		if err = gz.Close(); err != nil {
+		if err := write(w); err != nil {
 			return err
 		}
-	}
-	if err = bw.Flush(); err != nil {
-		return err
-	}
-	if err = tmp.Chmod(0o644); err != nil {
-		return err
-	}
-	if err = tmp.Sync(); err != nil {
-		return err
-	}
-	if err = tmp.Close(); err != nil {
-		return err
-	}
-	if err = os.Rename(tmp.Name(), path); err != nil {
-		return err
-	}
-	// Make the rename itself durable. Not every system can sync a folder,
-	// and the file is complete either way, so a failure here is ignored.
-	if d, derr := os.Open(dir); derr == nil {
-		_ = d.Sync()
-		d.Close()
-	}
-	return nil
+		if gz != nil {
+			if err := gz.Close(); err != nil {
+				return err
+			}
+		}
+		return bw.Flush()
+	})
 }
 
 // WriteMatrixFile writes a as WriteMatrix does, atomically (see

@@ -6,10 +6,10 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"os"
-	"path/filepath"
 	"sort"
 	"strings"
+
+	"github.com/residua/residua/internal/atomicfile"
 )
 
 // Exit statuses, documented in the package comment, in every command's
@@ -241,32 +241,6 @@ func (f *cmdFlags) printHelp(w io.Writer) {
 // that is renamed over path only when write succeeded, so an interrupted or
 // failed run never leaves a half-written file and never touches an
 // existing one.
-func writeFileAtomic(path string, write func(w io.Writer) error) (err error) {
-	dir, base := filepath.Split(path)
-	if dir == "" {
-		dir = "."
-	}
-	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
-	if err != nil {
-		return err
-	}
-	defer func() {
-		if err != nil {
-			tmp.Close()
-			os.Remove(tmp.Name())
-		}
-	}()
-	if err = write(tmp); err != nil {
-		return err
-	}
-	if err = tmp.Chmod(0o644); err != nil {
-		return err
-	}
-	if err = tmp.Sync(); err != nil {
-		return err
-	}
-	if err = tmp.Close(); err != nil {
-		return err
-	}
-	return os.Rename(tmp.Name(), path)
+func writeFileAtomic(path string, write func(w io.Writer) error) error {
+	return atomicfile.Write(path, write)
 }
