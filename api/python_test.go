@@ -47,6 +47,9 @@ func TestPythonClient(t *testing.T) {
 		skipOrFail(t, "python3-grpcio or python3-protobuf missing (%v: %s); skipping the Python client check", err, out)
 	}
 	_, mtx := sharedMatrix(t, "bcsstk14.mtx")
+	// well1033 is rectangular (1033×320, full column rank: the manifest), for
+	// the least-squares part of the check.
+	_, rect := sharedMatrix(t, "well1033.mtx")
 
 	stubs := t.TempDir()
 	gen := exec.Command(protoc, "--proto_path=../proto", "--proto_path=/usr/include",
@@ -62,7 +65,7 @@ func TestPythonClient(t *testing.T) {
 	}
 	startServerOn(t, Config{}, lis)
 
-	cmd := exec.Command(pythonBin, filepath.Join("testdata", "python", "check.py"), lis.Addr().String(), mtx)
+	cmd := exec.Command(pythonBin, filepath.Join("testdata", "python", "check.py"), lis.Addr().String(), mtx, rect)
 	cmd.Env = append(os.Environ(), "PYTHONPATH="+stubs, "PYTHONDONTWRITEBYTECODE=1")
 	var stderr strings.Builder
 	cmd.Stderr = &stderr
@@ -75,11 +78,14 @@ func TestPythonClient(t *testing.T) {
 		Iterations       int     `json:"iterations"`
 		RelativeResidual float64 `json:"relative_residual"`
 		ProgressEvents   int     `json:"progress_events"`
+		LSQIterations    int     `json:"lsq_iterations"`
+		LSQNormalRatio   float64 `json:"lsq_normal_ratio"`
 	}
 	if err := json.Unmarshal(out, &seen); err != nil {
 		t.Fatalf("check.py printed %q: %v", out, err)
 	}
-	if seen.Health != "SERVING" || seen.Iterations == 0 || seen.ProgressEvents < 2 || seen.RelativeResidual > 1.01e-8 {
+	if seen.Health != "SERVING" || seen.Iterations == 0 || seen.ProgressEvents < 2 || seen.RelativeResidual > 1.01e-8 ||
+		seen.LSQIterations == 0 || !(seen.LSQNormalRatio <= 1e-7) {
 		t.Errorf("check.py saw %+v", seen)
 	}
 	t.Logf("python client: %s", out)

@@ -11,7 +11,7 @@ detached solve that it follows with Watch and fetches with DownloadSolution.
 Usage (the Go test TestPythonClient runs it; PYTHONPATH must hold the
 generated stubs):
 
-    python3 check.py ADDRESS MATRIX.mtx
+    python3 check.py ADDRESS MATRIX.mtx [RECTANGULAR.mtx]
 
 It prints one JSON line with what it saw and exits 1 on a failed check.
 """
@@ -64,6 +64,49 @@ def matvec(rows, entries, x):
     for i, j, v in entries:
         y[i] += v * x[j]
     return y
+
+
+def matvec_t(cols, entries, y):
+    x = [0.0] * cols
+    for i, j, v in entries:
+        x[j] += v * y[i]
+    return x
+
+
+def least_squares(stub, path):
+    """Uploads a rectangular matrix and solves min ||A x - b|| for
+    b = A 1 + a component outside range(A) (so the system is inconsistent),
+    by method "lsq"; checks in Python that the x received satisfies the
+    normal equations: ||A^T r|| small against ||A||_F ||r||, the quantity
+    Paige and Saunders' inconsistent-system rule bounds (ACM TOMS 8(1), 1982,
+    section 6)."""
+    rows, cols, entries = read_matrix_market(path)
+    b = matvec(rows, entries, [1.0] * cols)
+    b = [bi + (0.5 if i % 2 else -0.5) for i, bi in enumerate(b)]
+    m = upload(stub, path, "python-lsq")
+    if (m.rows, m.cols) != (rows, cols):
+        fail("least-squares upload reply %dx%d, file %dx%d" % (m.rows, m.cols, rows, cols))
+    req = pb.SolveRequest(matrix_id=m.id, rhs=[pb.VectorRef(data=pack(b))], method="lsq",
+                          progress=pb.ProgressPolicy(every_iterations=5))
+    events, solution = collect(stub.Solve(req, timeout=120))
+    result = events[-2].result
+    if not result.converged:
+        fail("least-squares solve did not converge: %s" % result)
+    x = solution[0]
+    if len(x) != cols:
+        fail("least-squares solution has %d entries, want %d" % (len(x), cols))
+    r = [bi - ai for bi, ai in zip(b, matvec(rows, entries, x))]
+    g = matvec_t(cols, entries, r)
+    anorm = math.sqrt(sum(v * v for _, _, v in entries))
+    # The default atol is 1e-8; ||A||_F bounds the server's ||A|| estimate
+    # from above, and a factor 10 covers the different summation order.
+    ratio = norm(g) / (anorm * norm(r))
+    if ratio > 1e-7:
+        fail("least squares: ||A^T r|| / (||A||_F ||r||) = %g" % ratio)
+    if abs(result.normal_residual_norm - norm(g)) > 1e-6 * anorm * norm(r):
+        fail("least squares: server's ||A^T r|| %g, Python's %g" % (result.normal_residual_norm, norm(g)))
+    return {"lsq_iterations": result.iterations, "lsq_normal_ratio": ratio,
+            "lsq_method": [ev.accepted.method for ev in events if ev.WhichOneof("event") == "accepted"][0]}
 
 
 def pack(x):
@@ -120,8 +163,8 @@ def collect(stream):
 
 
 def main():
-    if len(sys.argv) != 3:
-        fail("usage: check.py ADDRESS MATRIX.mtx")
+    if len(sys.argv) not in (3, 4):
+        fail("usage: check.py ADDRESS MATRIX.mtx [RECTANGULAR.mtx]")
     addr, path = sys.argv[1], sys.argv[2]
     rows, cols, entries = read_matrix_market(path)
     b = matvec(rows, entries, [1.0] * cols)
@@ -183,6 +226,9 @@ def main():
     if job_id not in [j.id for j in jobs]:
         fail("ListJobs lacks the detached job")
     seen["detached_job_id"] = job_id
+
+    if len(sys.argv) == 4:
+        seen.update(least_squares(stub, sys.argv[3]))
     print(json.dumps(seen))
 
 
