@@ -18,6 +18,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/residua/residua/history"
 	"github.com/residua/residua/matrixio"
 )
 
@@ -208,17 +209,31 @@ func TestEndToEnd(t *testing.T) {
 	// local lsq (the same krylov.LSQ code).
 	lr, ll := filepath.Join(dir, "lsq-remote.mtx"), filepath.Join(dir, "lsq-local.mtx")
 	well, wellB := sharedMatrix(t, "well1033.mtx"), sharedMatrix(t, "well1033_b.mtx")
-	stdout, stderr, code = cli(t, bin, "lsq", "--server", srv.grpc, well, "-b", wellB, "--json", "-o", lr)
+	hr, hl := filepath.Join(dir, "lsq-remote.csv"), filepath.Join(dir, "lsq-local.csv")
+	stdout, stderr, code = cli(t, bin, "lsq", "--server", srv.grpc, well, "-b", wellB, "--json", "-o", lr, "--history", hr)
 	if code != 0 {
 		t.Fatalf("remote lsq: exit %d\n%s", code, stderr)
 	}
 	if rep := decodeReport(t, stdout); rep.NormalResidualNorm == nil || rep.JobID == "" {
 		t.Errorf("remote lsq summary: %+v", rep)
 	}
-	if _, stderr, code := cli(t, bin, "lsq", well, "-b", wellB, "--quiet", "-o", ll); code != 0 {
+	if _, stderr, code := cli(t, bin, "lsq", well, "-b", wellB, "--quiet", "-o", ll, "--history", hl); code != 0 {
 		t.Fatalf("local lsq: exit %d\n%s", code, stderr)
 	}
 	sameBits(t, lr, ll)
+	// The remote history carries ‖Aᵀr‖ as the local one does, row for row
+	// (the elapsed times differ, the norms are the same bits).
+	remoteRows, localRows := readHistory(t, hr), readHistory(t, hl)
+	if !remoteRows.LeastSquares || len(remoteRows.Rows) != len(localRows.Rows) {
+		t.Fatalf("remote lsq history: least squares %v, %d rows; local %d rows",
+			remoteRows.LeastSquares, len(remoteRows.Rows), len(localRows.Rows))
+	}
+	for i, r := range remoteRows.Rows {
+		l := localRows.Rows[i]
+		if r.Iteration != l.Iteration || r.ResidualNorm != l.ResidualNorm || r.NormalResidualNorm != l.NormalResidualNorm {
+			t.Fatalf("history row %d: remote %+v, local %+v", i, r, l)
+		}
+	}
 
 	// A detached job, then watch it to the end and download its solution.
 	gen := filepath.Join(dir, "j.mtx")
@@ -376,4 +391,13 @@ func metricValue(text, name string) float64 {
 		}
 	}
 	return math.NaN()
+}
+
+func readHistory(t *testing.T, path string) history.History {
+	t.Helper()
+	h, err := history.Read(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return h
 }

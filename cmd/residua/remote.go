@@ -123,11 +123,12 @@ type remoteDisplay struct {
 }
 
 // newRemoteDisplay makes the display of a remote job; target is the
-// relative residual aimed at (0 for least squares, which has none).
-func newRemoteDisplay(e *env, o *solveOpts, name string, target float64) (*remoteDisplay, error) {
+// relative residual aimed at (0 for least squares, which has none), and a
+// least-squares job's history keeps the ‖Aᵀr‖ column.
+func newRemoteDisplay(e *env, o *solveOpts, name string, target float64, leastSquares bool) (*remoteDisplay, error) {
 	quiet := *o
 	quiet.quiet = true // the monitor is added on the accepted event
-	rec, finish, err := recorders(e, &quiet, false, monitor.Options{Matrix: name, Target: target})
+	rec, finish, err := recorders(e, &quiet, leastSquares, monitor.Options{Matrix: name, Target: target})
 	if err != nil {
 		return nil, err
 	}
@@ -147,6 +148,7 @@ func (d *remoteDisplay) event(ev client.Event) {
 		d.rec.Record(krylov.Progress{
 			Iteration: int(p.GetIteration()), Elapsed: time.Duration(p.GetElapsedSeconds() * float64(time.Second)),
 			ResidualNorm: p.GetResidualNorm(), RelResidual: p.GetRelativeResidual(),
+			NormalResidualNorm: p.GetNormalResidualNorm(),
 		})
 	case ev.Result != nil && ev.Result.GetRhs() == 0:
 		d.stop()
@@ -299,7 +301,7 @@ func remoteSolve(ctx context.Context, e *env, path string, o *solveOpts, so *ser
 		fmt.Fprintf(e.stderr, "residua: job %s started on %s; follow it with 'residua watch %s'\n", out.JobID, so.addr, out.JobID)
 		return nil
 	}
-	disp, err := newRemoteDisplay(e, o, name, target)
+	disp, err := newRemoteDisplay(e, o, name, target, lsq != nil)
 	if err != nil {
 		return err
 	}
@@ -480,7 +482,7 @@ func runWatch(ctx context.Context, e *env, args []string) error {
 		target = 0 // least squares has no target relative residual
 	}
 	o.rtol = target
-	disp, err := newRemoteDisplay(e, o, job.GetMatrixName(), target)
+	disp, err := newRemoteDisplay(e, o, job.GetMatrixName(), target, job.GetMethod() != "cg")
 	if err != nil {
 		return err
 	}
