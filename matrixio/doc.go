@@ -46,7 +46,11 @@
 // entries to a sparse.Assembler, which checks them and counts them per row
 // while later chunks are parsed. A handful of chunks are in flight at a time,
 // and their buffers are reused. The entries wait as triplets (16 bytes each)
-// until the end of the input, then sparse.Assembler.Build places them; its
+// until the end of the input, in slabs of up to 4 Mi entries that grow with
+// the entries read (never beyond what the size line still announces) and
+// that, on Linux, are offered huge pages (madvise MADV_HUGEPAGE): first
+// touches of fresh memory, 4 KiB page faults, cost more than the parsing on
+// a virtual machine. Then sparse.Assembler.Build places the entries; its
 // note on memory says why the peak stays below about 1.5 times the size of
 // the resulting CSR for a symmetric file. Every goroutine has ended when a
 // read function returns, error or not.

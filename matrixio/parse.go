@@ -37,7 +37,8 @@ type chunk struct {
 
 // dataParser parses the data lines of one file.
 type dataParser struct {
-	hd *header
+	hd    *header
+	slabs slabs // the coordinate entries' arrays
 }
 
 // add records a coordinate entry (1-based indices, already checked against
@@ -262,7 +263,8 @@ func (p *dataParser) parse(c *chunk) {
 	case hd.object == objVector:
 		c.t = sparse.Triplets{I: make([]int32, 0, est), V: make([]float64, 0, est)}
 	default:
-		c.t = sparse.Triplets{I: make([]int32, 0, est), J: make([]int32, 0, est), V: make([]float64, 0, est)}
+		I, J, V := p.slabs.take(est)
+		c.t = sparse.Triplets{I: I, J: J, V: V}
 	}
 	var fields []string
 	switch {

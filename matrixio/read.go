@@ -270,7 +270,7 @@ func fill(r io.Reader, buf []byte) (int, error) {
 // use. The first error in file order stops the reading; every goroutine has
 // ended when each returns.
 func (d *dataReader) each(use func(c *chunk) error) error {
-	p := &dataParser{hd: d.hd}
+	p := &dataParser{hd: d.hd, slabs: slabs{claimed: d.hd.entries}}
 	k := &chunker{r: d.h.br, free: make(chan []byte, 4)}
 	first := k.next()
 	if first.final {
