@@ -2,7 +2,8 @@ package matrixio
 
 import (
 	"sync"
-	"unsafe"
+
+	"github.com/residua/residua/internal/hugepage"
 )
 
 // slabs hands out the triplet arrays of the chunks of one file from a few
@@ -12,7 +13,7 @@ import (
 // time (16 bytes per entry), and on a virtual machine a first touch costs a
 // page fault of several microseconds per 4 KiB page, more than parsing the
 // text that fills the page. A large allocation can be backed by huge pages
-// (adviseHuge), which cut the number of faults by 512.
+// (internal/hugepage), which cut the number of faults by 512.
 //
 // Memory stays bounded by the data: a new slab holds no more entries than
 // have been handed out so far (so the total at most doubles what the text
@@ -48,8 +49,8 @@ func (s *slabs) take(n int) (I, J []int32, V []float64) {
 		}
 		s.idx = make([]int32, 2*size)
 		s.val = make([]float64, size)
-		adviseHuge(unsafe.Pointer(unsafe.SliceData(s.idx)), uintptr(len(s.idx))*4)
-		adviseHuge(unsafe.Pointer(unsafe.SliceData(s.val)), uintptr(len(s.val))*8)
+		hugepage.Advise(s.idx)
+		hugepage.Advise(s.val)
 	}
 	I, J, V = s.idx[:0:n], s.idx[n:n:2*n], s.val[:0:n]
 	s.idx, s.val = s.idx[2*n:], s.val[n:]

@@ -7,6 +7,8 @@ import (
 	"runtime/debug"
 	"sort"
 	"sync"
+
+	"github.com/residua/residua/internal/hugepage"
 )
 
 // Symmetry says how a list of entries relates to the full matrix it
@@ -295,6 +297,7 @@ func (a *Assembler) Build() (*CSR, BuildStats, error) {
 	// rowPtr[r] serves as row r's insertion point and ends at row r+1's start;
 	// shiftRowPtr moves it back.
 	val := make([]float64, nnz)
+	hugepage.Advise(val) // before the first write: see internal/hugepage
 	skew := sym == SkewSymmetric
 	parallel(w, func(k int) {
 		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
@@ -333,6 +336,7 @@ func (a *Assembler) Build() (*CSR, BuildStats, error) {
 		debug.FreeOSMemory()
 	}
 	colIdx := make([]int32, nnz)
+	hugepage.Advise(colIdx)
 	parallel(w, func(k int) {
 		lo, n := int32(first[k]), uint32(first[k+1]-first[k])
 		for _, t := range blocks {

@@ -6,6 +6,7 @@ import (
 	"runtime"
 	"sync"
 
+	"github.com/residua/residua/internal/hugepage"
 	"github.com/residua/residua/sparse"
 )
 
@@ -80,6 +81,11 @@ func build(nx, ny, nz int, offs []offset, fixed []float64, coef coefFunc) *spars
 		ColIdx: make([]int32, nnz),
 		Val:    make([]float64, nnz),
 	}
+	// Before the first write: a large problem's build time is otherwise
+	// mostly first-touch page faults (see internal/hugepage).
+	hugepage.Advise(a.RowPtr)
+	hugepage.Advise(a.ColIdx)
+	hugepage.Advise(a.Val)
 	// Row-number displacement of each offset.
 	delta := make([]int, len(offs))
 	for k, o := range offs {

@@ -1,0 +1,6 @@
+//go:build !linux
+
+package hugepage
+
+// advise does nothing outside Linux.
+func advise(b []byte) {}
