@@ -1,7 +1,6 @@
 package api
 
 import (
-	"context"
 	"fmt"
 	"time"
 
@@ -44,26 +43,11 @@ func (s *Server) runLSQ(j *job, p *jobParams) (pb.JobState, error) {
 		si.Recorder = rec
 		res, lsqErr := krylov.LSQ(j.ctx, a, b, x, si)
 		rec.flush()
-		out := lsqResultMessage(i, &res, reason, lsqErr)
-		j.mu.Lock()
-		if j.solutions != nil {
-			j.solutions[i] = x
-		}
-		j.mu.Unlock()
-		j.publish(&pb.JobEvent{Event: &pb.JobEvent_Result{Result: out}})
+		j.deliver(i, x, lsqResultMessage(i, &res, reason, lsqErr))
 		s.log.Info("solve", "job", j.id, "rhs", i, "status", res.Status.String(), "iterations", res.Iterations,
 			"residual_norm", res.ResidualNorm, "normal_residual_norm", res.NormalResidualNorm, "solve", res.Solve.String())
-		switch {
-		case res.Status == krylov.Cancelled:
-			if cause := context.Cause(j.ctx); cause != nil {
-				return pb.JobState_CANCELLED, cause
-			}
-			if lsqErr == nil {
-				lsqErr = context.Canceled
-			}
-			return pb.JobState_CANCELLED, lsqErr
-		case lsqErr != nil:
-			return pb.JobState_FAILED, lsqErr
+		if state, stop, err := j.stopAfter(res.Status, lsqErr); stop {
+			return state, err
 		}
 	}
 	return pb.JobState_FINISHED, nil

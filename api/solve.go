@@ -451,29 +451,46 @@ func (s *Server) runJob(j *job, p *jobParams) (state pb.JobState, err error) {
 		rec.flush()
 		res.Preconditioner = string(choice.Kind)
 		res.Setup = choice.Setup
-		out := resultMessage(i, &res, choice, fromCache, cgErr)
-		j.mu.Lock()
-		if j.solutions != nil {
-			j.solutions[i] = x
-		}
-		j.mu.Unlock()
-		j.publish(&pb.JobEvent{Event: &pb.JobEvent_Result{Result: out}})
+		j.deliver(i, x, resultMessage(i, &res, choice, fromCache, cgErr))
 		s.log.Info("solve", "job", j.id, "rhs", i, "status", res.Status.String(), "iterations", res.Iterations,
 			"relative_residual", res.RelResidual, "solve", res.Solve.String())
-		switch {
-		case res.Status == krylov.Cancelled:
-			if cause := context.Cause(j.ctx); cause != nil {
-				return pb.JobState_CANCELLED, cause
-			}
-			if cgErr == nil {
-				cgErr = context.Canceled
-			}
-			return pb.JobState_CANCELLED, cgErr
-		case cgErr != nil:
-			return pb.JobState_FAILED, cgErr
+		if state, stop, err := j.stopAfter(res.Status, cgErr); stop {
+			return state, err
 		}
 	}
 	return pb.JobState_FINISHED, nil
+}
+
+// deliver keeps right-hand side i's solution x (when the job keeps
+// solutions) and publishes its result.
+func (j *job) deliver(i int, x []float64, out *pb.SolveResult) {
+	j.mu.Lock()
+	if j.solutions != nil {
+		j.solutions[i] = x
+	}
+	j.mu.Unlock()
+	j.publish(&pb.JobEvent{Event: &pb.JobEvent_Result{Result: out}})
+}
+
+// stopAfter says whether a job must stop after a right-hand side that ended
+// with status and err, and in which state: a cancelled solve ends the job
+// cancelled, with the cancellation's cause where the job's context has one;
+// an error (a breakdown) ends it failed; any other outcome goes on to the
+// next right-hand side.
+func (j *job) stopAfter(status krylov.Status, err error) (pb.JobState, bool, error) {
+	switch {
+	case status == krylov.Cancelled:
+		if cause := context.Cause(j.ctx); cause != nil {
+			return pb.JobState_CANCELLED, true, cause
+		}
+		if err == nil {
+			err = context.Canceled
+		}
+		return pb.JobState_CANCELLED, true, err
+	case err != nil:
+		return pb.JobState_FAILED, true, err
+	}
+	return 0, false, nil
 }
 
 // resultMessage converts a krylov result to the wire form.
