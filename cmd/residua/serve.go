@@ -46,7 +46,7 @@ KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024).
 
 SIGINT or SIGTERM shuts down in order: health goes NOT_SERVING, new work is
 refused, running solves get --shutdown-grace to finish and are then
-cancelled, then the servers stop.`
+cancelled, open streams get --stop-timeout to close, then the servers stop.`
 
 func runServe(ctx context.Context, e *env, args []string) error {
 	var cfg api.Config
@@ -68,6 +68,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&cfg.TLSCert, "tls-cert", "", "serve TLS with this PEM certificate `file` (needs --tls-key)")
 	f.StringVar(&cfg.TLSKey, "tls-key", "", "PEM private key `file` for --tls-cert")
 	f.DurationVar(&cfg.ShutdownGrace, "shutdown-grace", api.DefaultShutdownGrace, "on shutdown, how long running solves may continue before they are cancelled")
+	f.DurationVar(&cfg.StopTimeout, "stop-timeout", api.DefaultStopTimeout, "on shutdown, how long open streams may take to close after the solves end before the server stops them")
 	pos, err := f.parse(e, args)
 	if err == errHelp {
 		return nil
@@ -81,7 +82,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	cfg.MaxUploadBytes, cfg.MemoryBudget = int64(uploadBytes), int64(memory)
 	for name, v := range map[string]int64{"max-rows": int64(cfg.MaxRows), "max-nonzeros": cfg.MaxNonzeros, "max-rhs": int64(cfg.MaxRHS),
 		"max-solves": int64(cfg.MaxConcurrentSolves), "max-queued": int64(cfg.MaxQueued), "max-jobs-kept": int64(cfg.MaxJobsKept),
-		"shutdown-grace": int64(cfg.ShutdownGrace), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget} {
+		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget} {
 		if v < 0 {
 			return usageErrorf("serve: --%s must not be negative", name)
 		}
