@@ -8,8 +8,6 @@ import (
 	"io"
 	"sort"
 	"strings"
-
-	"github.com/residua/residua/internal/atomicfile"
 )
 
 // Exit statuses, documented in the package comment, in every command's
@@ -110,7 +108,7 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			if c == nil {
 				return usageErrorf("help: unknown command %q (run 'residua help')", args[1])
 			}
-			return c.run(ctx, e, []string{"--help"})
+			return runCommand(ctx, c, e, []string{"--help"})
 		}
 		printOverview(stdout)
 		return nil
@@ -119,7 +117,16 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 	if c == nil {
 		return usageErrorf("unknown command %q (run 'residua help' for the list)", name)
 	}
-	return c.run(ctx, e, args[1:])
+	return runCommand(ctx, c, e, args[1:])
+}
+
+// runCommand runs c; a --help that c's flag parsing answered (errHelp) is
+// success, so the commands just return parse's error.
+func runCommand(ctx context.Context, c *command, e *env, args []string) error {
+	if err := c.run(ctx, e, args); err != errHelp {
+		return err
+	}
+	return nil
 }
 
 func printOverview(w io.Writer) {
@@ -167,8 +174,8 @@ func newFlags(name, usage, about string) *cmdFlags {
 	return &cmdFlags{FlagSet: fs, usage: usage, about: about}
 }
 
-// errHelp is returned by parse when --help was asked for and printed; the
-// command returns nil.
+// errHelp is returned by parse when --help was asked for and printed; a
+// command passes it on and runCommand turns it into success.
 var errHelp = errors.New("help shown")
 
 // parse parses args, allowing flags after positional arguments (flag stops at
@@ -235,12 +242,4 @@ func (f *cmdFlags) printHelp(w io.Writer) {
 		fmt.Fprintf(w, "  %-*s  %s\n\n", width, "-h, --help", "this text")
 	}
 	fmt.Fprint(w, exitStatusText)
-}
-
-// writeFileAtomic writes path through a temporary file in the same folder
-// that is renamed over path only when write succeeded, so an interrupted or
-// failed run never leaves a half-written file and never touches an
-// existing one.
-func writeFileAtomic(path string, write func(w io.Writer) error) error {
-	return atomicfile.Write(path, write)
 }

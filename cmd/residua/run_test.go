@@ -6,7 +6,6 @@ import (
 	"errors"
 	"io"
 	"os"
-	"path/filepath"
 	"reflect"
 	"strings"
 	"testing"
@@ -119,34 +118,6 @@ func TestExitStatus(t *testing.T) {
 	buf.Reset()
 	if got := exitStatus(&exitError{code: exitNotConverged, err: errors.New("x"), quiet: true}, &buf); got != exitNotConverged || buf.Len() != 0 {
 		t.Errorf("quiet: %d %q", got, buf.String())
-	}
-}
-
-// A failed write leaves an existing file untouched and no temporary file.
-func TestWriteFileAtomic(t *testing.T) {
-	dir := t.TempDir()
-	path := filepath.Join(dir, "out.txt")
-	if err := os.WriteFile(path, []byte("old"), 0o644); err != nil {
-		t.Fatal(err)
-	}
-	boom := errors.New("boom")
-	err := writeFileAtomic(path, func(w io.Writer) error {
-		io.WriteString(w, "half")
-		return boom
-	})
-	if !errors.Is(err, boom) {
-		t.Fatalf("got %v, want boom", err)
-	}
-	checkOnly(t, dir, "out.txt")
-	if got, _ := os.ReadFile(path); string(got) != "old" {
-		t.Errorf("existing file changed to %q", got)
-	}
-	if err := writeFileAtomic(path, func(w io.Writer) error { _, err := io.WriteString(w, "new"); return err }); err != nil {
-		t.Fatal(err)
-	}
-	checkOnly(t, dir, "out.txt")
-	if got, _ := os.ReadFile(path); string(got) != "new" {
-		t.Errorf("file is %q, want new", got)
 	}
 }
 
