@@ -56,9 +56,6 @@ func runBench(ctx context.Context, e *env, args []string) error {
 	repeat := f.Int("repeat", 20, "timed products (and triads) `K`")
 	asJSON := f.Bool("json", false, "print the figures as one JSON object")
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

@@ -53,9 +53,6 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
 	addRunFlags(f, o)
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

@@ -48,9 +48,6 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 	kz := f.Float64("kz", stencil.DefaultKZ, "anisotropic3d: diffusion coefficient along z")
 	contrast := f.Float64("contrast", stencil.DefaultContrast, "jump3d: ratio of the two blocks' coefficients")
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

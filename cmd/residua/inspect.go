@@ -70,9 +70,6 @@ func runInspect(ctx context.Context, e *env, args []string) error {
 	asJSON := f.Bool("json", false, "print one JSON object per file")
 	symTol := f.Float64("sym-tol", defaultSymTol, "symmetry tolerance relative to max|a(i,j)|")
 	files, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

@@ -56,9 +56,6 @@ func runLSQ(ctx context.Context, e *env, args []string) error {
 	addServerFlags(f, so)
 	detach := f.Bool("detach", false, "with --server: start the job, print its id and return (the job keeps its solution for 'residua watch JOB -o x.mtx')")
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

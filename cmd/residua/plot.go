@@ -33,9 +33,6 @@ func runPlot(ctx context.Context, e *env, args []string) error {
 	tol := f.Float64("tol", 0, "draw the tolerance line at this relative residual")
 	title := f.String("title", "", "chart title (default: built from the histories)")
 	files, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

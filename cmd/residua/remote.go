@@ -393,9 +393,6 @@ func runJobs(ctx context.Context, e *env, args []string) error {
 	asJSON := f.Bool("json", false, "print the jobs as JSON")
 	addServerFlags(f, so)
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}
@@ -454,9 +451,6 @@ func runWatch(ctx context.Context, e *env, args []string) error {
 	f.BoolVar(&o.json, "json", false, "print the summary as JSON")
 	f.BoolVar(&o.quiet, "quiet", false, "no live progress on stderr")
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}
@@ -545,9 +539,6 @@ func runCancel(ctx context.Context, e *env, args []string) error {
 	asJSON := f.Bool("json", false, "print the job as JSON")
 	addServerFlags(f, so)
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}

@@ -70,9 +70,6 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.DurationVar(&cfg.ShutdownGrace, "shutdown-grace", api.DefaultShutdownGrace, "on shutdown, how long running solves may continue before they are cancelled")
 	f.DurationVar(&cfg.StopTimeout, "stop-timeout", api.DefaultStopTimeout, "on shutdown, how long open streams may take to close after the solves end before the server stops them")
 	pos, err := f.parse(e, args)
-	if err == errHelp {
-		return nil
-	}
 	if err != nil {
 		return err
 	}
