@@ -117,6 +117,26 @@ func TestUploadLimits(t *testing.T) {
 			t.Fatalf("%v, want INVALID_ARGUMENT naming byte 20", err)
 		}
 	})
+	// The chunking contract in the .proto puts the metadata first: a stream
+	// that ends before it, for a matrix or a vector, is refused as such.
+	t.Run("stream ends before the metadata", func(t *testing.T) {
+		ms, err := c.RPC().UploadMatrix(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, err = ms.CloseAndRecv()
+		if status.Code(err) != codes.InvalidArgument || !strings.Contains(status.Convert(err).Message(), "before its metadata") {
+			t.Fatalf("matrix: %v, want INVALID_ARGUMENT saying the metadata is missing", err)
+		}
+		vs, err := c.RPC().UploadVector(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, err = vs.CloseAndRecv()
+		if status.Code(err) != codes.InvalidArgument || !strings.Contains(status.Convert(err).Message(), "before its metadata") {
+			t.Fatalf("vector: %v, want INVALID_ARGUMENT saying the metadata is missing", err)
+		}
+	})
 	t.Run("checksum mismatch", func(t *testing.T) {
 		text := "%%MatrixMarket matrix coordinate real general\n1 1 1\n1 1 1.0\n"
 		_, err := c.UploadReader(ctx, strings.NewReader(text), "sum.mtx", &client.UploadOptions{ExpectedSHA256: strings.Repeat("0", 64)})

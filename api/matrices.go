@@ -69,11 +69,8 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	if err := s.refuseIfClosing(); err != nil {
 		return err
 	}
-	first, err := stream.Recv()
+	first, err := recvFirst(stream.Recv)
 	if err != nil {
-		if err == io.EOF {
-			return invalidf("the upload stream ended before its metadata")
-		}
 		return err
 	}
 	meta := first.GetMetadata()

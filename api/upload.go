@@ -111,17 +111,24 @@ func (c *chunkReader) drain(r io.Reader, what string) error {
 	}
 }
 
+// recvFirst receives an upload's first message, which must come before the
+// stream ends: the chunking contract puts the metadata there.
+func recvFirst[M any](recv func() (M, error)) (M, error) {
+	first, err := recv()
+	if err == io.EOF {
+		err = invalidf("the upload stream ended before its metadata")
+	}
+	return first, err
+}
+
 // UploadMatrix implements the UploadMatrix RPC (see the .proto).
 func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	start := time.Now()
 	if err := s.refuseIfClosing(); err != nil {
 		return err
 	}
-	first, err := stream.Recv()
+	first, err := recvFirst(stream.Recv)
 	if err != nil {
-		if err == io.EOF {
-			return invalidf("the upload stream ended before its metadata")
-		}
 		return err
 	}
 	meta := first.GetMetadata()
