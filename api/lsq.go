@@ -45,7 +45,7 @@ func (s *Server) runLSQ(j *job, p *jobParams) (pb.JobState, error) {
 		rec.flush()
 		j.deliver(i, x, lsqResultMessage(i, &res, reason, lsqErr))
 		s.log.Info("solve", "job", j.id, "rhs", i, "status", res.Status.String(), "iterations", res.Iterations,
-			"residual_norm", res.ResidualNorm, "normal_residual_norm", res.NormalResidualNorm, "solve", res.Solve.String())
+			"residual_norm", res.ResidualNorm, "normal_residual_norm", res.LSQ.NormalResidualNorm, "solve", res.Solve.String())
 		if state, stop, err := j.stopAfter(res.Status, lsqErr); stop {
 			return state, err
 		}
@@ -54,22 +54,23 @@ func (s *Server) runLSQ(j *job, p *jobParams) (pb.JobState, error) {
 }
 
 // lsqResultMessage converts a least-squares result to the wire form.
-func lsqResultMessage(rhs int, r *krylov.LSQResult, reason string, err error) *pb.SolveResult {
+func lsqResultMessage(rhs int, r *krylov.Result, reason string, err error) *pb.SolveResult {
+	l := r.LSQ
 	out := &pb.SolveResult{
 		Rhs: int32(rhs), Converged: r.Status == krylov.Converged, Status: r.Status.String(),
 		Method: r.Method, Iterations: int64(r.Iterations), RelativeResidual: r.RelResidual,
 		ResidualNorm: r.ResidualNorm, TrueResidualNorm: r.ResidualNorm, RhsNorm: r.RHSNorm,
-		Preconditioner: r.Scaling, PreconditionerReason: r.Scaling + ": " + reason,
+		Preconditioner: l.Scaling, PreconditionerReason: l.Scaling + ": " + reason,
 		SolveSeconds: r.Solve.Seconds(), PerIterationSeconds: r.PerIteration.Seconds(),
-		Cond: r.CondEstimate,
+		Cond: l.CondEstimate,
 		Settings: &pb.Settings{
-			Atol: r.Settings.ATol, Btol: r.Settings.BTol, Damp: r.Settings.Damp, MaxIter: int64(r.Settings.MaxIter),
-			TimeLimitSeconds: r.Settings.TimeLimit.Seconds(),
+			Atol: l.Settings.ATol, Btol: l.Settings.BTol, Damp: l.Settings.Damp, MaxIter: int64(l.Settings.MaxIter),
+			TimeLimitSeconds: l.Settings.TimeLimit.Seconds(),
 		},
-		NormalResidualNorm: r.NormalResidualNorm, XNorm: r.XNorm, ANormEstimate: r.ANormEstimate,
-		StoppedBy: r.StoppedBy,
+		NormalResidualNorm: l.NormalResidualNorm, XNorm: l.XNorm, ANormEstimate: l.ANormEstimate,
+		StoppedBy: l.StoppedBy,
 	}
-	for _, c := range r.ZeroColumns {
+	for _, c := range l.ZeroColumns {
 		out.ZeroColumns = append(out.ZeroColumns, int64(c))
 	}
 	if err != nil && r.Status != krylov.Cancelled {

@@ -9,9 +9,11 @@ import (
 	"github.com/residua/residua/sparse"
 )
 
+// DefaultRelTol is the default of Settings.RelTol.
+const DefaultRelTol = 1e-8
+
 // Default settings, as documented on Settings.
 const (
-	cgDefaultRelTol       = 1e-8
 	cgDefaultRefreshEvery = 50
 	cgDefaultMaxIterPerN  = 10
 )
@@ -143,7 +145,7 @@ func (s Settings) cgDefaults(n int) Settings {
 		panic(fmt.Sprintf("krylov: negative TimeLimit %v", s.TimeLimit))
 	}
 	if s.RelTol == 0 {
-		s.RelTol = cgDefaultRelTol
+		s.RelTol = DefaultRelTol
 	}
 	if s.MaxIter == 0 {
 		s.MaxIter = cgDefaultMaxIterPerN * n

@@ -56,6 +56,32 @@ func (s Scaling) String() string {
 	return fmt.Sprintf("scaling(%d)", int(s))
 }
 
+// ParseScaling returns the Scaling named s ("auto", "colscale" or "none",
+// the names String gives), or an error listing them.
+func ParseScaling(s string) (Scaling, error) {
+	for sc, name := range scalingNames {
+		if s == name {
+			return sc, nil
+		}
+	}
+	return 0, fmt.Errorf("unknown column scaling %q (want auto, colscale or none)", s)
+}
+
+// ChooseScaling resolves ScaleAuto for an m×n operator (hasNorms: it
+// implements ColumnNormer) by the rule documented on ScaleAuto, and says
+// why in words. Any other scaling is returned as it is, "as requested".
+func ChooseScaling(sc Scaling, m, n int, hasNorms bool) (Scaling, string) {
+	switch {
+	case sc != ScaleAuto:
+		return sc, "as requested"
+	case !hasNorms:
+		return ScaleNone, "auto: the operator cannot give its column norms"
+	case m >= n:
+		return ScaleColumns, fmt.Sprintf("auto: %d rows ≥ %d columns", m, n)
+	}
+	return ScaleNone, fmt.Sprintf("auto: %d rows < %d columns, where scaling would change the minimum-norm solution", m, n)
+}
+
 // columnScale turns the column norms in d, in place, into the scale factors
 // D_jj = 1/√(‖A(:, j)‖₂² + λ²): the inverse square roots of the diagonal of
 // the damped normal matrix AᵀA + λ²I, i.e. the unit column norms of the

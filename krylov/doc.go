@@ -102,13 +102,15 @@
 // ones; the second, that x is the exact least-squares solution for an A
 // perturbed by ATol relatively. The methods' recursive estimates only
 // trigger a check: convergence is declared on the residual and normal
-// residual recomputed from x (two more products), and LSQResult.StoppedBy
+// residual recomputed from x (two more products), and Result.LSQ.StoppedBy
 // names the rule met. Reaching MaxIter ends with IterationLimit; a failed
 // check when the estimates have reached the rounding floor, or three failed
 // checks in a row that do not halve the true ‖Āᵀr̄‖, end with Stagnated;
 // neither is ever Converged. b = 0 with x0 = 0 returns x = 0 at iteration 0,
-// Converged. LSQResult reports the true ‖b − A·x‖ and ‖Aᵀr − λ²x‖, ‖x‖,
-// the ‖Ā‖ and condition estimates, and echoes the settings used.
+// Converged. LSQ returns the same Result as CG, with ‖b − A·x‖ as
+// TrueResidualNorm and the condition estimate as Cond; its LSQ part adds
+// ‖Aᵀr − λ²x‖, ‖x‖, the ‖Ā‖ estimate, the rule met, the zero columns, and
+// echoes the settings used.
 //
 // Column scaling (LSQSettings.Scaling) is the default preconditioner: D_jj =
 // 1/√(‖A(:, j)‖² + λ²), the inverse square roots of the diagonal of
@@ -122,7 +124,7 @@
 // (full column rank, or λ > 0); for a rank-deficient A without damping it
 // gives the minimiser with least ‖D⁻¹(x − x0)‖. Zero columns of A are found
 // whenever the column norms are known, reported 0-based in
-// LSQResult.ZeroColumns, and never divided by: left unscaled without
+// Result.LSQ.ZeroColumns, and never divided by: left unscaled without
 // damping, where their entries of x keep x0's values (the minimum-norm
 // choice from x0 = 0), and scaled by 1/λ with damping, where they go to 0,
 // the damped minimiser.
@@ -130,9 +132,9 @@
 // The Recorder gets Record at iteration 0 and after each iteration, with
 // ResidualNorm = ‖b − A·x‖ and NormalResidualNorm = ‖Aᵀr − λ²x‖ (the
 // methods' recursive estimates; the recomputed values at checks), and
-// Finish once with a *Result carrying the fields that mean the same
-// (Method "lsqr" or "cgls", Preconditioner "colscale" or "none", Status,
-// Iterations, Products, TrueResidualNorm, RHSNorm, RelResidual, timings).
+// Finish once with the same *Result that LSQ returns (Method "lsqr" or
+// "cgls", Preconditioner "colscale" or "none", the LSQ part set): one
+// Recorder serves every method.
 // Cancellation, the time budget, the errors and the panics follow the rules
 // above; x may be X0 itself and must not be b.
 //

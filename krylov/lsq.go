@@ -27,6 +27,9 @@ const (
 
 var lsqMethodNames = map[LSQMethod]string{LSQAuto: "auto", LSQR: "lsqr", CGLS: "cgls"}
 
+// DefaultLSQTol is the default of LSQSettings.ATol and BTol.
+const DefaultLSQTol = 1e-8
+
 // String returns the method's stable lower-case name: "auto", "lsqr" or
 // "cgls".
 func (m LSQMethod) String() string {
@@ -76,48 +79,34 @@ type LSQSettings struct {
 	Recorder Recorder `json:"-"`
 }
 
-// LSQResult describes a finished least-squares solve.
+// LSQResult is the part of a Result that only a least-squares solve has
+// (Result.LSQ). The figures common to every method (status, iterations,
+// products, ‖b − A·x‖ as ResidualNorm and TrueResidualNorm, ‖b‖, the
+// relative residual, the times, and the condition estimate as Cond) are in
+// the Result itself.
 type LSQResult struct {
-	// Method is "lsqr" or "cgls"; Scaling is "colscale" or "none".
-	Method  string
+	// Scaling is "colscale" or "none" (also Result.Preconditioner).
 	Scaling string
-	Status  Status
 	// StoppedBy names the rule that was met when Status is Converged
 	// (RuleResidual or RuleNormalResidual), "" otherwise.
 	StoppedBy string
-	// Iterations counts iterations; each one applies A once and Aᵀ once.
-	// Products counts every product with A or with Aᵀ: two per iteration,
-	// plus the set-up (Aᵀ·r0, and A·x0 when X0 is given) and two for each
-	// true-state recomputation (checks before convergence is declared, and
-	// the final one that fills ResidualNorm and NormalResidualNorm).
-	Iterations int
-	Products   int
-	// ResidualNorm is ‖b − A·x‖₂ and NormalResidualNorm is ‖Aᵀ·r − λ²x‖₂
-	// (the gradient of the damped objective up to a factor −2, zero at the
-	// minimiser), both recomputed from the returned x at the end. XNorm is
-	// ‖x‖₂.
-	ResidualNorm       float64
+	// NormalResidualNorm is ‖Aᵀ·r − λ²x‖₂ (the gradient of the damped
+	// objective up to a factor −2, zero at the minimiser), recomputed from
+	// the returned x at the end. XNorm is ‖x‖₂.
 	NormalResidualNorm float64
 	XNorm              float64
 	// ANormEstimate is the Frobenius-norm estimate ‖B_k‖_F of the operator
 	// the iteration saw (Ā = [A·D; λD], with D the column scaling or I);
 	// CondEstimate estimates Ā's condition number ‖Ā‖_F·‖Ā⁺‖_F from the same
-	// recurrences (Paige and Saunders 1982, §5.1 and §5.3). In exact
-	// arithmetic both grow towards their targets from below; in floating
-	// point, once the bidiagonalization loses orthogonality, they can pass
-	// them. Zero when no iteration ran.
+	// recurrences (Paige and Saunders 1982, §5.1 and §5.3), and is copied to
+	// Result.Cond. In exact arithmetic both grow towards their targets from
+	// below; in floating point, once the bidiagonalization loses
+	// orthogonality, they can pass them. Zero when no iteration ran.
 	ANormEstimate, CondEstimate float64
-	// RHSNorm is ‖b‖₂; RelResidual is ResidualNorm/RHSNorm (or ResidualNorm
-	// when b = 0).
-	RHSNorm     float64
-	RelResidual float64
 	// ZeroColumns lists, 0-based and ascending, the columns of A that are
 	// zero (A is then rank deficient). They are known only when the operator
 	// implements ColumnNormer; nil otherwise or when there are none.
 	ZeroColumns []int
-	// Solve is the time spent in the solve, set-up included; PerIteration
-	// is Solve/Iterations.
-	Solve, PerIteration time.Duration
 	// Settings are the settings used, defaults filled in and Scaling and
 	// Method resolved (never ScaleAuto or LSQAuto).
 	Settings LSQSettings
@@ -143,7 +132,7 @@ type LSQResult struct {
 // LSQ panics if len(b) != m, len(x) != n, x and b are the same slice,
 // s.X0 != nil and len(s.X0) != n, s.Damp, s.ATol, s.BTol or s.MaxIter is
 // negative or NaN, or s.Method or s.Scaling is not one of the constants.
-func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (LSQResult, error) {
+func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (Result, error) {
 	start := time.Now()
 	m, n := a.Dims()
 	if len(b) != m {
@@ -163,10 +152,10 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 			s.Damp, s.ATol, s.BTol, s.MaxIter))
 	}
 	if s.ATol == 0 {
-		s.ATol = 1e-8
+		s.ATol = DefaultLSQTol
 	}
 	if s.BTol == 0 {
-		s.BTol = 1e-8
+		s.BTol = DefaultLSQTol
 	}
 	if s.MaxIter == 0 {
 		if s.Damp == 0 {
@@ -190,7 +179,7 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 		ctx: ctx, start: start, a: a, m: m, n: n, b: b, x: x, x0: s.X0,
 		damp: s.Damp, atol: s.ATol, btol: s.BTol, s: s,
 	}
-	res := LSQResult{}
+	res := Result{LSQ: &LSQResult{}}
 
 	// Column norms: asked of the operator whenever it can give them, so
 	// that zero columns are reported even without scaling.
@@ -200,28 +189,23 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 		d = make([]float64, n)
 		cn.ColumnNorms(d)
 		zero, bad := columnScale(d, s.Damp)
-		res.ZeroColumns = zero
+		res.LSQ.ZeroColumns = zero
 		if bad >= 0 {
-			res.Settings = p.s
+			res.LSQ.Settings = p.s
 			return p.fail(res, &BreakdownError{Quantity: fmt.Sprintf("‖A(:, %d)‖", bad), Value: d[bad], Err: ErrNotFinite})
 		}
 	}
-	switch s.Scaling {
-	case ScaleAuto:
-		if hasNorms && m >= n {
-			s.Scaling = ScaleColumns
-		} else {
-			s.Scaling = ScaleNone
+	if s.Scaling == ScaleAuto {
+		s.Scaling, _ = ChooseScaling(s.Scaling, m, n, hasNorms)
+	}
+	if s.Scaling == ScaleColumns && !hasNorms {
+		res.LSQ.Settings, res.Method = s, s.Method.String()
+		res.Preconditioner, res.LSQ.Scaling = s.Scaling.String(), s.Scaling.String()
+		res.Solve = time.Since(start)
+		if rec := s.Recorder; rec != nil {
+			rec.Finish(&res)
 		}
-	case ScaleColumns:
-		if !hasNorms {
-			res.Settings, res.Method, res.Scaling = s, s.Method.String(), s.Scaling.String()
-			res.Solve = time.Since(start)
-			if rec := s.Recorder; rec != nil {
-				rec.Finish(p.cgResult(res))
-			}
-			return res, ErrNoColumnNorms
-		}
+		return res, ErrNoColumnNorms
 	}
 	if s.Scaling == ScaleColumns {
 		p.d = d
@@ -234,9 +218,10 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (L
 		}
 	}
 	p.s = s
-	res.Settings = s
+	res.LSQ.Settings = s
 	res.Method = s.Method.String()
-	res.Scaling = s.Scaling.String()
+	res.Preconditioner = s.Scaling.String()
+	res.LSQ.Scaling = s.Scaling.String()
 
 	if s.Method == CGLS {
 		return p.cgls(res)
@@ -434,14 +419,16 @@ func (p *lsqProblem) verify(it int, anorm float64, floor bool, tm, tn []float64)
 
 // finish fills the result's figures from the true state of x, times the
 // solve and tells the recorder.
-func (p *lsqProblem) finish(res LSQResult, t trueState, it int, anorm, cond float64) LSQResult {
+func (p *lsqProblem) finish(res Result, t trueState, it int, anorm, cond float64) Result {
 	res.Iterations = it
 	res.Products = p.products
 	res.ResidualNorm = t.rnorm
-	res.NormalResidualNorm = t.gnorm
-	res.XNorm = t.xnorm
-	res.ANormEstimate = anorm
-	res.CondEstimate = cond
+	res.TrueResidualNorm = t.rnorm
+	res.LSQ.NormalResidualNorm = t.gnorm
+	res.LSQ.XNorm = t.xnorm
+	res.LSQ.ANormEstimate = anorm
+	res.LSQ.CondEstimate = cond
+	res.Cond = cond
 	res.RHSNorm = p.bnorm
 	res.RelResidual = t.rnorm
 	if p.bnorm > 0 {
@@ -452,34 +439,14 @@ func (p *lsqProblem) finish(res LSQResult, t trueState, it int, anorm, cond floa
 		res.PerIteration = res.Solve / time.Duration(it)
 	}
 	if rec := p.s.Recorder; rec != nil {
-		rec.Finish(p.cgResult(res))
+		rec.Finish(&res)
 	}
 	return res
 }
 
-// cgResult maps a least-squares result onto the Result that
-// Recorder.Finish takes. The fields with the same meaning are copied:
-// TrueResidualNorm and ResidualNorm both get ‖b − A·x‖, Preconditioner the
-// scaling, Products counts the products with Aᵀ too, and Settings gets
-// BTol as RelTol. LambdaMin, LambdaMax and Cond, which mean eigenvalues of
-// the (preconditioned) matrix there, stay zero: the least-squares condition
-// estimate is of Ā and lives in LSQResult.
-func (p *lsqProblem) cgResult(r LSQResult) *Result {
-	return &Result{
-		Method: r.Method, Preconditioner: r.Scaling, Status: r.Status,
-		Iterations: r.Iterations, Products: r.Products, ResidualNorm: r.ResidualNorm, TrueResidualNorm: r.ResidualNorm,
-		RHSNorm: r.RHSNorm, RelResidual: r.RelResidual,
-		Solve: r.Solve, PerIteration: r.PerIteration,
-		Settings: Settings{
-			RelTol: r.Settings.BTol, MaxIter: r.Settings.MaxIter, TimeLimit: r.Settings.TimeLimit,
-			X0: r.Settings.X0, Recorder: r.Settings.Recorder,
-		},
-	}
-}
-
 // fail ends a solve before any iteration with a breakdown in the set-up.
 // x is set to x0.
-func (p *lsqProblem) fail(res LSQResult, err error) (LSQResult, error) {
+func (p *lsqProblem) fail(res Result, err error) (Result, error) {
 	if p.x0 != nil {
 		copy(p.x, p.x0)
 	} else {
@@ -487,10 +454,11 @@ func (p *lsqProblem) fail(res LSQResult, err error) (LSQResult, error) {
 	}
 	res.Status = Breakdown
 	res.Method = p.s.Method.String()
-	res.Scaling = p.s.Scaling.String()
+	res.Preconditioner = p.s.Scaling.String()
+	res.LSQ.Scaling = p.s.Scaling.String()
 	res.Solve = time.Since(p.start)
 	if rec := p.s.Recorder; rec != nil {
-		rec.Finish(p.cgResult(res))
+		rec.Finish(&res)
 	}
 	return res, err
 }

@@ -23,7 +23,7 @@ import "math"
 // (Saad, Iterative Methods for Sparse Linear Systems, 2nd ed., §6.7.3), so
 // ‖B_k‖_F² = trace(T_k) is the sum of those diagonals; and the directions
 // are ĀᵀĀ-conjugate, so ‖Ā⁺‖_F² is estimated by Σ ‖p_k‖²/‖Ā·p_k‖².
-func (p *lsqProblem) cgls(res LSQResult) (LSQResult, error) {
+func (p *lsqProblem) cgls(res Result) (Result, error) {
 	m, n := p.m, p.n
 	b, x, d := p.b, p.x, p.d
 	lam := p.damp

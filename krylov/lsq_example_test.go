@@ -39,7 +39,7 @@ func ExampleLSQ() {
 	if err != nil {
 		panic(err)
 	}
-	fmt.Printf("%s (%s) after %d iterations\n", res.Status, res.StoppedBy, res.Iterations)
+	fmt.Printf("%s (%s) after %d iterations\n", res.Status, res.LSQ.StoppedBy, res.Iterations)
 	fmt.Printf("offset %.4f mV, sensitivity %.4f mV/kN\n", c[0], c[1])
 	fmt.Printf("residual %.4f mV\n", res.ResidualNorm)
 	// Output:

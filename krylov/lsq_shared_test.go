@@ -193,7 +193,7 @@ func TestLSQShared(t *testing.T) {
 								t.Fatal(err)
 							}
 							t.Logf("%v by %s after %d iterations, ‖r‖ %.10g, ‖g‖ %.3g, ‖Ā‖ est. %.4g, cond est. %.4g",
-								res.Status, res.StoppedBy, res.Iterations, res.ResidualNorm, res.NormalResidualNorm, res.ANormEstimate, res.CondEstimate)
+								res.Status, res.LSQ.StoppedBy, res.Iterations, res.ResidualNorm, res.LSQ.NormalResidualNorm, res.LSQ.ANormEstimate, res.LSQ.CondEstimate)
 							checkResult(t, res, a, b, x, lam)
 							checkRule(t, res, csr, b, x, lam)
 							dq, bq := checkAgainst(t, a, b, x, xQR, lam, smin, smax)
@@ -203,12 +203,12 @@ func TestLSQShared(t *testing.T) {
 							}
 							dn, bn := checkAgainst(t, a, b, x, xNP, lam, smin, smax)
 							t.Logf("‖x − x_NumPy‖ = %.3g (bound %.3g), ‖x‖ %.16g vs %.16g, ‖r‖ %.16g vs %.16g",
-								dn, bn, res.XNorm, ref.normX, res.ResidualNorm, ref.normR)
+								dn, bn, res.LSQ.XNorm, ref.normX, res.ResidualNorm, ref.normR)
 							g, _ := gradient(a, b, x, lam)
 							s2 := smin*smin + lam*lam
 							bound := floats.Norm(g, 2)/s2 + 1e3*0x1p-53*math.Pow(smax/smin, 2)*ref.normX
-							if d := math.Abs(res.XNorm - ref.normX); d > bound {
-								t.Errorf("‖x‖ = %.16g, NumPy %.16g: differ by %.3g > %.3g", res.XNorm, ref.normX, d, bound)
+							if d := math.Abs(res.LSQ.XNorm - ref.normX); d > bound {
+								t.Errorf("‖x‖ = %.16g, NumPy %.16g: differ by %.3g > %.3g", res.LSQ.XNorm, ref.normX, d, bound)
 							}
 							if d := math.Abs(res.ResidualNorm - ref.normR); d > smax*bound {
 								t.Errorf("‖r‖ = %.16g, NumPy %.16g: differ by %.3g > %.3g", res.ResidualNorm, ref.normR, d, smax*bound)
@@ -224,11 +224,11 @@ func TestLSQShared(t *testing.T) {
 // checkRule recomputes the stopping rule that the result says was met, on
 // the scaled, augmented problem (see lsqProblem.passes), with column norms
 // computed here.
-func checkRule(t *testing.T, res LSQResult, a *sparse.CSR, b, x []float64, lam float64) {
+func checkRule(t *testing.T, res Result, a *sparse.CSR, b, x []float64, lam float64) {
 	t.Helper()
 	m, n := a.Dims()
 	d := make([]float64, n)
-	if res.Scaling == "colscale" {
+	if res.LSQ.Scaling == "colscale" {
 		a.ColumnNorms(d)
 		for j, c := range d {
 			d[j] = 1 / math.Sqrt(c*c+lam*lam)
@@ -256,17 +256,17 @@ func checkRule(t *testing.T, res LSQResult, a *sparse.CSR, b, x []float64, lam f
 		z += zj * zj
 	}
 	rbar := math.Hypot(floats.Norm(r, 2), lam*floats.Norm(x, 2))
-	switch res.StoppedBy {
+	switch res.LSQ.StoppedBy {
 	case RuleResidual:
-		if lim := res.Settings.BTol*floats.Norm(b, 2) + res.Settings.ATol*res.ANormEstimate*math.Sqrt(z); rbar > lim*(1+1e-10) {
+		if lim := res.LSQ.Settings.BTol*floats.Norm(b, 2) + res.LSQ.Settings.ATol*res.LSQ.ANormEstimate*math.Sqrt(z); rbar > lim*(1+1e-10) {
 			t.Errorf("residual rule: ‖r̄‖ = %.6g > %.6g", rbar, lim)
 		}
 	case RuleNormalResidual:
-		if lim := res.Settings.ATol * res.ANormEstimate * rbar; math.Sqrt(dg) > lim*(1+1e-10) {
+		if lim := res.LSQ.Settings.ATol * res.LSQ.ANormEstimate * rbar; math.Sqrt(dg) > lim*(1+1e-10) {
 			t.Errorf("normal-residual rule: ‖Āᵀr̄‖ = %.6g > %.6g", math.Sqrt(dg), lim)
 		}
 	default:
-		t.Errorf("StoppedBy %q", res.StoppedBy)
+		t.Errorf("StoppedBy %q", res.LSQ.StoppedBy)
 	}
 }
 
@@ -319,23 +319,23 @@ func TestLSQChem97Zt(t *testing.T) {
 					t.Fatal(err)
 				}
 				t.Logf("%v by %s after %d iterations, ‖x‖ %.12g (NumPy %.12g), ‖r‖ %.3g, ‖g‖ %.3g",
-					res.Status, res.StoppedBy, res.Iterations, res.XNorm, ref.normX, res.ResidualNorm, res.NormalResidualNorm)
-				if res.Status != Converged || res.Scaling != "none" {
-					t.Fatalf("%v with %s", res.Status, res.Scaling)
+					res.Status, res.LSQ.StoppedBy, res.Iterations, res.LSQ.XNorm, ref.normX, res.ResidualNorm, res.LSQ.NormalResidualNorm)
+				if res.Status != Converged || res.LSQ.Scaling != "none" {
+					t.Fatalf("%v with %s", res.Status, res.LSQ.Scaling)
 				}
 				checkRule(t, res, zt, b, x, lam)
 				diff := floats.Distance(x, xNP, 2)
 				var bound float64
 				if lam == 0 {
-					bound = res.NormalResidualNorm/(sr*sr) + 1e3*0x1p-53*ref.cond*ref.normX
+					bound = res.LSQ.NormalResidualNorm/(sr*sr) + 1e3*0x1p-53*ref.cond*ref.normX
 				} else {
-					bound = res.NormalResidualNorm/(lam*lam) + 1e3*0x1p-53*ref.cond*ref.cond*ref.normX
+					bound = res.LSQ.NormalResidualNorm/(lam*lam) + 1e3*0x1p-53*ref.cond*ref.cond*ref.normX
 				}
 				if diff > bound {
 					t.Errorf("‖x − x_NumPy‖ = %.3g > %.3g", diff, bound)
 				}
-				if d := math.Abs(res.XNorm - ref.normX); d > bound {
-					t.Errorf("‖x‖ %.16g, NumPy %.16g", res.XNorm, ref.normX)
+				if d := math.Abs(res.LSQ.XNorm - ref.normX); d > bound {
+					t.Errorf("‖x‖ %.16g, NumPy %.16g", res.LSQ.XNorm, ref.normX)
 				}
 				if d := math.Abs(res.ResidualNorm - ref.normR); d > smax*bound {
 					t.Errorf("‖r‖ %.16g, NumPy %.16g", res.ResidualNorm, ref.normR)
@@ -371,13 +371,13 @@ func TestLSQChem97Zt(t *testing.T) {
 					if err != nil {
 						t.Fatal(err)
 					}
-					t.Logf("%v/%v: %v by %s after %d iterations, ‖r‖ %.12g, ‖g‖ %.3g", meth, sc, res.Status, res.StoppedBy, res.Iterations, res.ResidualNorm, res.NormalResidualNorm)
+					t.Logf("%v/%v: %v by %s after %d iterations, ‖r‖ %.12g, ‖g‖ %.3g", meth, sc, res.Status, res.LSQ.StoppedBy, res.Iterations, res.ResidualNorm, res.LSQ.NormalResidualNorm)
 					if res.Status != Converged {
 						t.Fatalf("%v/%v: %v", meth, sc, res.Status)
 					}
 					checkRule(t, res, a, c.b, x, 0)
 					norms = append(norms, res.ResidualNorm)
-					bounds = append(bounds, res.NormalResidualNorm/sr)
+					bounds = append(bounds, res.LSQ.NormalResidualNorm/sr)
 				}
 			}
 			for i := range norms {

@@ -183,10 +183,10 @@ func checkAgainst(t *testing.T, a *mat.Dense, b, x, xRef []float64, lam, sigmaMi
 
 // checkResult checks the figures a converged result reports against the
 // same figures recomputed densely from x.
-func checkResult(t *testing.T, res LSQResult, a *mat.Dense, b, x []float64, lam float64) {
+func checkResult(t *testing.T, res Result, a *mat.Dense, b, x []float64, lam float64) {
 	t.Helper()
 	if res.Status != Converged {
-		t.Fatalf("status %v after %d iterations, want converged (‖r‖ %.3g, ‖g‖ %.3g)", res.Status, res.Iterations, res.ResidualNorm, res.NormalResidualNorm)
+		t.Fatalf("status %v after %d iterations, want converged (‖r‖ %.3g, ‖g‖ %.3g)", res.Status, res.Iterations, res.ResidualNorm, res.LSQ.NormalResidualNorm)
 	}
 	g, r := gradient(a, b, x, lam)
 	// The result's norms are recomputed from x by LSQ with the same
@@ -198,8 +198,8 @@ func checkResult(t *testing.T, res LSQResult, a *mat.Dense, b, x []float64, lam 
 		scale     float64
 	}{
 		{"ResidualNorm", res.ResidualNorm, floats.Norm(r, 2), floats.Norm(b, 2)},
-		{"NormalResidualNorm", res.NormalResidualNorm, floats.Norm(g, 2), mat.Norm(a, 2) * floats.Norm(b, 2)},
-		{"XNorm", res.XNorm, floats.Norm(x, 2), floats.Norm(x, 2)},
+		{"NormalResidualNorm", res.LSQ.NormalResidualNorm, floats.Norm(g, 2), mat.Norm(a, 2) * floats.Norm(b, 2)},
+		{"XNorm", res.LSQ.XNorm, floats.Norm(x, 2), floats.Norm(x, 2)},
 		{"RHSNorm", res.RHSNorm, floats.Norm(b, 2), floats.Norm(b, 2)},
 	} {
 		if math.Abs(c.got-c.want) > 1e-12*c.scale {
@@ -212,16 +212,16 @@ func checkResult(t *testing.T, res LSQResult, a *mat.Dense, b, x []float64, lam 
 	// σ_max(Ā); half of it is the allowance (common practice). It is no
 	// upper bound in floating point: once orthogonality is lost, singular
 	// values repeat in B_k and ‖B_k‖_F can pass ‖Ā‖_F.
-	if res.Scaling == "none" && res.Iterations >= 5 {
+	if res.LSQ.Scaling == "none" && res.Iterations >= 5 {
 		var svd mat.SVD
 		svd.Factorize(a, mat.SVDNone)
 		smax := math.Hypot(svd.Values(nil)[0], lam)
-		if res.ANormEstimate < 0.5*smax {
-			t.Errorf("ANormEstimate %.6g < σ_max(Ā)/2 = %.6g", res.ANormEstimate, smax/2)
+		if res.LSQ.ANormEstimate < 0.5*smax {
+			t.Errorf("ANormEstimate %.6g < σ_max(Ā)/2 = %.6g", res.LSQ.ANormEstimate, smax/2)
 		}
 	}
-	if res.StoppedBy != RuleResidual && res.StoppedBy != RuleNormalResidual {
-		t.Errorf("StoppedBy %q", res.StoppedBy)
+	if res.LSQ.StoppedBy != RuleResidual && res.LSQ.StoppedBy != RuleNormalResidual {
+		t.Errorf("StoppedBy %q", res.LSQ.StoppedBy)
 	}
 }
 
@@ -277,7 +277,7 @@ func TestLSQRandom(t *testing.T) {
 						t.Fatal(err)
 					}
 					t.Logf("%s, %s: %v by %s after %d iterations, ‖r‖ %.6g, ‖g‖ %.3g, cond est. %.3g",
-						res.Method, res.Scaling, res.Status, res.StoppedBy, res.Iterations, res.ResidualNorm, res.NormalResidualNorm, res.CondEstimate)
+						res.Method, res.LSQ.Scaling, res.Status, res.LSQ.StoppedBy, res.Iterations, res.ResidualNorm, res.LSQ.NormalResidualNorm, res.LSQ.CondEstimate)
 					checkResult(t, res, a, b, x, c.lam)
 					if c.m < c.n && c.lam == 0 {
 						checkMinNorm(t, a, b, x, info)
@@ -350,8 +350,8 @@ func TestLSQConsistent(t *testing.T) {
 					t.Fatal(err)
 				}
 				checkResult(t, res, a, b, x, 0)
-				if res.StoppedBy != RuleResidual {
-					t.Errorf("stopped by %q, want %q", res.StoppedBy, RuleResidual)
+				if res.LSQ.StoppedBy != RuleResidual {
+					t.Errorf("stopped by %q, want %q", res.LSQ.StoppedBy, RuleResidual)
 				}
 				if d, bound := floats.Distance(x, xs, 2), res.ResidualNorm/info.sv[len(info.sv)-1]; d > bound {
 					t.Errorf("‖x − x*‖ = %.3g > ‖r‖/σ_min = %.3g", d, bound)
@@ -388,8 +388,8 @@ func TestLSQZeroColumn(t *testing.T) {
 				if err != nil {
 					t.Fatal(err)
 				}
-				if res.Scaling != "colscale" || !slices.Equal(res.ZeroColumns, zero) {
-					t.Fatalf("scaling %q, zero columns %v; want colscale, %v", res.Scaling, res.ZeroColumns, zero)
+				if res.LSQ.Scaling != "colscale" || !slices.Equal(res.LSQ.ZeroColumns, zero) {
+					t.Fatalf("scaling %q, zero columns %v; want colscale, %v", res.LSQ.Scaling, res.LSQ.ZeroColumns, zero)
 				}
 				checkResult(t, res, a, b, x, 0)
 				if x[5] != 0 || x[9] != 0 {
@@ -438,11 +438,11 @@ func TestLSQZeroRHS(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			if res.Status != Converged || res.Iterations != 0 || res.StoppedBy != RuleResidual {
-				t.Errorf("%v, λ=%g: %v by %q after %d iterations; want converged by residual at 0", meth, lam, res.Status, res.StoppedBy, res.Iterations)
+			if res.Status != Converged || res.Iterations != 0 || res.LSQ.StoppedBy != RuleResidual {
+				t.Errorf("%v, λ=%g: %v by %q after %d iterations; want converged by residual at 0", meth, lam, res.Status, res.LSQ.StoppedBy, res.Iterations)
 			}
-			if floats.Norm(x, 2) != 0 || res.ResidualNorm != 0 || res.NormalResidualNorm != 0 || res.RelResidual != 0 {
-				t.Errorf("%v, λ=%g: x = %v, ‖r‖ %g, ‖g‖ %g, rel %g; want all zero", meth, lam, x, res.ResidualNorm, res.NormalResidualNorm, res.RelResidual)
+			if floats.Norm(x, 2) != 0 || res.ResidualNorm != 0 || res.LSQ.NormalResidualNorm != 0 || res.RelResidual != 0 {
+				t.Errorf("%v, λ=%g: x = %v, ‖r‖ %g, ‖g‖ %g, rel %g; want all zero", meth, lam, x, res.ResidualNorm, res.LSQ.NormalResidualNorm, res.RelResidual)
 			}
 			if len(rec.rows) != 1 || rec.rows[0].Iteration != 0 || len(rec.finished) != 1 {
 				t.Errorf("%v: recorder got %d rows and %d finishes, want 1 and 1", meth, len(rec.rows), len(rec.finished))
@@ -461,8 +461,8 @@ func TestLSQStops(t *testing.T) {
 		t.Run(meth.String()+"/cap", func(t *testing.T) {
 			x := make([]float64, 25)
 			res, err := LSQ(context.Background(), denseOp{a}, b, x, LSQSettings{Method: meth, MaxIter: 3})
-			if err != nil || res.Status != IterationLimit || res.Iterations != 3 || res.StoppedBy != "" {
-				t.Errorf("got %v by %q after %d, err %v; want iteration-limit after 3, nil", res.Status, res.StoppedBy, res.Iterations, err)
+			if err != nil || res.Status != IterationLimit || res.Iterations != 3 || res.LSQ.StoppedBy != "" {
+				t.Errorf("got %v by %q after %d, err %v; want iteration-limit after 3, nil", res.Status, res.LSQ.StoppedBy, res.Iterations, err)
 			}
 			g, r := gradient(a, b, x, 0)
 			if res.ResidualNorm != floats.Norm(r, 2) && math.Abs(res.ResidualNorm-floats.Norm(r, 2)) > 1e-12*floats.Norm(b, 2) {
@@ -565,9 +565,9 @@ func TestLSQHistory(t *testing.T) {
 					}
 					last := rec.rows[k]
 					if math.Abs(last.ResidualNorm-res.ResidualNorm) > 1e-9*res.ResidualNorm ||
-						math.Abs(last.NormalResidualNorm-res.NormalResidualNorm) > 1e-9*res.NormalResidualNorm {
+						math.Abs(last.NormalResidualNorm-res.LSQ.NormalResidualNorm) > 1e-9*res.LSQ.NormalResidualNorm {
 						t.Errorf("k=%d: estimates ‖r‖ %.12g, ‖g‖ %.12g; true %.12g, %.12g", k,
-							last.ResidualNorm, last.NormalResidualNorm, res.ResidualNorm, res.NormalResidualNorm)
+							last.ResidualNorm, last.NormalResidualNorm, res.ResidualNorm, res.LSQ.NormalResidualNorm)
 					}
 					if rel := last.ResidualNorm / floats.Norm(b, 2); last.RelResidual != rel {
 						t.Errorf("RelResidual %g, want %g", last.RelResidual, rel)
@@ -654,12 +654,12 @@ func TestLSQSettingsEcho(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			if got := res.Settings; got.Damp != c.want.Damp || got.ATol != c.want.ATol || got.BTol != c.want.BTol ||
+			if got := res.LSQ.Settings; got.Damp != c.want.Damp || got.ATol != c.want.ATol || got.BTol != c.want.BTol ||
 				got.MaxIter != c.want.MaxIter || got.Scaling != c.want.Scaling || got.Method != c.want.Method {
-				t.Errorf("settings %+v, want %+v", res.Settings, c.want)
+				t.Errorf("settings %+v, want %+v", res.LSQ.Settings, c.want)
 			}
-			if res.Scaling != c.scaling || res.Method != c.want.Method.String() {
-				t.Errorf("result names %q, %q", res.Method, res.Scaling)
+			if res.LSQ.Scaling != c.scaling || res.Method != c.want.Method.String() {
+				t.Errorf("result names %q, %q", res.Method, res.LSQ.Scaling)
 			}
 		})
 	}
@@ -804,10 +804,10 @@ func TestLSQStagnation(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		t.Logf("%v: %v after %d of %d iterations, ‖g‖ %.3g, cond est. %.3g", meth, res.Status, res.Iterations, res.Settings.MaxIter, res.NormalResidualNorm, res.CondEstimate)
+		t.Logf("%v: %v after %d of %d iterations, ‖g‖ %.3g, cond est. %.3g", meth, res.Status, res.Iterations, res.Settings.MaxIter, res.LSQ.NormalResidualNorm, res.LSQ.CondEstimate)
 		want := map[LSQMethod]Status{LSQR: Stagnated, CGLS: IterationLimit}[meth]
-		if res.Status != want || res.StoppedBy != "" {
-			t.Errorf("%v: %v by %q, want %v", meth, res.Status, res.StoppedBy, want)
+		if res.Status != want || res.LSQ.StoppedBy != "" {
+			t.Errorf("%v: %v by %q, want %v", meth, res.Status, res.LSQ.StoppedBy, want)
 		}
 	}
 }

@@ -18,7 +18,7 @@ import "math"
 // normalisation where the vectors are next read. One iteration is one
 // product with A, one with Aᵀ, one pass over the m-vectors and two over the
 // n-vectors, and it allocates nothing.
-func (p *lsqProblem) lsqr(res LSQResult) (LSQResult, error) {
+func (p *lsqProblem) lsqr(res Result) (Result, error) {
 	m, n := p.m, p.n
 	b, x, d := p.b, p.x, p.d
 	lam := p.damp
@@ -251,7 +251,7 @@ func writeX(x, d, z []float64) {
 
 // endAtStart ends a solve at iteration 0 because x0 is already a solution;
 // the true check decides the status.
-func (p *lsqProblem) endAtStart(res LSQResult, tm, tn []float64) (LSQResult, error) {
+func (p *lsqProblem) endAtStart(res Result, tm, tn []float64) (Result, error) {
 	t := p.recompute(tm, tn)
 	st, rule := Stagnated, ""
 	if t.finite {
@@ -266,19 +266,19 @@ func (p *lsqProblem) endAtStart(res LSQResult, tm, tn []float64) (LSQResult, err
 }
 
 // end recomputes the true state of x (already written) and ends the solve.
-func (p *lsqProblem) end(res LSQResult, st Status, err error, it int, anorm, cond float64, tm, tn []float64) (LSQResult, error) {
+func (p *lsqProblem) end(res Result, st Status, err error, it int, anorm, cond float64, tm, tn []float64) (Result, error) {
 	return p.endWith(res, st, err, it, anorm, cond, p.recompute(tm, tn), "")
 }
 
 // endWith ends the solve with a known true state.
-func (p *lsqProblem) endWith(res LSQResult, st Status, err error, it int, anorm, cond float64, t trueState, rule string) (LSQResult, error) {
+func (p *lsqProblem) endWith(res Result, st Status, err error, it int, anorm, cond float64, t trueState, rule string) (Result, error) {
 	res.Status = st
-	res.StoppedBy = rule
+	res.LSQ.StoppedBy = rule
 	return p.finish(res, t, it, anorm, cond), err
 }
 
 // breakdown ends the solve because a NaN or Inf appeared in quantity q.
-func (p *lsqProblem) breakdown(res LSQResult, it int, q string, v float64, tm, tn []float64, anorm, cond float64) (LSQResult, error) {
+func (p *lsqProblem) breakdown(res Result, it int, q string, v float64, tm, tn []float64, anorm, cond float64) (Result, error) {
 	err := &BreakdownError{Iteration: it, Quantity: q, Value: v, Err: ErrNotFinite}
 	return p.end(res, Breakdown, err, it, anorm, cond, tm, tn)
 }

@@ -126,9 +126,10 @@ type Progress struct {
 	NormalResidualNorm float64
 }
 
-// Recorder receives a solve's progress. Record is called at iteration 0 with
-// the initial residual and after every iteration; Finish once at the end with
-// the final result. An error from Record stops the solve with status
+// Recorder receives a solve's progress, whatever the method. Record is
+// called at iteration 0 with the initial residual and after every
+// iteration; Finish once at the end with the final result (whose LSQ part
+// is set for a least-squares solve). An error from Record stops the solve with status
 // Cancelled and that error returned.
 type Recorder interface {
 	Record(p Progress) error
@@ -166,24 +167,32 @@ type Settings struct {
 	Recorder Recorder `json:"-"`
 }
 
-// Result describes a finished solve.
+// Result describes a finished solve, by any method: conjugate gradients
+// and least squares report in the same shape, so that one Recorder, one
+// summary and one wire message serve them all. The fields that only a
+// least-squares solve has are in LSQ, which is nil for CG.
 type Result struct {
-	// Method names the method ("cg", also when preconditioned).
-	// Preconditioner names the preconditioner ("none", "jacobi", "ic0",
-	// ...): a method only sees the Preconditioner interface, so it sets
-	// "none" when there is none and leaves the field empty otherwise, for
-	// the caller, who chose it, to fill in.
+	// Method names the method: "cg" (also when preconditioned), "lsqr" or
+	// "cgls". Preconditioner names the preconditioner ("none", "jacobi",
+	// "ic0", ...) or, for least squares, the column scaling ("colscale" or
+	// "none", which acts as a right preconditioner): CG only sees the
+	// Preconditioner interface, so it sets "none" when there is none and
+	// leaves the field empty otherwise, for the caller, who chose it, to
+	// fill in.
 	Method         string
 	Preconditioner string
 	Status         Status
-	// Iterations counts products with A inside the loop.
+	// Iterations counts products with A inside the loop (least squares:
+	// iterations, each applying A once and Aᵀ once).
 	Iterations int
-	// Products counts every product with A: Iterations, plus the initial
+	// Products counts every product with A (and, for least squares, with
+	// Aᵀ): Iterations (twice them for least squares), plus the initial
 	// residual's product (when a start X0 is given), plus each true-residual
 	// recomputation (periodic refreshes, checks before convergence is
 	// declared, and the final check that fills TrueResidualNorm).
 	Products int
-	// ResidualNorm is the method's recursive ‖r‖₂ at the end;
+	// ResidualNorm is the method's recursive ‖r‖₂ at the end (least
+	// squares: the true one, which it recomputes at the end);
 	// TrueResidualNorm is ‖b − A·x‖₂ recomputed from the returned x.
 	ResidualNorm     float64
 	TrueResidualNorm float64
@@ -196,13 +205,19 @@ type Result struct {
 	// a preconditioner) from the Lanczos tridiagonal built from CG's
 	// coefficients. They are estimates: λmax and λmin are approached from
 	// inside, so Cond is a lower bound. Zero when fewer than two iterations
-	// ran. Methods that do not estimate them leave them zero.
+	// ran. For least squares LambdaMin and LambdaMax stay zero and Cond is
+	// LSQR's estimate of the condition number of the scaled, augmented
+	// operator (see LSQResult.CondEstimate).
 	LambdaMin, LambdaMax, Cond float64
 	// Setup is the preconditioner set-up time: the methods cannot know it
 	// and leave it zero for the caller to fill in. Solve is the wall time
 	// of the whole solve call (initial residual, iterations and final
 	// check); PerIteration is Solve/Iterations (zero without iterations).
 	Setup, Solve, PerIteration time.Duration
-	// Settings are the settings used, defaults filled in.
+	// Settings are the settings used, defaults filled in, for CG. A
+	// least-squares solve leaves them zero: its settings are in
+	// LSQ.Settings.
 	Settings Settings
+	// LSQ holds what only a least-squares solve reports; nil for CG.
+	LSQ *LSQResult
 }

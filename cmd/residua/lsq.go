@@ -129,12 +129,13 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 	x := make([]float64, p.a.Cols)
 	res, solveErr := krylov.LSQ(ctx, p.a, p.b, x, s)
 
+	l := res.LSQ
 	rep.Method = res.Method
-	rep.Preconditioner = res.Scaling
+	rep.Preconditioner = l.Scaling
 	switch {
 	case s.Scaling != krylov.ScaleAuto:
-		rep.PreconditionerReason = res.Scaling + ": as requested"
-	case res.Scaling == krylov.ScaleColumns.String():
+		rep.PreconditionerReason = l.Scaling + ": as requested"
+	case l.Scaling == krylov.ScaleColumns.String():
 		rep.PreconditionerReason = fmt.Sprintf("colscale: auto: %d rows ≥ %d columns", p.a.Rows, p.a.Cols)
 	default:
 		rep.PreconditionerReason = fmt.Sprintf("none: auto: %d rows < %d columns, where scaling would change the minimum-norm solution", p.a.Rows, p.a.Cols)
@@ -146,17 +147,17 @@ func solveLSQ(ctx context.Context, e *env, p *problem, s krylov.LSQSettings, o *
 	rep.TrueResidualNorm = num(res.ResidualNorm)
 	rep.RHSNorm = num(res.RHSNorm)
 	rep.ResidualNorm = numPtr(res.ResidualNorm)
-	rep.NormalResidualNorm = numPtr(res.NormalResidualNorm)
-	rep.NormEstimate = numPtr(res.ANormEstimate)
-	rep.CondEstimate = num(res.CondEstimate)
-	rep.StoppedBy = res.StoppedBy
-	rep.ZeroColumns = res.ZeroColumns
+	rep.NormalResidualNorm = numPtr(l.NormalResidualNorm)
+	rep.NormEstimate = numPtr(l.ANormEstimate)
+	rep.CondEstimate = num(l.CondEstimate)
+	rep.StoppedBy = l.StoppedBy
+	rep.ZeroColumns = l.ZeroColumns
 	rep.SolveSeconds = seconds(res.Solve)
 	rep.SecondsPerIteration = seconds(res.PerIteration)
-	rep.AbsTol = num(res.Settings.ATol)
-	rep.BTol = numPtr(res.Settings.BTol)
-	rep.Damp = numPtr(res.Settings.Damp)
-	rep.MaxIter, rep.TimeLimitSeconds = res.Settings.MaxIter, seconds(res.Settings.TimeLimit)
+	rep.AbsTol = num(l.Settings.ATol)
+	rep.BTol = numPtr(l.Settings.BTol)
+	rep.Damp = numPtr(l.Settings.Damp)
+	rep.MaxIter, rep.TimeLimitSeconds = l.Settings.MaxIter, seconds(l.Settings.TimeLimit)
 	if ones {
 		rep.ErrorVsOnes = numPtr(maxErrorVsOnes(x))
 	}
