@@ -17,11 +17,21 @@ import (
 // The fields are exported so that kernels in other packages (preconditioners,
 // readers) can walk the arrays without copies. Code that changes them must
 // keep the invariants above; Validate checks them.
+//
+// A CSR also carries what its products have learnt about its arrays: that
+// they passed Validate, and the transpose MulVecTrans builds (see "Trusted
+// arrays" in the package documentation). That memo belongs to the matrix
+// value and goes when it is collected; TransposeBytes reports the memory it
+// holds and ForgetTranspose lets it go. A CSR copied by value shares the
+// memo, which stays correct because it is keyed by the identity of the
+// arrays it describes.
 type CSR struct {
 	Rows, Cols int
 	RowPtr     []int
 	ColIdx     []int32
 	Val        []float64
+
+	memo *memo // set on first use under memoMu; see mulvec.go
 }
 
 // MaxDim is the largest row or column count a CSR can hold.

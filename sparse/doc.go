@@ -35,8 +35,8 @@
 //
 // The products (MulVec, MulVecDot, Residual, MulVecTrans) check a matrix's
 // arrays with Validate the first time they see them, remember the result
-// (keyed by the matrix, held weakly, and by the identity and lengths of its
-// arrays), and from then on read the arrays without bounds checks, which
+// on the matrix itself, keyed by the identity and lengths of its arrays),
+// and from then on read the arrays without bounds checks, which
 // makes the kernel about a quarter faster from memory and half again in
 // cache. Giving a matrix new arrays is fine (they are checked again);
 // changing RowPtr or ColIdx in place after a product is not allowed, unless

@@ -112,9 +112,12 @@ func TestTransposeCache(t *testing.T) {
 	g.Val = randVec(g.NNZ(), 3)
 	g.MulVecTrans(y, x)
 	sameBits(t, "after new Val", y, refMulVecTrans(g, x))
+	if got, want := g.TransposeBytes(), g.cachedTranspose().Bytes(); got != want {
+		t.Fatalf("TransposeBytes = %d, want the transpose's %d", got, want)
+	}
 	g.ForgetTranspose()
-	if _, ok := matCache.Load(weakKey(g)); ok {
-		t.Fatal("ForgetTranspose left the entry")
+	if g.TransposeBytes() != 0 || g.memo.transOf != (arrays{}) || g.memo.trusted != (arrays{}) {
+		t.Fatal("ForgetTranspose left the transpose or the trust behind")
 	}
 
 	s := randBanded(50, 2, 4)
@@ -125,7 +128,7 @@ func TestTransposeCache(t *testing.T) {
 		}
 	}
 	sym.trust("test")
-	if sym.cachedTranspose() != nil {
+	if sym.cachedTranspose() != nil || sym.TransposeBytes() != 0 {
 		t.Fatal("exactly symmetric matrix not used as its own transpose")
 	}
 }

@@ -3,10 +3,8 @@ package sparse
 import (
 	"fmt"
 	"math"
-	"runtime"
 	"strings"
 	"sync"
-	"weak"
 )
 
 func (a *CSR) checkMul(op string, dst, x []float64, dstLen, xLen int) {
@@ -98,38 +96,33 @@ func (a *CSR) arrays() arrays {
 	return arrays{a.Rows, a.Cols, len(a.Val), first(a.RowPtr), first(a.ColIdx), first(a.Val)}
 }
 
-// matEntry is what the package remembers about a matrix. Entries are never
-// changed once stored; an update stores a new one.
-type matEntry struct {
-	arrays
-	trusted    bool // the arrays passed Validate
-	transBuilt bool // trans is valid (nil: the matrix is its own transpose)
-	trans      *CSR
+// memo is what the products remember about a matrix's arrays, held by the
+// matrix itself (CSR.memo). Each fact is keyed by the arrays it was learnt
+// from, so a matrix given new arrays is checked again and gets a new
+// transpose.
+type memo struct {
+	mu         sync.Mutex // guards the fields below
+	trusted    arrays     // the arrays that passed Validate (zero: none yet)
+	transOf    arrays     // the arrays trans was built from (zero: none)
+	trans      *CSR       // nil with transOf set: the matrix is its own transpose
+	transBytes int64
 }
 
-// matCache maps a matrix, held weakly, to its *matEntry. A cleanup attached
-// to the matrix deletes the entry when the matrix is collected, so the cache
-// never keeps a matrix or its transpose alive.
-var matCache sync.Map
+// memoMu serialises the first installation of a matrix's memo, so that two
+// goroutines making the first products of one matrix agree on it. It is
+// held only for that pointer check.
+var memoMu sync.Mutex
 
-// weakKey is the matCache key of a.
-func weakKey(a *CSR) weak.Pointer[CSR] { return weak.Make(a) }
-
-// entry returns a's entry if it describes a's current arrays.
-func (a *CSR) entry() *matEntry {
-	if v, ok := matCache.Load(weakKey(a)); ok {
-		if e := v.(*matEntry); e.arrays == a.arrays() {
-			return e
-		}
+// memo returns a's memo, making it on first use.
+func (a *CSR) memoOf() *memo {
+	memoMu.Lock()
+	m := a.memo
+	if m == nil {
+		m = &memo{}
+		a.memo = m
 	}
-	return nil
-}
-
-func (a *CSR) store(e *matEntry) {
-	key := weakKey(a)
-	if _, loaded := matCache.Swap(key, e); !loaded {
-		runtime.AddCleanup(a, func(k weak.Pointer[CSR]) { matCache.Delete(k) }, key)
-	}
+	memoMu.Unlock()
+	return m
 }
 
 // trust checks a's arrays with Validate the first time a product sees them
@@ -137,8 +130,12 @@ func (a *CSR) store(e *matEntry) {
 // traffic), and panics if they are invalid; the product kernels then read
 // the arrays without bounds checks.
 func (a *CSR) trust(op string) {
-	e := a.entry()
-	if e != nil && e.trusted {
+	m := a.memoOf()
+	id := a.arrays()
+	m.mu.Lock()
+	ok := m.trusted == id
+	m.mu.Unlock()
+	if ok {
 		return
 	}
 	// Validate slices ColIdx by the row pointers before checking that they
@@ -155,38 +152,59 @@ func (a *CSR) trust(op string) {
 	if err := a.Validate(); err != nil {
 		panic(fmt.Sprintf("sparse: %s: %v", op, strings.TrimPrefix(err.Error(), "sparse: ")))
 	}
-	ne := &matEntry{arrays: a.arrays(), trusted: true}
-	if e != nil {
-		ne.transBuilt, ne.trans = e.transBuilt, e.trans
-	}
-	a.store(ne)
+	m.mu.Lock()
+	m.trusted = id
+	m.mu.Unlock()
 }
 
 // cachedTranspose returns the kept transpose of a, building it on first
-// use; nil means a is its own transpose. a must be trusted.
+// use; nil means a is its own transpose. a must be trusted. Two first
+// calls at once may both build it; one result is kept.
 func (a *CSR) cachedTranspose() *CSR {
-	e := a.entry()
-	if e != nil && e.transBuilt {
-		return e.trans
+	m := a.memoOf()
+	id := a.arrays()
+	m.mu.Lock()
+	if m.transOf == id {
+		t := m.trans
+		m.mu.Unlock()
+		return t
 	}
-	ne := &matEntry{arrays: a.arrays(), transBuilt: true}
-	if e != nil {
-		ne.trusted = e.trusted
-	}
+	m.mu.Unlock()
 	t := a.Transpose()
-	if !sameArrays(a, t) {
-		ne.trans = t
+	var bytes int64
+	if sameArrays(a, t) {
+		t = nil
+	} else {
 		t.trust("MulVecTrans")
+		bytes = t.Bytes()
 	}
-	a.store(ne)
-	return ne.trans
+	m.mu.Lock()
+	m.transOf, m.trans, m.transBytes = id, t, bytes
+	m.mu.Unlock()
+	return t
+}
+
+// TransposeBytes returns the memory held by the transpose that MulVecTrans
+// keeps for a: zero before the first MulVecTrans, after ForgetTranspose,
+// and for a matrix that is exactly its own transpose.
+func (a *CSR) TransposeBytes() int64 {
+	m := a.memoOf()
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	if m.transOf != a.arrays() {
+		return 0
+	}
+	return m.transBytes
 }
 
 // ForgetTranspose drops the transpose that MulVecTrans keeps for a, to free
 // its memory, and forgets that a's arrays were checked: call it after
 // changing a's arrays in place.
 func (a *CSR) ForgetTranspose() {
-	matCache.Delete(weakKey(a))
+	m := a.memoOf()
+	m.mu.Lock()
+	m.trusted, m.transOf, m.trans, m.transBytes = arrays{}, arrays{}, nil, 0
+	m.mu.Unlock()
 }
 
 // sameArrays reports whether a and b have identical dimensions, pattern and
