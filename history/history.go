@@ -64,6 +64,10 @@ type History struct {
 	// LeastSquares says whether the rows carry NormalResidualNorm (the file
 	// had the normal_residual_norm column).
 	LeastSquares bool
+	// Thinned says that rows were left out to bound the memory (a Log
+	// past its budget): the rows are evenly spaced samples of the solve,
+	// with its first and last rows exact.
+	Thinned bool
 }
 
 // Options control a Writer.
@@ -235,71 +239,159 @@ func (w *Writer) Close() error {
 	return w.err
 }
 
-// Log is a krylov.Recorder that keeps every recorded row in memory for
-// other goroutines to read while the solve runs. Record appends under the
-// mutex (amortised growth, no other allocation); the readers copy. The zero
-// Log is ready to use. A Log must not be copied after first use.
+// DefaultBudget is the number of rows a Log keeps when Budget is zero:
+// every row of a solve of up to DefaultBudget−1 iterations, and the shape
+// of a longer one (see Log).
+const DefaultBudget = 4096
+
+// Log is a krylov.Recorder that keeps a solve's rows in memory, in bounded
+// space, for other goroutines to read while the solve runs.
+//
+// It keeps every recorded row until it holds Budget of them. Then it thins
+// by stride: it drops every second row it holds (the first, iteration 0,
+// stays) and from then on keeps only every second row that arrives, then
+// every fourth, and so on, so that the rows kept are always those whose
+// arrival index is a multiple of the stride. The latest row is always kept
+// as well, exactly, so a history ends at the final iteration. A solve of
+// 10⁶ iterations is thus held in between Budget/2 and Budget rows spread
+// evenly over its iterations, which keeps the shape of its curve; the
+// first and the last row are exact. Record allocates only while the rows
+// grow to Budget; thinning reuses that space.
+//
+// The zero Log is ready to use. A Log must not be copied after first use.
 type Log struct {
-	mu     sync.Mutex // guards rows, result
-	rows   []krylov.Progress
-	result *krylov.Result
+	// Budget bounds the rows held (the latest row aside). Zero means
+	// DefaultBudget; a value below 2 is treated as 2. Set it before the
+	// first Record.
+	Budget int
+
+	mu      sync.Mutex // guards the fields below
+	rows    []krylov.Progress
+	stride  int // keep arrivals whose index is a multiple of stride
+	seen    int // rows recorded
+	tip     krylov.Progress
+	hasTip  bool // tip is newer than the last kept row
+	version uint64
+	result  *krylov.Result
 }
 
-// Record appends p. It never returns an error.
+// Record adds p. It never returns an error.
 func (l *Log) Record(p krylov.Progress) error {
 	l.mu.Lock()
-	l.rows = append(l.rows, p)
+	if l.stride == 0 {
+		l.stride = 1
+	}
+	if l.seen%l.stride == 0 {
+		l.rows = append(l.rows, p)
+		l.hasTip = false
+		if len(l.rows) >= l.budget() {
+			l.thin()
+		}
+	} else {
+		l.tip, l.hasTip = p, true
+	}
+	l.seen++
+	l.version++
 	l.mu.Unlock()
 	return nil
 }
 
-// Finish keeps a copy of the result (without its Recorder).
+func (l *Log) budget() int {
+	switch {
+	case l.Budget == 0:
+		return DefaultBudget
+	case l.Budget < 2:
+		return 2
+	}
+	return l.Budget
+}
+
+// thin keeps the rows at even positions, which are the arrivals whose index
+// is a multiple of the doubled stride, and doubles the stride. The row
+// dropped last becomes the tip if it was the latest. l.mu must be held.
+func (l *Log) thin() {
+	last := l.rows[len(l.rows)-1]
+	kept := l.rows[:0]
+	for i := 0; i < len(l.rows); i += 2 {
+		kept = append(kept, l.rows[i])
+	}
+	dropped := len(l.rows)%2 == 0 // the latest row was at an odd position
+	clear(l.rows[len(kept):])
+	l.rows = kept
+	l.stride *= 2
+	if dropped {
+		l.tip, l.hasTip = last, true
+	}
+}
+
+// Finish keeps a copy of the result (without its Recorder and start).
 func (l *Log) Finish(r *krylov.Result) {
 	if r == nil {
 		return
 	}
 	c := *r
-	c.Settings.Recorder = nil
-	c.Settings.X0 = nil
+	c.Settings.Recorder, c.Settings.X0 = nil, nil
+	if r.LSQ != nil {
+		lsq := *r.LSQ
+		lsq.Settings.Recorder, lsq.Settings.X0 = nil, nil
+		c.LSQ = &lsq
+	}
 	l.mu.Lock()
 	l.result = &c
+	l.version++
 	l.mu.Unlock()
 }
 
-// Len returns the number of rows recorded so far.
+// Len returns the number of rows held now (the latest included).
 func (l *Log) Len() int {
 	l.mu.Lock()
 	defer l.mu.Unlock()
-	return len(l.rows)
+	n := len(l.rows)
+	if l.hasTip {
+		n++
+	}
+	return n
 }
 
-// Snapshot returns a copy of the rows recorded so far.
-func (l *Log) Snapshot() History {
-	return History{Rows: l.Since(0)}
-}
-
-// Since returns a copy of the rows from index i on (nil when there are
-// none), so a reader that already has i rows can fetch only the new ones.
-func (l *Log) Since(i int) []krylov.Progress {
+// Recorded returns the number of rows recorded, kept or not.
+func (l *Log) Recorded() int {
 	l.mu.Lock()
 	defer l.mu.Unlock()
-	if i < 0 {
-		i = 0
+	return l.seen
+}
+
+// Version returns a number that changes whenever a row is recorded or the
+// result arrives, so a reader can tell whether to read again.
+func (l *Log) Version() uint64 {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.version
+}
+
+// Snapshot returns a copy of the rows held now, in order, the latest
+// included; Thinned says whether rows were dropped (a long solve).
+func (l *Log) Snapshot() History {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	out := make([]krylov.Progress, len(l.rows), len(l.rows)+1)
+	copy(out, l.rows)
+	if l.hasTip {
+		out = append(out, l.tip)
 	}
-	if i >= len(l.rows) {
-		return nil
-	}
-	return append([]krylov.Progress(nil), l.rows[i:]...)
+	return History{Rows: out, Thinned: l.stride > 1}
 }
 
 // Last returns the latest row and true, or false when nothing was recorded.
 func (l *Log) Last() (krylov.Progress, bool) {
 	l.mu.Lock()
 	defer l.mu.Unlock()
-	if len(l.rows) == 0 {
-		return krylov.Progress{}, false
+	switch {
+	case l.hasTip:
+		return l.tip, true
+	case len(l.rows) > 0:
+		return l.rows[len(l.rows)-1], true
 	}
-	return l.rows[len(l.rows)-1], true
+	return krylov.Progress{}, false
 }
 
 // Result returns a copy of the result given to Finish, or nil while the

@@ -273,19 +273,81 @@ func TestLogConcurrentReaders(t *testing.T) {
 		}
 		l.Finish(&krylov.Result{Status: krylov.Converged, Iterations: 1999, Settings: krylov.Settings{Recorder: &l}})
 	}()
-	// A reader that fetches only new rows must end with every row, in order.
-	var got []krylov.Progress
-	for l.Result() == nil || len(got) < l.Len() {
-		got = append(got, l.Since(len(got))...)
+	// A reader polling while the solve runs sees a growing prefix of the
+	// rows, in order.
+	for l.Result() == nil {
+		got := l.Snapshot().Rows
+		equalHistories(t, History{Rows: got}, History{Rows: want[:len(got)]})
 	}
 	wg.Wait()
-	equalHistories(t, History{Rows: got}, History{Rows: want})
 	equalHistories(t, l.Snapshot(), History{Rows: want})
 	if last, ok := l.Last(); !ok || last.Iteration != 1999 {
 		t.Errorf("Last = %v, %v", last, ok)
 	}
 	if r := l.Result(); r.Status != krylov.Converged || r.Settings.Recorder != nil {
 		t.Errorf("Result = %+v", r)
+	}
+}
+
+// TestLogBudget checks the thinning rule documented on Log: every row is
+// kept up to the budget; past it the rows held are the arrivals whose index
+// is a multiple of a power-of-two stride, never more than the budget, with
+// the first and the latest row exact.
+func TestLogBudget(t *testing.T) {
+	t.Parallel()
+	for _, c := range []struct{ budget, n int }{
+		{16, 15}, {16, 16}, {16, 17}, {16, 100}, {16, 1001}, {64, 5000}, {0, DefaultBudget - 1}, {0, 1_000_001},
+	} {
+		l := Log{Budget: c.budget}
+		all := rows(c.n, false)
+		for _, p := range all {
+			l.Record(p)
+		}
+		h := l.Snapshot()
+		budget := c.budget
+		if budget == 0 {
+			budget = DefaultBudget
+		}
+		if len(h.Rows) > budget+1 || (c.n >= budget && len(h.Rows) < budget/2) {
+			t.Errorf("budget %d, %d rows: holds %d", budget, c.n, len(h.Rows))
+		}
+		if c.n < budget {
+			equalHistories(t, h, History{Rows: all})
+			if h.Thinned {
+				t.Errorf("budget %d, %d rows: marked thinned", budget, c.n)
+			}
+			continue
+		}
+		if !h.Thinned {
+			t.Errorf("budget %d, %d rows: not marked thinned", budget, c.n)
+		}
+		if h.Rows[0] != all[0] || h.Rows[len(h.Rows)-1] != all[c.n-1] {
+			t.Errorf("budget %d, %d rows: first %v, last %v", budget, c.n, h.Rows[0], h.Rows[len(h.Rows)-1])
+		}
+		stride := h.Rows[1].Iteration - h.Rows[0].Iteration
+		if stride&(stride-1) != 0 {
+			t.Errorf("budget %d, %d rows: stride %d not a power of two", budget, c.n, stride)
+		}
+		for k, p := range h.Rows[:len(h.Rows)-1] {
+			if p != all[k*stride] {
+				t.Fatalf("budget %d, %d rows: row %d is %v, want arrival %d", budget, c.n, k, p, k*stride)
+			}
+		}
+		if l.Recorded() != c.n || l.Len() != len(h.Rows) {
+			t.Errorf("Recorded %d, Len %d; want %d, %d", l.Recorded(), l.Len(), c.n, len(h.Rows))
+		}
+	}
+}
+
+// A Log past its budget records without allocating.
+func TestLogAllocs(t *testing.T) {
+	l := Log{Budget: 64}
+	p := krylov.Progress{ResidualNorm: 1}
+	for i := 0; i < 64; i++ {
+		l.Record(p)
+	}
+	if n := testing.AllocsPerRun(10000, func() { l.Record(p) }); n != 0 {
+		t.Errorf("%v allocations per Record past the budget, want 0", n)
 	}
 }
 
