@@ -95,6 +95,13 @@ type RowLengthStats struct {
 	Empty int     `json:"empty"` // rows with no stored entry
 }
 
+// SymmetryTolerance is the symmetry tolerance relative to max|a(i,j)| that
+// residua applies everywhere it calls a matrix symmetric (inspect's default,
+// the check before conjugate gradients, the server's upload report):
+// |a(i,j) − a(j,i)| ≤ 1e-12·max|a| accepts a matrix such as AᵀA formed in
+// floating point (common practice: a few hundred ulps).
+const SymmetryTolerance = 1e-12
+
 // Analyze returns the Report of a. symTol is the symmetry tolerance
 // relative to max|a(i,j)|: 0 asks for exact equality, and something like
 // 1e-12 (common practice: a few hundred ulps) accepts a matrix such as AᵀA
