@@ -197,4 +197,3 @@ func Run(ctx context.Context, m Matrix, req Request, b, x0, x []float64, rec kry
 	sum, err := s.Solve(ctx, b, x0, x, rec)
 	return sum, s, err
 }
-
