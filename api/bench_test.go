@@ -13,8 +13,10 @@ import (
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/matrixio"
 	"github.com/residua/residua/precond"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
+	"github.com/residua/residua/wire"
 )
 
 // benchServer starts a server on a TCP loopback port (real sockets, as a
@@ -77,7 +79,7 @@ func BenchmarkUpload(b *testing.B) {
 		}
 	})
 	b.Run("csr-raw", func(b *testing.B) {
-		b.SetBytes(csrBytes(int64(a.Rows), int64(a.NNZ())))
+		b.SetBytes(wire.CSRBytes(int64(a.Rows), int64(a.NNZ())))
 		for b.Loop() {
 			if _, err := c.UploadCSR(ctx, a, "p50"); err != nil {
 				b.Fatal(err)
@@ -127,7 +129,7 @@ func BenchmarkRemoteSolve(b *testing.B) {
 			b.Fatal(err)
 		}
 		upload += time.Since(start)
-		out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{rhs}, Precond: string(kind)}, nil)
+		out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{rhs}, Request: solve.Request{Preconditioner: string(kind)}}, nil)
 		if err != nil {
 			b.Fatal(err)
 		}

@@ -73,6 +73,10 @@ type Config struct {
 	// speaks TLS only.
 	TLSCert, TLSKey string
 
+	// Observer, when set, is told of every job's start, end (with its
+	// outcome) and iterations: the service's metrics. Default none.
+	Observer Observer
+
 	// Logger receives the structured logs. Default slog.Default().
 	Logger *slog.Logger
 	// ShutdownGrace is how long running solves may continue after shutdown

@@ -14,7 +14,9 @@ import (
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/matrixio"
 	"github.com/residua/residua/precond"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
+	"github.com/residua/residua/wire"
 )
 
 // Named reasons for the errors the server returns, for errors.Is. Each maps
@@ -46,6 +48,8 @@ func Status(err error) error {
 		return nil
 	}
 	var pe *matrixio.ParseError
+	var re *wire.RawError
+	var se *solve.SetupError
 	code := codes.Internal
 	switch {
 	case errors.Is(err, context.Canceled):
@@ -61,11 +65,13 @@ func Status(err error) error {
 	// A size line over a limit is a ParseError too: test the limit first.
 	case errors.Is(err, ErrLimit), errors.Is(err, matrixio.ErrLimit):
 		code = codes.ResourceExhausted
-	case errors.Is(err, ErrInvalid), errors.As(err, &pe),
+	case errors.Is(err, ErrInvalid), errors.Is(err, solve.ErrInvalid), errors.As(err, &pe), errors.As(err, &re),
+		errors.Is(err, wire.ErrPartialEntry),
 		errors.Is(err, sparse.ErrInvalidCSR), errors.Is(err, io.ErrUnexpectedEOF),
 		errors.Is(err, gzip.ErrHeader), errors.Is(err, gzip.ErrChecksum), isFlateCorrupt(err):
 		code = codes.InvalidArgument
-	case errors.Is(err, ErrInUse), errors.Is(err, ErrMethod),
+	case errors.Is(err, ErrInUse), errors.Is(err, solve.ErrNotSquare), errors.Is(err, solve.ErrNotSymmetric),
+		errors.As(err, &se),
 		errors.Is(err, krylov.ErrNotPositiveDefinite), errors.Is(err, krylov.ErrPreconditionerNotSPD),
 		errors.Is(err, krylov.ErrNotFinite), errors.Is(err, precond.ErrBreakdown),
 		errors.Is(err, precond.ErrNotSquare), errors.Is(err, precond.ErrTooLarge),

@@ -7,11 +7,12 @@ import (
 	"testing"
 
 	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/solve"
 )
 
 func testJob() *job {
-	j := &job{id: "jtest", info: &pb.Job{Id: "jtest"}, done: make(chan struct{}), stride: 1}
-	j.ctx, j.cancel = context.WithCancelCause(context.Background())
+	j := newJob("jtest", 1, false)
+	j.info = &pb.Job{Id: "jtest"}
 	return j
 }
 
@@ -23,7 +24,7 @@ func progressEvent(it int) *pb.JobEvent {
 // publisher; it keeps the newest progress events, counts the dropped ones,
 // and never drops a result or the finished event.
 func TestSlowSubscriber(t *testing.T) {
-	r := newRegistry(slog.New(slog.NewTextHandler(io.Discard, nil)), 1, 1, 10)
+	r := newRegistry(slog.New(slog.NewTextHandler(io.Discard, nil)), nil, 1, 1, 10)
 	j := testJob()
 	sub := j.subscribe()
 	defer sub.Close()
@@ -34,7 +35,7 @@ func TestSlowSubscriber(t *testing.T) {
 			j.publish(&pb.JobEvent{Event: &pb.JobEvent_Result{Result: &pb.SolveResult{Iterations: 10}}})
 		}
 	}
-	r.finish(j, pb.JobState_FINISHED, nil)
+	r.finish(j, solve.Converged, nil)
 	var progress []int64
 	var results, finished int
 	var dropped int64
@@ -67,12 +68,12 @@ func TestSlowSubscriber(t *testing.T) {
 	}
 }
 
-// TestHistoryThinning: a long solve's history keeps at most
-// historyProgress progress events, spread over the whole solve, and a late
+// TestEventThinning: a long solve's replay keeps at most
+// eventProgress progress events, spread over the whole solve, and a late
 // subscriber replays it.
-func TestHistoryThinning(t *testing.T) {
+func TestEventThinning(t *testing.T) {
 	j := testJob()
-	const n = 10 * historyProgress
+	const n = 10 * eventProgress
 	for it := range n {
 		j.publish(progressEvent(it))
 	}
@@ -86,10 +87,10 @@ func TestHistoryThinning(t *testing.T) {
 		}
 		its = append(its, ev.GetProgress().GetIteration())
 	}
-	if len(its) > historyProgress || len(its) < historyProgress/4 {
-		t.Fatalf("history holds %d progress events, want at most %d and not far fewer", len(its), historyProgress)
+	if len(its) > eventProgress || len(its) < eventProgress/4 {
+		t.Fatalf("history holds %d progress events, want at most %d and not far fewer", len(its), eventProgress)
 	}
-	if its[0] != 0 || its[len(its)-1] < n-n/historyProgress*8 {
+	if its[0] != 0 || its[len(its)-1] < n-n/eventProgress*8 {
 		t.Errorf("history spans iterations %d..%d of 0..%d", its[0], its[len(its)-1], n-1)
 	}
 	for i := 1; i < len(its); i++ {

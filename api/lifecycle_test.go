@@ -17,6 +17,7 @@ import (
 
 	"github.com/residua/residua/client"
 	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
 )
@@ -74,8 +75,7 @@ func TestConcurrentClients(t *testing.T) {
 				wg2.Add(1)
 				go func() {
 					defer wg2.Done()
-					outs[k], errs[k] = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b},
-						Precond: kinds[(ci+k)%len(kinds)], RTol: 1e-6}, nil)
+					outs[k], errs[k] = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Request: solve.Request{Preconditioner: kinds[(ci+k)%len(kinds)], RelTol: 1e-6}}, nil)
 				}()
 			}
 			wg2.Wait()
@@ -103,20 +103,20 @@ func TestConcurrentClients(t *testing.T) {
 	jobs := h.srv.jobs.Jobs()
 	finished := 0
 	for _, j := range jobs {
-		if j.GetState() == pb.JobState_FINISHED {
+		if j.GetState() == pb.JobState_DONE {
 			finished++
 		}
 	}
 	if finished != clients*solves {
 		t.Errorf("%d finished jobs in the registry, want %d", finished, clients*solves)
 	}
-	items, _ := h.srv.store.snapshot(func(k string) bool { return strings.HasPrefix(k, "j:") })
+	items := h.srv.store.snapshot(func(k key) bool { return k.kind == kindJob })
 	if len(items) != 0 {
 		t.Errorf("%d job items left in the store after the streams ended", len(items))
 	}
 	used, budget := h.srv.store.usage()
 	var sum int64
-	all, _ := h.srv.store.snapshot(func(string) bool { return true })
+	all := h.srv.store.snapshot(func(key) bool { return true })
 	for _, it := range all {
 		sum += it.bytes
 	}
@@ -143,7 +143,7 @@ func TestShutdown(t *testing.T) {
 	}
 	errc := make(chan error, 1)
 	go func() {
-		_, err := c.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none", ProgressEvery: 1}, nil)
+		_, err := c.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, ProgressEvery: 1, Request: solve.Request{Preconditioner: "none"}}, nil)
 		errc <- err
 	}()
 	jobID := <-started
@@ -164,7 +164,7 @@ func TestShutdown(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if j.GetState() != pb.JobState_CANCELLED || len(j.GetResults()) != 1 || j.GetLastProgress().GetIteration() != 3 {
+	if j.GetOutcome() != string(solve.Cancelled) || len(j.GetResults()) != 1 || j.GetLastProgress().GetIteration() != 3 {
 		t.Errorf("job after shutdown: %v", j)
 	}
 	if !strings.Contains(h.logs.String(), "grace period over") {
@@ -184,8 +184,8 @@ func TestPanicRecovered(t *testing.T) {
 		}
 	}
 	out, err := c.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}}, nil)
-	if status.Code(err) != codes.Internal || out.State != "FAILED" {
-		t.Fatalf("%v (state %s), want INTERNAL and FAILED", err, out.State)
+	if status.Code(err) != codes.Internal || out.Outcome != solve.Failed {
+		t.Fatalf("%v (outcome %s), want INTERNAL and failed", err, out.Outcome)
 	}
 	if !strings.Contains(h.logs.String(), "job panicked") {
 		t.Errorf("no log line for the panic")
@@ -244,7 +244,7 @@ func TestMultipleRHS(t *testing.T) {
 		ones[i] = 1
 	}
 	out, err := c.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b1, b2},
-		X0: [][]float64{ones, make([]float64, a.Rows)}, Precond: "ic0"}, nil)
+		X0: [][]float64{ones, make([]float64, a.Rows)}, Request: solve.Request{Preconditioner: "ic0"}}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -21,7 +21,9 @@ import (
 	"github.com/residua/residua/matrixio"
 	"github.com/residua/residua/precond"
 	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse/stencil"
+	"github.com/residua/residua/wire"
 )
 
 // countingReader yields n bytes of Matrix Market comment lines and counts
@@ -166,11 +168,11 @@ func TestUploadLimits(t *testing.T) {
 		if status.Code(err) != codes.NotFound {
 			t.Fatalf("unknown matrix: %v, want NOT_FOUND", err)
 		}
-		_, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{onesRHS(a)}, RTol: -1}, nil)
+		_, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{onesRHS(a)}, Request: solve.Request{RelTol: -1}}, nil)
 		if status.Code(err) != codes.InvalidArgument {
 			t.Fatalf("negative rtol: %v, want INVALID_ARGUMENT", err)
 		}
-		_, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{onesRHS(a)}, Precond: "multigrid"}, nil)
+		_, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{onesRHS(a)}, Request: solve.Request{Preconditioner: "multigrid"}}, nil)
 		if status.Code(err) != codes.InvalidArgument {
 			t.Fatalf("unknown preconditioner: %v, want INVALID_ARGUMENT", err)
 		}
@@ -190,30 +192,34 @@ func TestNotSPD(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Precond: "none"}, nil)
+	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Request: solve.Request{Preconditioner: "none"}}, nil)
 	if status.Code(err) != codes.FailedPrecondition {
 		t.Fatalf("%v, want FAILED_PRECONDITION", err)
 	}
-	if out.State != "FAILED" || len(out.Results) != 1 || out.Results[0].Status != "breakdown" {
+	if out.Outcome != solve.Breakdown || len(out.Results) != 1 || out.Results[0].Status != "breakdown" {
 		t.Errorf("outcome %+v", out)
 	}
 	// Jacobi needs a positive diagonal (the diagonal of an SPD matrix is
 	// positive: Golub and Van Loan, 4th ed., §4.2.1): the set-up fails, the
-	// job goes from queued to finished without an accepted event.
+	// job goes from queued to its one result (saying what failed) and
+	// finished, without an accepted event.
 	var kinds []string
-	out, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Precond: "jacobi"},
+	out, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Request: solve.Request{Preconditioner: "jacobi"}},
 		func(e client.Event) {
 			switch {
 			case e.Queued != nil:
 				kinds = append(kinds, "queued")
 			case e.Accepted != nil:
 				kinds = append(kinds, "accepted")
+			case e.Result != nil:
+				kinds = append(kinds, "result")
 			case e.Finished != nil:
 				kinds = append(kinds, "finished")
 			}
 		})
-	if status.Code(err) != codes.FailedPrecondition || strings.Join(kinds, ",") != "queued,finished" || out.State != "FAILED" {
-		t.Errorf("jacobi on a negative diagonal: %v, events %v, state %s", err, kinds, out.State)
+	if status.Code(err) != codes.FailedPrecondition || strings.Join(kinds, ",") != "queued,result,finished" ||
+		out.Outcome != solve.SetupFailed || out.Results[0].Status != "setup-failed" || out.Results[0].Preconditioner != "jacobi" {
+		t.Errorf("jacobi on a negative diagonal: %v, events %v, outcome %s", err, kinds, out.Outcome)
 	}
 	nonsym := "%%MatrixMarket matrix coordinate real general\n2 2 3\n1 1 2.0\n1 2 1.0\n2 2 2.0\n"
 	m, err = c.UploadReader(ctx, strings.NewReader(nonsym), "nonsym.mtx", nil)
@@ -233,7 +239,7 @@ func TestNotSPD(t *testing.T) {
 // a matrix in use is never evicted.
 func TestMemoryBudget(t *testing.T) {
 	a := stencil.Poisson2D(40) // 1600 rows, 7840 entries: 12·7840 + 8·1601 = 106,888 bytes
-	size := csrBytes(int64(a.Rows), int64(a.NNZ()))
+	size := wire.CSRBytes(int64(a.Rows), int64(a.NNZ()))
 	h := startServer(t, Config{MemoryBudget: 2*size + size/2})
 	c := h.dial(t)
 	ctx := context.Background()
@@ -271,7 +277,7 @@ func TestMemoryBudget(t *testing.T) {
 			}
 		}
 	}
-	job, err := c.Solve(ctx, client.SolveRequest{MatrixID: m2.GetId(), B: [][]float64{onesRHS(b)}, Precond: "none", Detach: true}, nil)
+	job, err := c.Solve(ctx, client.SolveRequest{MatrixID: m2.GetId(), B: [][]float64{onesRHS(b)}, Detach: true, Request: solve.Request{Preconditioner: "none"}}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -342,7 +348,11 @@ func TestStatusMapping(t *testing.T) {
 		{ErrUnauthenticated, codes.Unauthenticated},
 		{ErrShuttingDown, codes.Unavailable},
 		{fmt.Errorf("%w: x", ErrInUse), codes.FailedPrecondition},
-		{fmt.Errorf("%w: y", ErrMethod), codes.FailedPrecondition},
+		{fmt.Errorf("%w: y", solve.ErrNotSymmetric), codes.FailedPrecondition},
+		{fmt.Errorf("%w: y", solve.ErrNotSquare), codes.FailedPrecondition},
+		{&solve.SetupError{Preconditioner: "ic0", Err: errors.New("no pivot")}, codes.FailedPrecondition},
+		{&solve.FieldError{Field: "rtol", Err: solve.ErrInvalid}, codes.InvalidArgument},
+		{&wire.RawError{Err: wire.ErrColumn}, codes.InvalidArgument},
 		{io.ErrUnexpectedEOF, codes.InvalidArgument},
 		{status.Error(codes.Aborted, "from grpc"), codes.Aborted},
 		{errors.New("something else"), codes.Internal},

@@ -63,13 +63,14 @@ type Server struct {
 	health *health.Server
 	store  *store
 	jobs   *Registry
+	obs    Observer // nil: none
 	// uploaded counts the bytes received by all uploads (for metrics).
 	uploaded atomic.Int64
 
 	mu sync.Mutex // guards the fields below
 	// building holds the preconditioners being set up, by cache key, so
 	// that jobs asking for the same one at once wait for one set-up.
-	building map[string]*precondEntry
+	building map[key]*setupEntry
 	closing  bool
 
 	// testHookIteration, when set (by tests), is called from the solver
@@ -88,9 +89,10 @@ func NewServer(cfg Config) (*Server, error) {
 		cfg:      cfg,
 		log:      cfg.Logger,
 		store:    newStore(cfg.MemoryBudget),
-		building: make(map[string]*precondEntry),
+		building: make(map[key]*setupEntry),
+		obs:      cfg.Observer,
 	}
-	s.jobs = newRegistry(cfg.Logger, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
+	s.jobs = newRegistry(cfg.Logger, cfg.Observer, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
 	s.jobs.onForget = s.forgetJob
 	if cfg.TokenFile != "" {
 		raw, err := os.ReadFile(cfg.TokenFile)
@@ -148,14 +150,13 @@ func (s *Server) UploadBytes() int64 { return s.uploaded.Load() }
 // transposes kept for least-squares products) and by cached
 // preconditioners.
 func (s *Server) StoredBytes() (matrices, preconditioners int64) {
-	items, _ := s.store.snapshot(func(k string) bool { return strings.HasPrefix(k, "m:") || strings.HasPrefix(k, "p:") })
-	for _, it := range items {
-		n := s.store.size(it)
-		switch {
-		case strings.HasPrefix(it.key, "m:"), strings.HasSuffix(it.key, "/transpose"):
-			matrices += n
-		default:
-			preconditioners += n
+	for _, e := range s.store.snapshot(func(k key) bool {
+		return k.kind == kindMatrix || k.kind == kindTranspose || k.kind == kindSetup
+	}) {
+		if e.key.kind == kindSetup {
+			preconditioners += e.bytes
+		} else {
+			matrices += e.bytes
 		}
 	}
 	return matrices, preconditioners

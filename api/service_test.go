@@ -18,6 +18,7 @@ import (
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/precond"
 	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse/stencil"
 )
 
@@ -65,8 +66,8 @@ func TestUploadSolveSuiteSparse(t *testing.T) {
 
 	b := onesRHS(a)
 	var events []client.Event
-	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Precond: "jacobi",
-		ProgressEvery: 10}, func(e client.Event) { events = append(events, e) })
+	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b},
+		ProgressEvery: 10, Request: solve.Request{Preconditioner: "jacobi"}}, func(e client.Event) { events = append(events, e) })
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -82,16 +83,16 @@ func TestUploadSolveSuiteSparse(t *testing.T) {
 		}
 	}
 	res := out.Results[0]
-	if events[2].Progress.GetIteration() != 0 {
-		t.Errorf("first progress at iteration %d, want 0", events[2].Progress.GetIteration())
+	if events[2].Progress.Iteration != 0 {
+		t.Errorf("first progress at iteration %d, want 0", events[2].Progress.Iteration)
 	}
-	if last := events[len(events)-3].Progress; last == nil || last.GetIteration() != res.Iterations {
+	if last := events[len(events)-3].Progress; last == nil || last.Iteration != res.Iterations {
 		t.Errorf("last progress %v, want iteration %d", last, res.Iterations)
 	}
-	if !res.Converged || res.Status != "converged" || out.State != "FINISHED" {
+	if !res.Converged || res.Status != "converged" || out.State != solve.Done || out.Outcome != solve.Converged {
 		t.Fatalf("result %+v state %s", res, out.State)
 	}
-	if res.Preconditioner != "jacobi" || res.Settings.RTol != 1e-8 || res.Settings.MaxIter != 10*1806 {
+	if res.Preconditioner != "jacobi" || *res.RelTol != 1e-8 || res.MaxIter != 10*1806 {
 		t.Errorf("settings echo %+v (krylov.Settings defaults: rtol 1e-8, max_iter 10·n)", res)
 	}
 	x := out.X[0]
@@ -125,11 +126,11 @@ func TestUploadSolveSuiteSparse(t *testing.T) {
 	}
 
 	// The second solve takes the preconditioner from the cache.
-	out2, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Precond: "jacobi"}, nil)
+	out2, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Request: solve.Request{Preconditioner: "jacobi"}}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !out2.Accepted.GetFromCache() || !out2.Results[0].FromCache {
+	if !out2.Accepted.GetFromCache() || !*out2.Results[0].FromCache {
 		t.Errorf("second solve not from the cache: %v", out2.Accepted)
 	}
 	if !slices.Equal(out2.X[0], x) {
@@ -172,8 +173,8 @@ func TestWatchers(t *testing.T) {
 			<-gate // hold the solve until both watchers are attached
 		}
 	}
-	det, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none",
-		ProgressEvery: 1, Detach: true}, nil)
+	det, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b},
+		ProgressEvery: 1, Detach: true, Request: solve.Request{Preconditioner: "none"}}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -239,7 +240,7 @@ func TestWatchers(t *testing.T) {
 		t.Errorf("downloaded solution's relative residual %g > 1e-8", rr)
 	}
 	jobs, err := c.Jobs(ctx)
-	if err != nil || len(jobs) != 1 || jobs[0].GetState() != pb.JobState_FINISHED || !jobs[0].GetSolutionKept() {
+	if err != nil || len(jobs) != 1 || jobs[0].GetState() != pb.JobState_DONE || !jobs[0].GetSolutionKept() {
 		t.Errorf("Jobs: %v, %v", jobs, err)
 	}
 }
@@ -266,7 +267,7 @@ func TestCancelStopsWithinOneIteration(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	errc := make(chan error, 1)
 	go func() {
-		_, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none"}, nil)
+		_, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b}, Request: solve.Request{Preconditioner: "none"}}, nil)
 		errc <- err
 	}()
 	jobID := <-reached
@@ -276,7 +277,7 @@ func TestCancelStopsWithinOneIteration(t *testing.T) {
 	}
 	waitFor(t, "job to end", func() bool {
 		j, _ := h.srv.jobs.Job(jobID)
-		return j.GetState() == pb.JobState_CANCELLED
+		return j.GetOutcome() == string(solve.Cancelled)
 	})
 	j, _ := h.srv.jobs.Job(jobID)
 	if len(j.GetResults()) != 1 || j.GetResults()[0].GetIterations() > at+1 || j.GetResults()[0].GetStatus() != "cancelled" {
@@ -300,7 +301,7 @@ func TestCancelJobRPC(t *testing.T) {
 	var out *client.Outcome
 	go func() {
 		var err error
-		out, err = c.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none"}, nil)
+		out, err = c.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, Request: solve.Request{Preconditioner: "none"}}, nil)
 		errc <- err
 	}()
 	jobID := <-started
@@ -312,7 +313,7 @@ func TestCancelJobRPC(t *testing.T) {
 		t.Fatalf("Solve error %v, want CANCELED", err)
 	}
 	// The result and the (partial) solution still arrive before the end.
-	if out.State != "CANCELLED" || len(out.Results) != 1 || out.Results[0].Status != "cancelled" || len(out.X[0]) != len(b) {
+	if out.Outcome != solve.Cancelled || len(out.Results) != 1 || out.Results[0].Status != "cancelled" || len(out.X[0]) != len(b) {
 		t.Errorf("outcome %+v", out)
 	}
 	if _, err := other.Cancel(context.Background(), "jnope"); status.Code(err) != codes.NotFound {
@@ -331,7 +332,7 @@ func TestDeadline(t *testing.T) {
 	}
 	ctx, cancel := context.WithTimeout(context.Background(), 300*time.Millisecond)
 	defer cancel()
-	_, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none"}, nil)
+	_, err := c.Solve(ctx, client.SolveRequest{MatrixID: id, B: [][]float64{b}, Request: solve.Request{Preconditioner: "none"}}, nil)
 	if status.Code(err) != codes.DeadlineExceeded {
 		t.Fatalf("Solve error %v, want DEADLINE_EXCEEDED", err)
 	}
@@ -341,7 +342,7 @@ func TestDeadline(t *testing.T) {
 	}
 	waitFor(t, "job to end", func() bool {
 		j, _ := h.srv.jobs.Job(jobs[0].GetId())
-		return j.GetState() == pb.JobState_CANCELLED
+		return j.GetOutcome() == string(solve.Cancelled)
 	})
 	j, _ := h.srv.jobs.Job(jobs[0].GetId())
 	if !strings.Contains(j.GetError(), "deadline") {
@@ -363,14 +364,14 @@ func TestDroppedClient(t *testing.T) {
 		time.Sleep(time.Millisecond)
 	}
 	dropping := h.dial(t)
-	go dropping.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none"}, nil)
+	go dropping.Solve(context.Background(), client.SolveRequest{MatrixID: id, B: [][]float64{b}, Request: solve.Request{Preconditioner: "none"}}, nil)
 	jobID := <-started
 	dropping.Close()
 	waitFor(t, "job to end", func() bool {
 		j, _ := h.srv.jobs.Job(jobID)
-		return j.GetState() > pb.JobState_RUNNING
+		return j.GetState() == pb.JobState_DONE
 	})
-	if j, _ := h.srv.jobs.Job(jobID); j.GetState() != pb.JobState_CANCELLED {
+	if j, _ := h.srv.jobs.Job(jobID); j.GetOutcome() != string(solve.Cancelled) {
 		t.Errorf("job %v after its client dropped, want CANCELLED", j)
 	}
 	if q, r := h.srv.jobs.Counts(); q != 0 || r != 0 {
@@ -393,7 +394,7 @@ func TestQueueBound(t *testing.T) {
 			}
 		}
 	}
-	req := client.SolveRequest{MatrixID: id, B: [][]float64{b}, Precond: "none", Detach: true}
+	req := client.SolveRequest{MatrixID: id, B: [][]float64{b}, Detach: true, Request: solve.Request{Preconditioner: "none"}}
 	first, err := c.Solve(context.Background(), req, nil)
 	if err != nil {
 		t.Fatal(err)

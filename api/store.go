@@ -6,6 +6,26 @@ import (
 	"sync"
 )
 
+// kind says what a store item holds; with an id (and, for a
+// preconditioner, its settings) it keys the item.
+type kind uint8
+
+const (
+	kindMatrix    kind = iota + 1 // a stored matrix: *matrixEntry
+	kindVector                    // a stored vector: *vectorEntry
+	kindTranspose                 // the transpose sparse keeps for a matrix's Aᵀ products (no value)
+	kindSetup                     // a cached preconditioner set-up: *setupEntry
+	kindJob                       // a job's vectors and kept solutions: *job
+)
+
+// key identifies a store item: the matrix, vector or job id, and for a
+// preconditioner set-up the settings it was built with.
+type key struct {
+	kind kind
+	id   string
+	sub  string
+}
+
 // store accounts for the server's large allocations against one byte
 // budget: stored matrices and vectors, cached preconditioners, running
 // jobs' vectors and kept solutions. Each is an item with a size and a pin
@@ -13,21 +33,24 @@ import (
 // first, and never touches a pinned one, so a matrix a job uses stays.
 //
 // Space is reserved before the allocation it stands for (reserve), then the
-// reservation becomes an item (insert) or is given back (release).
+// reservation becomes an item (insert) or is given back (release). Pins are
+// handles: acquire and insert return a *pin, and Release gives it back,
+// once, however often it is called.
 type store struct {
 	budget int64
 
 	mu sync.Mutex // guards everything below and every item's fields
 	// used counts the bytes of all items plus outstanding reservations.
 	used  int64
-	items map[string]*item
+	items map[key]*item
 	// lru orders the items, most recently used at the front.
 	lru list.List
 }
 
-// item is one accounted allocation. Its fields are guarded by store.mu.
+// item is one accounted allocation. Its fields are guarded by store.mu,
+// except value, which is set at insertion and never changes.
 type item struct {
-	key   string
+	key   key
 	bytes int64
 	pins  int
 	elem  *list.Element
@@ -37,8 +60,26 @@ type item struct {
 	onEvict func()
 }
 
+// pin holds one pin on an item until Release.
+type pin struct {
+	s    *store
+	it   *item
+	once sync.Once
+	drop bool // the last release deletes the item (see insertDropping)
+}
+
+// Release gives the pin back; the item may then be evicted (or, for a pin
+// of insertDropping, is deleted when it was the last). Calling it again
+// does nothing.
+func (p *pin) Release() {
+	if p == nil {
+		return
+	}
+	p.once.Do(func() { p.s.unpin(p.it, p.drop) })
+}
+
 func newStore(budget int64) *store {
-	s := &store{budget: budget, items: make(map[string]*item)}
+	s := &store{budget: budget, items: make(map[key]*item)}
 	s.lru.Init()
 	return s
 }
@@ -92,45 +133,82 @@ func (s *store) release(n int64) {
 	s.mu.Unlock()
 }
 
-// insert turns a reservation of n bytes into an item under key, pinned
-// pins times. If key is already present the reservation is released and the
-// existing item is returned (pinned as asked) with existed set.
-func (s *store) insert(key string, n int64, pins int, value any, onEvict func()) (it *item, existed bool) {
+// insert turns a reservation of n bytes into an item under k, and returns
+// it with one pin held (or nil when pinned is false). If k is already
+// present the reservation is released and the existing item is returned
+// (pinned as asked) with existed set.
+func (s *store) insert(k key, n int64, pinned bool, value any, onEvict func()) (it *item, p *pin, existed bool) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	if old, ok := s.items[key]; ok {
+	if old, ok := s.items[k]; ok {
 		s.used -= n
-		old.pins += pins
 		s.lru.MoveToFront(old.elem)
-		return old, true
+		return old, s.pinLocked(old, pinned, false), true
 	}
-	it = &item{key: key, bytes: n, pins: pins, value: value, onEvict: onEvict}
+	it = &item{key: k, bytes: n, value: value, onEvict: onEvict}
 	it.elem = s.lru.PushFront(it)
-	s.items[key] = it
-	return it, false
+	s.items[k] = it
+	return it, s.pinLocked(it, pinned, false), false
 }
 
-// get returns the item under key, marking it used and adding pins pins.
-func (s *store) get(key string, pins int) (*item, bool) {
+// insertDropping is insert for an item whose holders know when it is no
+// longer needed: it is pinned pins times, and the release of the last pin
+// deletes it (without running onEvict).
+func (s *store) insertDropping(k key, n int64, pins int, value any, onEvict func()) (*item, []*pin) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	it, ok := s.items[key]
-	if !ok {
-		return nil, false
+	it := &item{key: k, bytes: n, value: value, onEvict: onEvict}
+	it.elem = s.lru.PushFront(it)
+	s.items[k] = it
+	ps := make([]*pin, pins)
+	for i := range ps {
+		ps[i] = s.pinLocked(it, true, true)
 	}
-	it.pins += pins
-	s.lru.MoveToFront(it.elem)
-	return it, true
+	return it, ps
 }
 
-// unpin removes one pin from it, which may then be evicted.
-func (s *store) unpin(it *item) {
+func (s *store) pinLocked(it *item, pinned, drop bool) *pin {
+	if !pinned {
+		return nil
+	}
+	it.pins++
+	return &pin{s: s, it: it, drop: drop}
+}
+
+// acquire returns the item under k, marked used and pinned.
+func (s *store) acquire(k key) (*item, *pin, bool) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	it, ok := s.items[k]
+	if !ok {
+		return nil, nil, false
+	}
+	s.lru.MoveToFront(it.elem)
+	return it, s.pinLocked(it, true, false), true
+}
+
+// touch marks the item under k used, without pinning it, and returns it.
+func (s *store) touch(k key) (*item, bool) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	it, ok := s.items[k]
+	if ok {
+		s.lru.MoveToFront(it.elem)
+	}
+	return it, ok
+}
+
+// unpin removes one pin from it; with drop, the last pin deletes it.
+func (s *store) unpin(it *item, drop bool) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	if it.pins <= 0 {
-		panic(fmt.Sprintf("api: unpin of unpinned item %s", it.key))
+		panic(fmt.Sprintf("api: unpin of unpinned item %v", it.key))
 	}
 	it.pins--
+	if drop && it.pins == 0 && s.items[it.key] == it {
+		s.removeLocked(it)
+	}
 }
 
 // shrink lowers an item's accounted size (a job's vectors after it ends).
@@ -141,24 +219,24 @@ func (s *store) shrink(it *item, n int64) {
 	if n > it.bytes {
 		panic("api: store.shrink grows an item")
 	}
-	if _, ok := s.items[it.key]; ok {
+	if s.items[it.key] == it {
 		s.used -= it.bytes - n
 	}
 	it.bytes = n
 }
 
-// remove deletes the item under key unless it is pinned. It reports the
+// remove deletes the item under k unless it is pinned. It reports the
 // bytes freed, and ErrInUse for a pinned item.
-func (s *store) remove(key string) (int64, bool, error) {
+func (s *store) remove(k key) (int64, bool, error) {
 	s.mu.Lock()
-	it, ok := s.items[key]
+	it, ok := s.items[k]
 	if !ok {
 		s.mu.Unlock()
 		return 0, false, nil
 	}
 	if pins := it.pins; pins > 0 {
 		s.mu.Unlock()
-		return 0, true, fmt.Errorf("%w: %s is used by %d queued or running jobs", ErrInUse, key, pins)
+		return 0, true, fmt.Errorf("%w: it is used by %d queued or running jobs", ErrInUse, pins)
 	}
 	s.removeLocked(it)
 	n, onEvict := it.bytes, it.onEvict
@@ -169,24 +247,9 @@ func (s *store) remove(key string) (int64, bool, error) {
 	return n, true, nil
 }
 
-// unpinDrop removes one pin from it and, if that was the last, deletes it
-// without running onEvict: for an item whose holders know it is no longer
-// needed, whoever lets go last.
-func (s *store) unpinDrop(it *item) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	if it.pins <= 0 {
-		panic(fmt.Sprintf("api: unpin of unpinned item %s", it.key))
-	}
-	it.pins--
-	if it.pins == 0 && s.items[it.key] == it {
-		s.removeLocked(it)
-	}
-}
-
-// removeWhere deletes the idle items whose keys satisfy match and returns
-// the bytes freed. Pinned ones stay.
-func (s *store) removeWhere(match func(key string) bool) int64 {
+// removeWhere deletes the idle items that match and returns the bytes
+// freed. Pinned ones stay.
+func (s *store) removeWhere(match func(key) bool) int64 {
 	var gone []*item
 	var freed int64
 	s.mu.Lock()
@@ -213,26 +276,27 @@ func (s *store) removeLocked(it *item) {
 	s.used -= it.bytes
 }
 
-// snapshot returns the items whose keys satisfy match, most recently used
-// first, with their pin counts at the time of the call.
-func (s *store) snapshot(match func(key string) bool) (items []*item, pins []int) {
+// entry is an item as snapshot sees it.
+type entry struct {
+	key   key
+	bytes int64
+	pins  int
+	value any
+}
+
+// snapshot returns the items that match, most recently used first, with
+// their sizes and pin counts at the time of the call.
+func (s *store) snapshot(match func(key) bool) []entry {
 	s.mu.Lock()
 	defer s.mu.Unlock()
+	var out []entry
 	for e := s.lru.Front(); e != nil; e = e.Next() {
 		it := e.Value.(*item)
 		if match(it.key) {
-			items = append(items, it)
-			pins = append(pins, it.pins)
+			out = append(out, entry{it.key, it.bytes, it.pins, it.value})
 		}
 	}
-	return items, pins
-}
-
-// size returns an item's accounted bytes.
-func (s *store) size(it *item) int64 {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return it.bytes
+	return out
 }
 
 // usage reports the bytes in use and the budget.
@@ -240,20 +304,6 @@ func (s *store) usage() (used, budget int64) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.used, s.budget
-}
-
-// human formats a byte count for messages.
-func human(n int64) string {
-	const unit = 1024
-	if n < unit {
-		return fmt.Sprintf("%d B", n)
-	}
-	div, exp := int64(unit), 0
-	for m := n / unit; m >= unit && exp < 4; m /= unit {
-		div *= unit
-		exp++
-	}
-	return fmt.Sprintf("%.1f %ciB", float64(n)/float64(div), "KMGTP"[exp])
 }
 
 // available reports the bytes a reservation could get now: the budget less
@@ -268,4 +318,18 @@ func (s *store) available() int64 {
 		}
 	}
 	return s.budget - (s.used - idle)
+}
+
+// human formats a byte count for messages.
+func human(n int64) string {
+	const unit = 1024
+	if n < unit {
+		return fmt.Sprintf("%d B", n)
+	}
+	div, exp := int64(unit), 0
+	for m := n / unit; m >= unit && exp < 4; m /= unit {
+		div *= unit
+		exp++
+	}
+	return fmt.Sprintf("%.1f %ciB", float64(n)/float64(div), "KMGTP"[exp])
 }

@@ -15,27 +15,13 @@ import (
 	"sync/atomic"
 	"time"
 
+	"google.golang.org/protobuf/proto"
+
 	"github.com/residua/residua/matrixio"
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/sparse"
+	"github.com/residua/residua/wire"
 )
-
-// matrixEntry is a stored matrix. Its fields never change after the entry
-// is stored, so jobs read them without locks.
-type matrixEntry struct {
-	a    *sparse.CSR
-	info *pb.Matrix // static description (id, name, sizes, report)
-	// symmetric: A equals Aᵀ within symmetryTol; otherwise asymmetry says
-	// why not, in words.
-	symmetric bool
-	asymmetry string
-	// exactSym: A equals Aᵀ bit for bit, so products by Aᵀ need no
-	// transpose (sparse uses A itself).
-	exactSym bool
-}
-
-func matrixKey(id string) string { return "m:" + id }
-func vectorKey(id string) string { return "v:" + id }
 
 // chunkReader presents the chunks of an upload stream as an io.Reader, so
 // a parser pulls them one at a time as it needs them: only the chunk being
@@ -194,7 +180,7 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	// The content hash and the inspect report each read the whole matrix;
 	// they run side by side.
 	idc := make(chan string, 1)
-	go func() { idc <- matrixID(a) }()
+	go func() { idc <- wire.MatrixID(a) }()
 	e := &matrixEntry{a: a}
 	e.info = &pb.Matrix{
 		Name: name,
@@ -207,7 +193,7 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	}
 	id := <-idc
 	e.info.Id = id
-	it, existed := s.store.insert(matrixKey(id), reserved, 0, e, func() { s.matrixEvicted(id) })
+	it, _, existed := s.store.insert(key{kind: kindMatrix, id: id}, reserved, false, e, func() { s.matrixEvicted(id) })
 	out := cloneMatrix(it.value.(*matrixEntry).info)
 	out.AlreadyStored = existed
 	out.UploadSeconds = time.Since(start).Seconds()
@@ -232,11 +218,6 @@ func (s *Server) uploadFailed(name string, cr *chunkReader, start time.Time, err
 		"bytes_received", cr.n, "duration", time.Since(start).String())
 	return err
 }
-
-// csrBytes is the memory of a CSR with the given sizes (as
-// sparse.CSR.Bytes counts it: int row pointers, int32 columns, float64
-// values).
-func csrBytes(rows, nnz int64) int64 { return 8*(rows+1) + 12*nnz }
 
 // readMatrixMarket parses Matrix Market text with the server's limits
 // checked against the size line before matrixio allocates, then reserves
@@ -265,7 +246,7 @@ func (s *Server) readMatrixMarket(r io.Reader, name string) (*sparse.CSR, int64,
 	if int64(a.NNZ()) > s.cfg.MaxNonzeros {
 		return nil, 0, limitf("%s: %d stored entries after symmetric expansion exceed the server's limit of %d", name, a.NNZ(), s.cfg.MaxNonzeros)
 	}
-	n := csrBytes(int64(a.Rows), int64(a.NNZ()))
+	n := wire.CSRBytes(int64(a.Rows), int64(a.NNZ()))
 	if err := s.store.reserve(n, "matrix "+name); err != nil {
 		return nil, 0, err
 	}
@@ -273,7 +254,8 @@ func (s *Server) readMatrixMarket(r io.Reader, name string) (*sparse.CSR, int64,
 }
 
 // readCSRRaw reads the CSR_RAW encoding (see the .proto): sizes from the
-// metadata, checked and reserved before allocating, then the three arrays.
+// metadata, checked and reserved before allocating, then the three arrays
+// (wire.DecodeCSR, whose errors give the byte offset and the row).
 func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (*sparse.CSR, int64, error) {
 	rows, cols, nnz := meta.GetRows(), meta.GetCols(), meta.GetNonzeros()
 	if rows < 0 || cols < 0 || nnz < 0 {
@@ -288,114 +270,111 @@ func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (
 	if rows*cols < nnz && rows*cols >= 0 {
 		return nil, 0, invalidf("%s: %d entries cannot fit a %d×%d matrix", name, nnz, rows, cols)
 	}
-	total := csrBytes(rows, nnz)
+	total := wire.CSRBytes(rows, nnz)
 	if !meta.GetGzip() && total > s.cfg.MaxUploadBytes {
 		return nil, 0, limitf("%s: the CSR arrays take %d bytes, over the server's upload limit of %d", name, total, s.cfg.MaxUploadBytes)
 	}
 	if err := s.store.reserve(total, "matrix "+name); err != nil {
 		return nil, 0, err
 	}
-	a := &sparse.CSR{Rows: int(rows), Cols: int(cols),
-		RowPtr: make([]int, rows+1), ColIdx: make([]int32, nnz), Val: make([]float64, nnz)}
-	if err := readRawArrays(r, a, name); err != nil {
+	a, err := wire.DecodeCSR(r, int(rows), int(cols), int(nnz))
+	if err != nil {
+		var re *wire.RawError
+		if errors.As(err, &re) {
+			return nil, total, fmt.Errorf("%w: %s: CSR_RAW %w", ErrInvalid, name, err)
+		}
 		return nil, total, err
-	}
-	if err := a.Validate(); err != nil {
-		return nil, total, fmt.Errorf("%s: %w", name, err)
 	}
 	return a, total, nil
 }
 
-// readRawArrays fills a's arrays from little-endian bytes, a buffer at a
-// time, and names the byte offset where the data ran out.
-func readRawArrays(r io.Reader, a *sparse.CSR, name string) error {
-	buf := make([]byte, 1<<20)
-	var off int64
-	nnz := len(a.Val)
-	// next reads the bytes of up to len(buf)/size values starting at value
-	// i of count, and returns them.
-	next := func(i, count, size int) ([]byte, error) {
-		k := min(len(buf)/size, count-i)
-		b := buf[:k*size]
-		if n, err := io.ReadFull(r, b); err != nil {
-			if err == io.EOF || err == io.ErrUnexpectedEOF {
-				return nil, fmt.Errorf("%w: %s: CSR_RAW data ends at byte %d, but the sizes in the metadata need %d bytes: %w",
-					ErrInvalid, name, off+int64(n), csrBytes(int64(a.Rows), int64(nnz)), io.ErrUnexpectedEOF)
-			}
-			return nil, err
-		}
-		off += int64(len(b))
-		return b, nil
+// UploadVector implements the UploadVector RPC (see the .proto).
+func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
+	start := time.Now()
+	if err := s.refuseIfClosing(); err != nil {
+		return err
 	}
-	for i := 0; i <= a.Rows; {
-		b, err := next(i, a.Rows+1, 8)
-		if err != nil {
-			return err
-		}
-		for ; len(b) >= 8; b = b[8:] {
-			v := int64(binary.LittleEndian.Uint64(b))
-			if v < 0 || v > int64(nnz) {
-				v = -1 // Validate reports the bad row pointer
-			}
-			a.RowPtr[i] = int(v)
-			i++
-		}
+	first, err := recvFirst(stream.Recv)
+	if err != nil {
+		return err
 	}
-	for i := 0; i < nnz; {
-		b, err := next(i, nnz, 4)
-		if err != nil {
-			return err
-		}
-		for ; len(b) >= 4; b = b[4:] {
-			a.ColIdx[i] = int32(binary.LittleEndian.Uint32(b))
-			i++
-		}
+	meta := first.GetMetadata()
+	if meta == nil {
+		return invalidf("the first message of a vector upload must carry the metadata")
 	}
-	for i := 0; i < nnz; {
-		b, err := next(i, nnz, 8)
-		if err != nil {
-			return err
-		}
-		for ; len(b) >= 8; b = b[8:] {
-			v := math.Float64frombits(binary.LittleEndian.Uint64(b))
-			if math.IsNaN(v) || math.IsInf(v, 0) {
-				return invalidf("%s: CSR_RAW value %d is not finite (%g)", name, i, v)
-			}
-			a.Val[i] = v
-			i++
-		}
+	n := meta.GetLength()
+	if n < 0 {
+		return invalidf("vector length %d is negative", n)
 	}
-	return nil
-}
-
-// matrixID is the content hash of a: SHA-256 over a version tag, the
-// dimensions and the three arrays in little-endian form, as lowercase hex.
-// Equal matrices have equal ids whatever encoding they arrived in.
-func matrixID(a *sparse.CSR) string {
+	if n > int64(s.cfg.MaxRows) {
+		return limitf("vector of %d entries exceeds the server's limit of %d", n, s.cfg.MaxRows)
+	}
+	if 8*n > s.cfg.MaxUploadBytes {
+		return limitf("vector of %d bytes exceeds the server's upload limit of %d bytes", 8*n, s.cfg.MaxUploadBytes)
+	}
+	if err := s.store.reserve(8*n, "vector "+meta.GetName()); err != nil {
+		return err
+	}
+	x := make([]float64, n)
 	h := sha256.New()
-	h.Write([]byte("residua csr v1\n"))
-	buf := make([]byte, 0, 64<<10)
-	flush := func() { h.Write(buf); buf = buf[:0] }
-	put64 := func(v uint64) {
-		if len(buf)+8 > cap(buf) {
-			flush()
+	var got int64 // bytes received
+	var partial [8]byte
+	np := 0 // bytes of a split entry held in partial
+	fail := func(err error) error {
+		s.store.release(8 * n)
+		s.log.Info("vector upload", "name", meta.GetName(), "outcome", "refused", "error", err.Error(), "bytes_received", got)
+		return err
+	}
+	for {
+		req, err := stream.Recv()
+		if err == io.EOF {
+			break
 		}
-		buf = binary.LittleEndian.AppendUint64(buf, v)
-	}
-	put64(uint64(a.Rows))
-	put64(uint64(a.Cols))
-	for _, p := range a.RowPtr {
-		put64(uint64(p))
-	}
-	for _, c := range a.ColIdx {
-		if len(buf)+4 > cap(buf) {
-			flush()
+		if err != nil {
+			return fail(err)
 		}
-		buf = binary.LittleEndian.AppendUint32(buf, uint32(c))
+		b := req.GetChunk()
+		s.uploaded.Add(int64(len(b)))
+		if req.GetMetadata() != nil {
+			return fail(invalidf("metadata sent twice in one vector upload"))
+		}
+		if got+int64(len(b)) > 8*n {
+			return fail(invalidf("vector upload carries more than the 8·%d bytes its length declares", n))
+		}
+		h.Write(b)
+		for len(b) > 0 {
+			if np > 0 || len(b) < 8 {
+				c := copy(partial[np:], b)
+				np += c
+				b = b[c:]
+				got += int64(c)
+				if np == 8 {
+					x[(got-8)/8] = math.Float64frombits(binary.LittleEndian.Uint64(partial[:]))
+					np = 0
+				}
+				continue
+			}
+			k := len(b) / 8
+			i0 := got / 8
+			for j := 0; j < k; j++ {
+				x[i0+int64(j)] = math.Float64frombits(binary.LittleEndian.Uint64(b[8*j:]))
+			}
+			b = b[8*k:]
+			got += int64(8 * k)
+		}
 	}
-	for _, v := range a.Val {
-		put64(math.Float64bits(v))
+	if got != 8*n {
+		return fail(invalidf("vector upload ended after %d of the %d bytes its length declares", got, 8*n))
 	}
-	flush()
-	return hex.EncodeToString(h.Sum(nil))
+	for i, v := range x {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fail(invalidf("vector entry %d is not finite (%g)", i, v))
+		}
+	}
+	id := hex.EncodeToString(h.Sum(nil))
+	info := &pb.VectorInfo{Id: id, Length: n, Name: meta.GetName()}
+	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, 8*n, false, &vectorEntry{x: x, info: info}, nil)
+	s.log.Info("vector upload", "vector", id, "name", meta.GetName(), "outcome", "stored", "already_stored", existed,
+		"length", n, "duration", time.Since(start).String())
+	return stream.SendAndClose(proto.Clone(it.value.(*vectorEntry).info).(*pb.VectorInfo))
 }

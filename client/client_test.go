@@ -7,7 +7,6 @@ import (
 	"math"
 	"net"
 	"reflect"
-	"slices"
 	"testing"
 
 	"go.uber.org/goleak"
@@ -18,28 +17,12 @@ import (
 
 	"github.com/residua/residua/api"
 	"github.com/residua/residua/client"
+	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
 )
-
-// TestPackLayout checks the wire form of vectors against IEEE 754
-// binary64: 1.0 is 0x3FF0000000000000 and −2.0 is 0xC000000000000000,
-// sent least significant byte first.
-func TestPackLayout(t *testing.T) {
-	got := client.Pack([]float64{1, -2})
-	want := []byte{0, 0, 0, 0, 0, 0, 0xf0, 0x3f, 0, 0, 0, 0, 0, 0, 0, 0xc0}
-	if !slices.Equal(got, want) {
-		t.Fatalf("Pack = % x, want % x", got, want)
-	}
-	x := []float64{math.Pi, math.Copysign(0, -1), math.SmallestNonzeroFloat64, math.MaxFloat64}
-	back, err := client.Unpack(client.Pack(x))
-	if err != nil || !slices.EqualFunc(back, x, func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) }) {
-		t.Fatalf("round trip %v, %v", back, err)
-	}
-	if _, err := client.Unpack(make([]byte, 9)); err == nil {
-		t.Fatalf("Unpack of 9 bytes succeeded")
-	}
-}
 
 // server starts an api server on bufconn and returns a client with the
 // given options; both stop at the end of the test, which then checks for
@@ -92,8 +75,8 @@ func TestLargeVectors(t *testing.T) {
 	for i := range b {
 		b[i] = float64(i%11) - 5
 	}
-	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Precond: "ic0",
-		RTol: 1e-6, KeepSolution: true, Label: "big"}, nil)
+	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b},
+		Request: solve.Request{Preconditioner: "ic0", RelTol: 1e-6}, KeepSolution: true, Label: "big"}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -124,7 +107,7 @@ func TestLargeVectors(t *testing.T) {
 		t.Errorf("Job: %v, %v", job, err)
 	}
 	w, err := c.Watch(ctx, out.JobID, nil)
-	if err != nil || !reflect.DeepEqual(w.Results[0], out.Results[0]) || w.State != "FINISHED" {
+	if err != nil || !reflect.DeepEqual(w.Results[0], out.Results[0]) || w.State != solve.Done || w.Outcome != solve.Converged {
 		t.Errorf("Watch of the finished job: %+v, %v", w, err)
 	}
 	if n, err := c.DeleteMatrix(ctx, m.GetId()); err != nil || n < a.Bytes() {
@@ -138,5 +121,58 @@ func TestLargeVectors(t *testing.T) {
 func TestKeepaliveMatched(t *testing.T) {
 	if client.KeepaliveTime < api.KeepaliveMinTime {
 		t.Fatalf("client pings every %v, the server permits every %v at most", client.KeepaliveTime, api.KeepaliveMinTime)
+	}
+}
+
+// TestLongSolution moves a solution of 10⁶ entries, eight chunks of the
+// server's default size, both ways a client gets it (streamed, and
+// downloaded after a detached solve), and checks it bitwise against the
+// same solve run here: a solution cut short anywhere must not pass
+// (issue 17's truncated-solution survivor).
+func TestLongSolution(t *testing.T) {
+	if testing.Short() {
+		t.Skip("a 10⁶-unknown solve")
+	}
+	c := server(t, api.Config{})
+	ctx := context.Background()
+	a := stencil.Poisson3D(100)
+	m, err := c.UploadCSR(ctx, a, "p100")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := stencil.Ones(a)
+	req := solve.Request{Preconditioner: "jacobi", RelTol: 1e-3}
+	streamed, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Request: req}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	det, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Request: req, Detach: true}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := c.Watch(ctx, det.JobID, nil); err != nil {
+		t.Fatal(err)
+	}
+	downloaded, err := c.DownloadSolution(ctx, det.JobID, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	j, err := precond.NewJacobi(a)
+	if err != nil {
+		t.Fatal(err)
+	}
+	local := make([]float64, a.Rows)
+	if _, err := krylov.CG(ctx, a, b, local, j, krylov.Settings{RelTol: 1e-3}); err != nil {
+		t.Fatal(err)
+	}
+	for name, x := range map[string][]float64{"streamed": streamed.X[0], "downloaded": downloaded} {
+		if len(x) != len(local) {
+			t.Fatalf("%s: %d entries, want %d", name, len(x), len(local))
+		}
+		for i := range x {
+			if math.Float64bits(x[i]) != math.Float64bits(local[i]) {
+				t.Fatalf("%s: entry %d is %v, the local solve's %v", name, i, x[i], local[i])
+			}
+		}
 	}
 }

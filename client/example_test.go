@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"github.com/residua/residua/client"
+	"github.com/residua/residua/solve"
 )
 
 // A simulation code uploads its stiffness matrix once, then solves a load
@@ -29,22 +30,21 @@ func ExampleClient_Solve() {
 		for i := range load {
 			load[i] = float64(step + 1)
 		}
-		req := client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{load}, Precond: "auto",
-			RTol: 1e-10, ProgressInterval: time.Second}
+		req := client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{load},
+			Request: solve.Request{RelTol: 1e-10}, ProgressInterval: time.Second}
 		if x != nil {
 			req.X0 = [][]float64{x}
 		}
 		out, err := c.Solve(ctx, req, func(e client.Event) {
 			if p := e.Progress; p != nil {
-				fmt.Printf("step %d: iteration %d, relative residual %.2e\n", step, p.GetIteration(), p.GetRelativeResidual())
+				fmt.Printf("step %d: iteration %d, relative residual %.2e\n", step, p.Iteration, p.RelResidual)
 			}
 		})
 		if err != nil {
 			log.Fatal(err)
 		}
 		r := out.Results[0]
-		fmt.Printf("step %d: %s after %d iterations (preconditioner %s, from cache %v)\n",
-			step, r.Status, r.Iterations, r.Preconditioner, r.FromCache)
+		fmt.Printf("step %d: %s\n", step, r.Headline)
 		x = out.X[0]
 	}
 }

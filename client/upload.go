@@ -2,17 +2,19 @@ package client
 
 import (
 	"context"
-	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
-	"math"
 	"os"
 	"path/filepath"
 	"strings"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/sparse"
+	"github.com/residua/residua/wire"
 )
 
 // UploadOptions describe a Matrix Market upload from a reader.
@@ -78,32 +80,32 @@ func (c *Client) UploadCSR(ctx context.Context, a *sparse.CSR, name string) (*pb
 	nnz := len(a.Val)
 	meta := &pb.UploadMetadata{Name: name, Encoding: pb.MatrixEncoding_CSR_RAW,
 		Rows: int64(a.Rows), Cols: int64(a.Cols), Nonzeros: int64(nnz),
-		TotalBytes: 8*int64(a.Rows+1) + 12*int64(nnz)}
+		TotalBytes: wire.CSRBytes(int64(a.Rows), int64(nnz))}
 	return c.upload(ctx, meta, func(send func([]byte) error) error {
-		w := &chunkWriter{size: c.chunk, send: send}
-		for rest := a.RowPtr; len(rest) > 0 && w.err == nil; {
-			k := w.room(8, len(rest))
-			for _, p := range rest[:k] {
-				w.buf = binary.LittleEndian.AppendUint64(w.buf, uint64(p))
-			}
-			rest = rest[k:]
-		}
-		for rest := a.ColIdx; len(rest) > 0 && w.err == nil; {
-			k := w.room(4, len(rest))
-			for _, j := range rest[:k] {
-				w.buf = binary.LittleEndian.AppendUint32(w.buf, uint32(j))
-			}
-			rest = rest[k:]
-		}
-		for rest := a.Val; len(rest) > 0 && w.err == nil; {
-			k := w.room(8, len(rest))
-			for _, v := range rest[:k] {
-				w.buf = binary.LittleEndian.AppendUint64(w.buf, math.Float64bits(v))
-			}
-			rest = rest[k:]
-		}
-		return w.flush()
+		return wire.EncodeCSR(a, c.chunk, send)
 	})
+}
+
+// EnsureCSR makes sure the server holds a: it computes a's id (the content
+// hash, wire.MatrixID) and asks the server (GetMatrix), uploading a in the
+// CSR_RAW encoding only when the server does not hold it. uploaded says
+// whether it did.
+func (c *Client) EnsureCSR(ctx context.Context, a *sparse.CSR, name string) (m *pb.Matrix, uploaded bool, err error) {
+	m, err = c.Matrix(ctx, wire.MatrixID(a))
+	if err == nil {
+		return m, false, nil
+	}
+	if status.Code(err) != codes.NotFound {
+		return nil, false, err
+	}
+	m, err = c.UploadCSR(ctx, a, name)
+	return m, err == nil, err
+}
+
+// Matrix describes a stored matrix; NOT_FOUND when the server does not
+// hold it.
+func (c *Client) Matrix(ctx context.Context, id string) (*pb.Matrix, error) {
+	return c.rpc.GetMatrix(ctx, &pb.GetMatrixRequest{Id: id})
 }
 
 // UploadVector stores a vector on the server (for right-hand sides and
@@ -117,17 +119,11 @@ func (c *Client) UploadVector(ctx context.Context, x []float64, name string) (*p
 		Metadata: &pb.VectorMetadata{Length: int64(len(x)), Name: name}}}); err != nil {
 		return nil, closeAndRecvErr(stream, err)
 	}
-	w := &chunkWriter{size: c.chunk, send: func(b []byte) error {
+	w := &wire.Chunker{Size: c.chunk, Send: func(b []byte) error {
 		return stream.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Chunk{Chunk: b}})
 	}}
-	for rest := x; len(rest) > 0 && w.err == nil; {
-		k := w.room(8, len(rest))
-		for _, v := range rest[:k] {
-			w.buf = binary.LittleEndian.AppendUint64(w.buf, math.Float64bits(v))
-		}
-		rest = rest[k:]
-	}
-	if err := w.flush(); err != nil {
+	w.Float64s(x)
+	if err := w.Flush(); err != nil {
 		return nil, closeAndRecvErr(stream, err)
 	}
 	return stream.CloseAndRecv()
@@ -163,39 +159,4 @@ func closeAndRecvErr[T any](stream interface{ CloseAndRecv() (T, error) }, err e
 		return fmt.Errorf("client: the server closed the upload early")
 	}
 	return err
-}
-
-// chunkWriter packs little-endian values into chunks of about a fixed
-// size and sends each full one. A fresh buffer is used per chunk, because
-// gRPC may hold a sent message's bytes after Send returns.
-type chunkWriter struct {
-	size int
-	send func([]byte) error
-	buf  []byte
-	err  error
-}
-
-// room makes space in the current chunk for up to want values of size
-// bytes, sending the chunk first if it has no room for one, and returns
-// how many fit (at least one).
-func (w *chunkWriter) room(size, want int) int {
-	if len(w.buf)+size > w.size && len(w.buf) > 0 {
-		w.emit()
-	}
-	if w.buf == nil {
-		w.buf = make([]byte, 0, max(w.size, size))
-	}
-	return max(1, min(want, (cap(w.buf)-len(w.buf))/size))
-}
-
-func (w *chunkWriter) emit() {
-	if w.err == nil && len(w.buf) > 0 {
-		w.err = w.send(w.buf)
-	}
-	w.buf = nil
-}
-
-func (w *chunkWriter) flush() error {
-	w.emit()
-	return w.err
 }

@@ -51,10 +51,24 @@ func ReadBundleRHS(path string, opt *Options) ([]float64, Info, error) {
 	return ReadVectorFile(path, opt)
 }
 
+// bundleSuffixes are the file name endings of a collection bundle.
+var bundleSuffixes = []string{".tar.gz", ".tgz", ".tar"}
+
+// IsBundle reports whether path names a collection bundle NAME.tar.gz
+// (also .tgz or .tar), which holds NAME/NAME.mtx and perhaps NAME_b.mtx.
+func IsBundle(path string) bool {
+	for _, ext := range bundleSuffixes {
+		if strings.HasSuffix(path, ext) {
+			return true
+		}
+	}
+	return false
+}
+
 // bundleName returns NAME for a path ending in NAME.tar.gz or NAME.tgz.
 func bundleName(path string) string {
 	base := filepath.Base(path)
-	for _, ext := range []string{".tar.gz", ".tgz", ".tar"} {
+	for _, ext := range bundleSuffixes {
 		if strings.HasSuffix(base, ext) {
 			return strings.TrimSuffix(base, ext)
 		}

@@ -50,20 +50,22 @@ type Request struct {
 // FieldError is a request setting that Validate refused. Field is the
 // setting's stable snake-case name ("rtol", "max_iter", "preconditioner",
 // ...), which the command line shows as a flag (--rtol, --max-iter) and the
-// server as the request field.
+// server as the request field; Err says why. errors.Is(err, ErrInvalid)
+// holds for every FieldError.
 type FieldError struct {
 	Field string
 	Err   error
 }
 
-func (e *FieldError) Error() string { return e.Field + ": " + e.Err.Error() }
-func (e *FieldError) Unwrap() error { return e.Err }
+func (e *FieldError) Error() string        { return e.Field + ": " + e.Err.Error() }
+func (e *FieldError) Unwrap() error        { return e.Err }
+func (e *FieldError) Is(target error) bool { return target == ErrInvalid }
 
-// ErrInvalid is wrapped by every FieldError.
+// ErrInvalid: a request setting was refused (see FieldError).
 var ErrInvalid = errors.New("invalid setting")
 
 func fieldErr(field, format string, args ...any) error {
-	return &FieldError{Field: field, Err: fmt.Errorf("%w: "+format, append([]any{ErrInvalid}, args...)...)}
+	return &FieldError{Field: field, Err: fmt.Errorf(format, args...)}
 }
 
 // Validate checks r and returns it normalised: Method resolved from Auto to
@@ -74,7 +76,7 @@ func fieldErr(field, format string, args ...any) error {
 func (r Request) Validate() (Request, error) {
 	m, err := ParseMethod(string(r.Method))
 	if err != nil {
-		return r, &FieldError{Field: "method", Err: fmt.Errorf("%w: %v", ErrInvalid, err)}
+		return r, &FieldError{Field: "method", Err: err}
 	}
 	if m.LeastSquares() {
 		r.LeastSquares = true
@@ -93,10 +95,10 @@ func (r Request) Validate() (Request, error) {
 	}
 	if r.LeastSquares {
 		if _, err := krylov.ParseScaling(r.Preconditioner); err != nil {
-			return r, &FieldError{Field: "preconditioner", Err: fmt.Errorf("%w: %v", ErrInvalid, err)}
+			return r, &FieldError{Field: "preconditioner", Err: err}
 		}
 	} else if _, err := precond.ParseKind(r.Preconditioner); err != nil {
-		return r, &FieldError{Field: "preconditioner", Err: fmt.Errorf("%w: %v", ErrInvalid, trimPackage(err))}
+		return r, &FieldError{Field: "preconditioner", Err: trimPackage(err)}
 	}
 	for _, f := range []struct {
 		name string
@@ -190,13 +192,14 @@ func Symmetry(r sparse.Report) (bool, string) {
 	case r.WorstPair != nil:
 		w := r.WorstPair
 		return false, fmt.Sprintf("is not symmetric: a(%d,%d) = %s but a(%d,%d) = %s",
-			w.Row+1, w.Col+1, shortFloat(w.Aij), w.Col+1, w.Row+1, shortFloat(w.Aji))
+			w.Row+1, w.Col+1, ShortFloat(w.Aij), w.Col+1, w.Row+1, ShortFloat(w.Aji))
 	}
 	return false, "is not symmetric"
 }
 
-// applies checks that the (validated) request's method can solve m.
-func (r Request) applies(m Matrix) error {
+// Applies checks that the (validated) request's method can solve m, with
+// errors wrapping ErrNotSquare or ErrNotSymmetric.
+func (r Request) Applies(m Matrix) error {
 	if r.LeastSquares {
 		return nil
 	}

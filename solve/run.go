@@ -49,7 +49,7 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 	if err != nil {
 		return nil, err
 	}
-	if err := req.applies(m); err != nil {
+	if err := req.Applies(m); err != nil {
 		return nil, err
 	}
 	s := &Setup{Request: req, Matrix: m}
@@ -83,7 +83,7 @@ func (s *Setup) Bytes() int64 {
 // wrong length.
 func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Recorder) (Summary, error) {
 	a, req := s.Matrix.A, s.Request
-	sum := s.base()
+	sum := s.Summary()
 	var res krylov.Result
 	var err error
 	if req.LeastSquares {
@@ -109,8 +109,10 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 	return sum, err
 }
 
-// base is the summary's part that the set-up decides.
-func (s *Setup) base() Summary {
+// Summary returns the part of a solve's summary that the set-up decides:
+// the matrix, the method, the preconditioner (or scaling) and why, its
+// shift, memory and set-up time. A server announces it before iterating.
+func (s *Setup) Summary() Summary {
 	a := s.Matrix.A
 	sum := Summary{Matrix: s.Matrix.Name, Rows: a.Rows, Cols: a.Cols, Nonzeros: a.NNZ(), Method: string(s.Request.Method)}
 	if s.Request.LeastSquares {

@@ -79,11 +79,13 @@ type Summary struct {
 	// with several.
 	RHSIndex int `json:"rhs_index"`
 
-	// Remote solves only.
-	Server    string `json:"server,omitempty"`
-	JobID     string `json:"job_id,omitempty"`
-	MatrixID  string `json:"matrix_id,omitempty"`
-	FromCache *bool  `json:"preconditioner_from_cache,omitempty"`
+	// Remote solves only. MatrixUploaded says whether this solve sent the
+	// matrix (false: the server already held it, by its content hash).
+	Server         string `json:"server,omitempty"`
+	JobID          string `json:"job_id,omitempty"`
+	MatrixID       string `json:"matrix_id,omitempty"`
+	MatrixUploaded *bool  `json:"matrix_uploaded,omitempty"`
+	FromCache      *bool  `json:"preconditioner_from_cache,omitempty"`
 
 	// Outcome. Status is an Outcome word; Converged is Status ==
 	// "converged"; Headline says it all in one sentence.
@@ -244,8 +246,8 @@ func Sci(v float64) string {
 	return strings.Replace(strconv.FormatFloat(v, 'e', 2, 64), "e-0", "e-", 1)
 }
 
-// shortFloat formats a matrix entry in the fewest digits that read back.
-func shortFloat(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
+// ShortFloat formats a matrix entry in the fewest digits that read back.
+func ShortFloat(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
 
 // fmtDuration formats seconds as a short duration for sentences.
 func fmtDuration(sec float64) string {

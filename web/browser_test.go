@@ -2,6 +2,7 @@ package web
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"io"
 	"log/slog"
@@ -10,6 +11,7 @@ import (
 	"net/http/httptest"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 	"time"
 
@@ -18,6 +20,7 @@ import (
 	"github.com/residua/residua/api"
 	"github.com/residua/residua/client"
 	"github.com/residua/residua/metrics"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse/stencil"
 )
 
@@ -44,8 +47,10 @@ func TestBrowser(t *testing.T) {
 	start := time.Now()
 	phase := func(what string) { t.Logf("%5.1fs %s", time.Since(start).Seconds(), what) }
 
-	// The service, on a loopback port.
-	srv, err := api.NewServer(api.Config{Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), MaxConcurrentSolves: 2})
+	// The service, on a loopback port, counting into the metrics the page
+	// serves.
+	m := metrics.New()
+	srv, err := api.NewServer(api.Config{Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), MaxConcurrentSolves: 2, Observer: m})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -72,7 +77,7 @@ func TestBrowser(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, err := cl.Solve(ctx, client.SolveRequest{MatrixID: ms.GetId(), B: [][]float64{stencil.Ones(small)}, Precond: "jacobi", ProgressEvery: 1}, nil); err != nil {
+	if _, err := cl.Solve(ctx, client.SolveRequest{MatrixID: ms.GetId(), B: [][]float64{stencil.Ones(small)}, ProgressEvery: 1, Request: solve.Request{Preconditioner: "jacobi"}}, nil); err != nil {
 		t.Fatal(err)
 	}
 	slow := stencil.Jump3D(60, stencil.DefaultContrast)
@@ -80,8 +85,7 @@ func TestBrowser(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	out, err := cl.Solve(ctx, client.SolveRequest{MatrixID: mj.GetId(), B: [][]float64{stencil.Ones(slow)}, Precond: "none",
-		RTol: 1e-14, Detach: true, ProgressInterval: 100 * time.Millisecond}, nil)
+	out, err := cl.Solve(ctx, client.SolveRequest{MatrixID: mj.GetId(), B: [][]float64{stencil.Ones(slow)}, Detach: true, ProgressInterval: 100 * time.Millisecond, Request: solve.Request{Preconditioner: "none", RelTol: 1e-14}}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -89,7 +93,6 @@ func TestBrowser(t *testing.T) {
 	phase("solves started")
 	defer cl.Cancel(context.Background(), slowID)
 
-	m := metrics.New()
 	page := New(FromRegistry(srv.Registry()), Options{Metrics: m})
 	defer page.Close()
 	hs := httptest.NewServer(page)
@@ -156,8 +159,24 @@ func TestBrowser(t *testing.T) {
 	smallID := jobs[len(jobs)-1].GetId()
 	// Jacobi-CG on the 24×24 Poisson matrix takes 46 iterations to 1e-8,
 	// and the page has them all.
-	if done := read(smallID); done.State != "converged" || done.CurvePoints != 47 {
+	done := read(smallID)
+	if done.State != "converged" || done.CurvePoints != 47 {
 		t.Errorf("converged job's card: %+v", done)
+	}
+	// What a person reads on the card is what the job's JSON says: the
+	// iteration and the relative residual in the page's formats (the
+	// JavaScript Number's toExponential(2), which for these values is Go's
+	// %.2e), and the outcome as the state.
+	var js Job
+	body, _ := getBody(t, hs.URL+"/api/jobs/"+smallID)
+	if err := json.Unmarshal([]byte(body), &js); err != nil {
+		t.Fatal(err)
+	}
+	wantRes := fmt.Sprintf("%.2e", float64(*js.RelResidual))
+	wantRes = strings.Replace(strings.Replace(wantRes, "e-0", "e-", 1), "e+0", "e+", 1)
+	if done.Iteration != fmt.Sprint(js.Iteration) || !strings.HasPrefix(done.Residual, wantRes+" ") || done.State != js.StateText || js.Iteration != 46 {
+		t.Errorf("the card reads iteration %q, residual %q, state %q; the JSON says %d, %s, %q",
+			done.Iteration, done.Residual, done.State, js.Iteration, wantRes, js.StateText)
 	}
 
 	dir := os.Getenv("RESIDUA_ARTIFACTS")
@@ -199,16 +218,22 @@ func TestBrowser(t *testing.T) {
 	// /metrics, parsed with the Prometheus client library's text parser,
 	// has counted both jobs from the registry: one converged, one
 	// cancelled, and the iterations of both.
-	res, err := http.Get(hs.URL + "/metrics")
-	if err != nil {
-		t.Fatal(err)
-	}
-	body, _ := io.ReadAll(res.Body)
-	res.Body.Close()
-	got := parseMetrics(t, string(body))
+	body, _ = getBody(t, hs.URL+"/metrics")
+	got := parseMetrics(t, body)
 	if got["residua_solves_started_total"] != 2 || got[`residua_solves_finished_total{outcome="converged"}`] != 1 ||
 		got[`residua_solves_finished_total{outcome="cancelled"}`] != 1 || got["residua_iterations_total"] < 46 ||
 		got["residua_solve_duration_seconds_count"] != 2 {
 		t.Errorf("metrics after the solves: %v", got)
 	}
+}
+
+func getBody(t *testing.T, url string) (string, http.Header) {
+	t.Helper()
+	res, err := http.Get(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	b, _ := io.ReadAll(res.Body)
+	return string(b), res.Header
 }

@@ -1,27 +1,30 @@
 package web
 
 import (
-	"context"
-	"io"
+	"errors"
 	"math"
 	"sync"
+	"time"
 
-	pb "github.com/residua/residua/proto/residua/v1"
 	"google.golang.org/protobuf/proto"
+
+	"github.com/residua/residua/history"
+	"github.com/residua/residua/krylov"
+	pb "github.com/residua/residua/proto/residua/v1"
 )
 
 // fakeSource is a job registry in memory, behaving as api.Registry does
-// for the page: snapshots newest first, and subscriptions that replay the
-// events so far and then follow the live ones.
+// for the page: snapshots newest first, and each job's histories with a
+// version that changes with them.
 type fakeSource struct {
 	mu      sync.Mutex
 	jobs    []*pb.Job // newest first
-	events  map[string][]*pb.JobEvent
-	changed chan struct{}
+	rows    map[string][][]krylov.Progress
+	version map[string]uint64
 }
 
 func newFakeSource() *fakeSource {
-	return &fakeSource{events: map[string][]*pb.JobEvent{}, changed: make(chan struct{})}
+	return &fakeSource{rows: map[string][][]krylov.Progress{}, version: map[string]uint64{}}
 }
 
 func (f *fakeSource) Jobs() []*pb.Job {
@@ -34,48 +37,26 @@ func (f *fakeSource) Jobs() []*pb.Job {
 	return out
 }
 
-func (f *fakeSource) Subscribe(id string) (Events, error) {
-	return &fakeEvents{f: f, id: id}, nil
-}
-
-type fakeEvents struct {
-	f    *fakeSource
-	id   string
-	next int
-}
-
-func (e *fakeEvents) Next(ctx context.Context) (*pb.JobEvent, error) {
-	for {
-		e.f.mu.Lock()
-		evs := e.f.events[e.id]
-		ch := e.f.changed
-		if e.next < len(evs) {
-			ev := evs[e.next]
-			e.next++
-			e.f.mu.Unlock()
-			return ev, nil
-		}
-		if n := len(evs); n > 0 && evs[n-1].GetFinished() != nil {
-			e.f.mu.Unlock()
-			return nil, io.EOF
-		}
-		e.f.mu.Unlock()
-		select {
-		case <-ch:
-		case <-ctx.Done():
-			return nil, ctx.Err()
+func (f *fakeSource) History(id string) ([]history.History, uint64, error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	for _, j := range f.jobs {
+		if j.GetId() == id {
+			out := make([]history.History, len(f.rows[id]))
+			for i, r := range f.rows[id] {
+				out[i] = history.History{Rows: append([]krylov.Progress(nil), r...), LeastSquares: j.GetMethod() == "lsqr"}
+			}
+			return out, f.version[id], nil
 		}
 	}
+	return nil, 0, errors.New("no job " + id)
 }
 
-func (e *fakeEvents) Close() {}
-
-// change runs fn under the lock and wakes the subscribers.
-func (f *fakeSource) change(fn func()) {
+// change runs fn under the lock.
+func (f *fakeSource) change(id string, fn func()) {
 	f.mu.Lock()
 	fn()
-	close(f.changed)
-	f.changed = make(chan struct{})
+	f.version[id]++
 	f.mu.Unlock()
 }
 
@@ -89,15 +70,15 @@ func (f *fakeSource) job(id string) *pb.Job {
 }
 
 func (f *fakeSource) add(j *pb.Job) {
-	f.change(func() {
+	f.change(j.Id, func() {
 		j.State = pb.JobState_QUEUED
 		f.jobs = append([]*pb.Job{j}, f.jobs...)
-		f.events[j.Id] = append(f.events[j.Id], &pb.JobEvent{JobId: j.Id, Event: &pb.JobEvent_Queued{Queued: &pb.Queued{}}})
+		f.rows[j.Id] = make([][]krylov.Progress, max(1, j.RhsCount))
 	})
 }
 
 func (f *fakeSource) start(id string, startedUnix float64) {
-	f.change(func() {
+	f.change(id, func() {
 		j := f.job(id)
 		j.State = pb.JobState_RUNNING
 		j.StartedUnix = startedUnix
@@ -105,36 +86,35 @@ func (f *fakeSource) start(id string, startedUnix float64) {
 }
 
 // progress records iterations from..to of a residual falling by rho per
-// iteration (made-up rows for the page's tests), 10 ms per iteration.
+// iteration (made-up rows for the page's tests), 10 ms per iteration; the
+// job's last progress is the last of them.
 func (f *fakeSource) progress(id string, rhs, from, to int, rho float64) {
-	f.change(func() {
+	f.change(id, func() {
 		j := f.job(id)
 		for k := from; k <= to; k++ {
 			r := math.Pow(rho, float64(k))
-			p := &pb.Progress{Rhs: int32(rhs), Iteration: int64(k), ElapsedSeconds: float64(k) / 100, ResidualNorm: 2 * r, RelativeResidual: r}
-			j.LastProgress = p
-			f.events[id] = append(f.events[id], &pb.JobEvent{JobId: id, Event: &pb.JobEvent_Progress{Progress: p}})
+			p := krylov.Progress{Iteration: k, Elapsed: time.Duration(k) * 10 * time.Millisecond, ResidualNorm: 2 * r, RelResidual: r, NormalResidualNorm: r / 4}
+			f.rows[id][rhs] = append(f.rows[id][rhs], p)
+			j.LastProgress = &pb.Progress{Rhs: int32(rhs), Iteration: int64(k), ElapsedSeconds: p.Elapsed.Seconds(), ResidualNorm: 2 * r, RelativeResidual: r, NormalResidualNorm: r / 4}
 		}
 	})
 }
 
-func (f *fakeSource) finish(id string, state pb.JobState, status string, finishedUnix float64) {
-	f.change(func() {
+func (f *fakeSource) finish(id, outcome string, finishedUnix float64) {
+	f.change(id, func() {
 		j := f.job(id)
-		j.State = state
+		j.State = pb.JobState_DONE
+		j.Outcome = outcome
 		j.FinishedUnix = finishedUnix
-		if status != "" {
-			r := &pb.SolveResult{Status: status, Converged: status == "converged", Iterations: j.GetLastProgress().GetIteration()}
-			j.Results = append(j.Results, r)
-			j.RhsDone++
-			f.events[id] = append(f.events[id], &pb.JobEvent{JobId: id, Event: &pb.JobEvent_Result{Result: r}})
-		}
-		f.events[id] = append(f.events[id], &pb.JobEvent{JobId: id, Event: &pb.JobEvent_Finished{Finished: &pb.Finished{State: state, ElapsedSeconds: finishedUnix - j.GetCreatedUnix()}}})
+		r := &pb.SolveResult{Status: outcome, Converged: outcome == "converged", Iterations: j.GetLastProgress().GetIteration(),
+			Headline: outcome + " after " + "some iterations"}
+		j.Results = append(j.Results, r)
+		j.RhsDone++
 	})
 }
 
 func (f *fakeSource) forget(id string) {
-	f.change(func() {
+	f.change(id, func() {
 		for i, j := range f.jobs {
 			if j.GetId() == id {
 				f.jobs = append(f.jobs[:i], f.jobs[i+1:]...)

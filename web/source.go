@@ -1,9 +1,8 @@
 package web
 
 import (
-	"context"
-
 	"github.com/residua/residua/api"
+	"github.com/residua/residua/history"
 	pb "github.com/residua/residua/proto/residua/v1"
 )
 
@@ -12,32 +11,12 @@ import (
 type Source interface {
 	// Jobs returns a snapshot of every job, newest first.
 	Jobs() []*pb.Job
-	// Subscribe follows one job's events: first those recorded so far,
-	// then the live ones, ending with the finished event.
-	Subscribe(id string) (Events, error)
-}
-
-// Events is one subscription to a job's events.
-type Events interface {
-	// Next returns the next event, waiting for it; io.EOF after the
-	// finished event.
-	Next(ctx context.Context) (*pb.JobEvent, error)
-	// Close ends the subscription.
-	Close()
+	// History returns the full history of each of a job's right-hand
+	// sides, as the server records it (every iteration, thinned evenly
+	// past a budget), and a version that changes whenever the job does.
+	History(id string) ([]history.History, uint64, error)
 }
 
 // FromRegistry returns the Source that reads the gRPC service's job
 // registry.
-func FromRegistry(r *api.Registry) Source { return registrySource{r} }
-
-type registrySource struct{ r *api.Registry }
-
-func (s registrySource) Jobs() []*pb.Job { return s.r.Jobs() }
-
-func (s registrySource) Subscribe(id string) (Events, error) {
-	sub, err := s.r.Subscribe(id)
-	if err != nil {
-		return nil, err
-	}
-	return sub, nil
-}
+func FromRegistry(r *api.Registry) Source { return r }

@@ -8,11 +8,12 @@ import (
 	"errors"
 	"fmt"
 	"io/fs"
-	"math"
 	"net"
 	"net/http"
 	"strconv"
 	"time"
+
+	"gonum.org/v1/plot/vg"
 
 	"github.com/residua/residua/chart"
 	"github.com/residua/residua/history"
@@ -20,7 +21,8 @@ import (
 	"github.com/residua/residua/metrics"
 	"github.com/residua/residua/monitor"
 	pb "github.com/residua/residua/proto/residua/v1"
-	"gonum.org/v1/plot/vg"
+	"github.com/residua/residua/solve"
+	"github.com/residua/residua/wire"
 )
 
 //go:embed static
@@ -28,10 +30,8 @@ var static embed.FS
 
 // Options control a Server. The zero value works.
 type Options struct {
-	// Metrics, when set, is served at /metrics, and the page counts the
-	// jobs it follows into it: solves started, finished by outcome, their
-	// durations and iterations (see package metrics). The service itself
-	// only reports the bytes it receives and stores.
+	// Metrics, when set, is served at /metrics. The service counts into
+	// it (api.Config.Observer), whether the page runs or not.
 	Metrics *metrics.Metrics
 	// Poll is how often the job list is read. Default 250 ms.
 	Poll time.Duration
@@ -62,7 +62,7 @@ func New(src Source, opt Options) *Server {
 	if opt.Now == nil {
 		opt.Now = time.Now
 	}
-	s := &Server{opt: opt, t: newTracker(src, opt.Poll, opt.Metrics), mux: http.NewServeMux()}
+	s := &Server{opt: opt, t: newTracker(src, opt.Poll), mux: http.NewServeMux()}
 	sub, _ := fs.Sub(static, "static")
 	files := http.FileServerFS(sub)
 	s.mux.Handle("GET /{$}", files)
@@ -114,45 +114,49 @@ func Serve(ctx context.Context, lis net.Listener, h http.Handler, grace time.Dur
 	return nil
 }
 
-// Job is how the JSON endpoints describe a job. Numbers that do not exist
-// yet (no progress, no estimate) are null.
+// Job is how the JSON endpoints describe a job. A number that does not
+// exist yet (no progress, no estimate) is null; a NaN or infinite one is
+// the string "NaN", "+Inf" or "-Inf", as in every JSON residua writes.
 type Job struct {
 	ID    string `json:"id"`
 	Label string `json:"label,omitempty"`
-	// State is queued, running, finished, failed or cancelled.
-	State string `json:"state"`
-	// StateText says the state in words a person reads: "queued",
-	// "running", "converged", "stopped: iteration-limit", "failed",
-	// "cancelled". Outcome is the status of the last finished right-hand
-	// side that did not converge, or "converged" (empty while none has
-	// finished).
-	StateText      string   `json:"state_text"`
-	Outcome        string   `json:"outcome,omitempty"`
-	Matrix         string   `json:"matrix"`
-	MatrixID       string   `json:"matrix_id"`
-	Rows           int64    `json:"rows"`
-	Nonzeros       int64    `json:"nonzeros"`
-	Method         string   `json:"method"`
-	Preconditioner string   `json:"preconditioner"`
-	RHSCount       int32    `json:"rhs_count"`
-	RHSDone        int32    `json:"rhs_done"`
-	RHS            int32    `json:"rhs"`
-	Iteration      int64    `json:"iteration"`
-	RelResidual    *float64 `json:"relative_residual"`
-	Tolerance      float64  `json:"tolerance"`
-	ElapsedSeconds float64  `json:"elapsed_seconds"`
+	// State is queued, running or done; Outcome, once done, how it ended
+	// (converged, iteration-limit, ..., setup-failed). StateText is what a
+	// person reads on the card: the state while it runs, the outcome once
+	// done. Headline is the last result's summary sentence.
+	State          string `json:"state"`
+	Outcome        string `json:"outcome,omitempty"`
+	StateText      string `json:"state_text"`
+	Headline       string `json:"headline,omitempty"`
+	Matrix         string `json:"matrix"`
+	MatrixID       string `json:"matrix_id"`
+	Rows           int64  `json:"rows"`
+	Cols           int64  `json:"cols"`
+	Nonzeros       int64  `json:"nonzeros"`
+	Method         string `json:"method"`
+	Preconditioner string `json:"preconditioner"`
+	RHSCount       int32  `json:"rhs_count"`
+	RHSDone        int32  `json:"rhs_done"`
+	RHS            int32  `json:"rhs"`
+	Iteration      int64  `json:"iteration"`
+	// RelResidual is the latest relative residual; NormalResidual the
+	// latest ‖Aᵀr‖ of a least-squares job (null for a system).
+	RelResidual    *solve.Num `json:"relative_residual"`
+	NormalResidual *solve.Num `json:"normal_residual_norm"`
+	Tolerance      float64    `json:"tolerance"`
+	ElapsedSeconds float64    `json:"elapsed_seconds"`
 	// Reduction is the average reduction of the relative residual per
 	// iteration over the last 50 iterations (package monitor's Rate);
 	// IterationsLeft and SecondsLeft predict the rest of the current
 	// right-hand side's solve from it.
-	Reduction      *float64 `json:"reduction_per_iteration"`
-	IterationsLeft *int64   `json:"iterations_left"`
-	SecondsLeft    *float64 `json:"seconds_left"`
-	Error          string   `json:"error,omitempty"`
-	CreatedUnix    float64  `json:"created_unix"`
-	StartedUnix    float64  `json:"started_unix"`
-	FinishedUnix   float64  `json:"finished_unix"`
-	// HistoryRows counts the rows of the history the page holds (over all
+	Reduction      *solve.Num `json:"reduction_per_iteration"`
+	IterationsLeft *int64     `json:"iterations_left"`
+	SecondsLeft    *solve.Num `json:"seconds_left"`
+	Error          string     `json:"error,omitempty"`
+	CreatedUnix    float64    `json:"created_unix"`
+	StartedUnix    float64    `json:"started_unix"`
+	FinishedUnix   float64    `json:"finished_unix"`
+	// HistoryRows counts the rows of the job's histories (over all
 	// right-hand sides); Version changes whenever the curve does.
 	HistoryRows int    `json:"history_rows"`
 	Version     uint64 `json:"version"`
@@ -171,34 +175,11 @@ type JobList struct {
 // twice a second.
 const PageJobs = 50
 
-func stateName(st pb.JobState) string {
-	switch st {
-	case pb.JobState_QUEUED:
-		return "queued"
-	case pb.JobState_RUNNING:
-		return "running"
-	case pb.JobState_FINISHED:
-		return "finished"
-	case pb.JobState_FAILED:
-		return "failed"
-	case pb.JobState_CANCELLED:
-		return "cancelled"
-	}
-	return "unknown"
-}
-
-func finite(v float64) *float64 {
-	if math.IsNaN(v) || math.IsInf(v, 0) {
-		return nil
-	}
-	return &v
-}
-
-// view describes j, with the estimate from the rows the tracker holds.
+// view describes j, with the estimate from its current history.
 func (s *Server) view(j *pb.Job) Job {
 	v := Job{
-		ID: j.GetId(), Label: j.GetLabel(), State: stateName(j.GetState()),
-		Matrix: j.GetMatrixName(), MatrixID: j.GetMatrixId(), Rows: j.GetRows(), Nonzeros: j.GetNonzeros(),
+		ID: j.GetId(), Label: j.GetLabel(), State: string(wire.State(j.GetState())), Outcome: j.GetOutcome(),
+		Matrix: j.GetMatrixName(), MatrixID: j.GetMatrixId(), Rows: j.GetRows(), Cols: j.GetCols(), Nonzeros: j.GetNonzeros(),
 		Method: j.GetMethod(), Preconditioner: j.GetPreconditioner(),
 		RHSCount: j.GetRhsCount(), RHSDone: j.GetRhsDone(),
 		Tolerance: j.GetRtol(), Error: j.GetError(),
@@ -210,22 +191,19 @@ func (s *Server) view(j *pb.Job) Job {
 	if v.Matrix == "" {
 		v.Matrix = v.MatrixID
 	}
-	for _, r := range j.GetResults() {
-		if v.Outcome == "" || v.Outcome == "converged" {
-			v.Outcome = r.GetStatus()
-		}
-	}
 	v.StateText = v.State
-	if j.GetState() == pb.JobState_FINISHED {
-		switch v.Outcome {
-		case "converged", "":
-			v.StateText = "converged"
-		default:
-			v.StateText = "stopped: " + v.Outcome
-		}
+	if v.Outcome != "" {
+		v.StateText = v.Outcome
 	}
+	if rs := j.GetResults(); len(rs) > 0 {
+		v.Headline = rs[len(rs)-1].GetHeadline()
+	}
+	leastSquares := solve.Method(v.Method).LeastSquares()
 	if lp := j.GetLastProgress(); lp != nil {
-		v.RHS, v.Iteration, v.RelResidual = lp.GetRhs(), lp.GetIteration(), finite(lp.GetRelativeResidual())
+		v.RHS, v.Iteration, v.RelResidual = lp.GetRhs(), lp.GetIteration(), solve.NumPtr(lp.GetRelativeResidual())
+		if leastSquares {
+			v.NormalResidual = solve.NumPtr(lp.GetNormalResidualNorm())
+		}
 	}
 	switch {
 	case v.StartedUnix == 0:
@@ -234,36 +212,39 @@ func (s *Server) view(j *pb.Job) Job {
 	default:
 		v.ElapsedSeconds = max(0, float64(s.opt.Now().UnixNano())/1e9-v.StartedUnix)
 	}
-
-	s.t.mu.Lock()
-	tj := s.t.jobs[j.GetId()]
+	hs, version, ok := s.t.histories(j.GetId())
+	if !ok {
+		return v
+	}
+	v.Version = version
 	var window []krylov.Progress
-	if tj != nil {
-		v.Version = tj.version
-		for i := range tj.series {
-			v.HistoryRows += len(tj.series[i].rows)
-			if tj.series[i].hasTip {
-				v.HistoryRows++
-			}
-		}
-		if rhs := int(v.RHS); rhs < len(tj.series) {
-			all := tj.series[rhs].all()
-			window = all[max(0, len(all)-monitor.DefaultWindow-1):]
+	for i, h := range hs {
+		v.HistoryRows += len(h.Rows)
+		if i == int(v.RHS) {
+			window = h.Rows[max(0, len(h.Rows)-monitor.DefaultWindow-1):]
 		}
 	}
-	s.t.mu.Unlock()
-	if len(window) > 1 {
+	// The latest row of the history is newer than the last progress
+	// event the stream was sent: show it.
+	if n := len(window); n > 0 {
+		p := window[n-1]
+		v.Iteration, v.RelResidual = int64(p.Iteration), solve.NumPtr(p.RelResidual)
+		if leastSquares {
+			v.NormalResidual = solve.NumPtr(p.NormalResidualNorm)
+		}
+	}
+	if len(window) > 1 && !leastSquares {
 		rate := monitor.NewRate(monitor.DefaultWindow)
 		for _, p := range window {
 			rate.Add(p)
 		}
 		e := rate.Estimate(v.Tolerance)
 		if e.Span > 0 {
-			v.Reduction = finite(e.Factor)
+			v.Reduction = solve.NumPtr(e.Factor)
 		}
 		if e.Predicted && j.GetState() == pb.JobState_RUNNING {
 			n, sec := int64(e.IterationsLeft), e.TimeLeft.Seconds()
-			v.IterationsLeft, v.SecondsLeft = &n, &sec
+			v.IterationsLeft, v.SecondsLeft = &n, solve.NumPtr(sec)
 		}
 	}
 	return v
@@ -320,12 +301,13 @@ func (s *Server) job(w http.ResponseWriter, r *http.Request) {
 }
 
 // Row is one history row in the JSON history: the keys of the history file
-// schema (package history). A NaN or infinite value is null.
+// schema (package history). ‖Aᵀr‖ is there for a least-squares job.
 type Row struct {
-	Iteration      int      `json:"iteration"`
-	ElapsedSeconds float64  `json:"elapsed_seconds"`
-	ResidualNorm   *float64 `json:"residual_norm"`
-	RelResidual    *float64 `json:"relative_residual"`
+	Iteration      int        `json:"iteration"`
+	ElapsedSeconds float64    `json:"elapsed_seconds"`
+	ResidualNorm   solve.Num  `json:"residual_norm"`
+	RelResidual    solve.Num  `json:"relative_residual"`
+	NormalResidual *solve.Num `json:"normal_residual_norm,omitempty"`
 }
 
 // History is the body of GET /api/jobs/{id}/history.
@@ -335,10 +317,12 @@ type History struct {
 	Series []Series `json:"series"`
 }
 
-// Series is one right-hand side's history.
+// Series is one right-hand side's history. Thinned says that rows were
+// left out of a long solve (evenly spaced, the first and last exact).
 type Series struct {
-	RHS  int   `json:"rhs"`
-	Rows []Row `json:"rows"`
+	RHS     int   `json:"rhs"`
+	Thinned bool  `json:"thinned"`
+	Rows    []Row `json:"rows"`
 }
 
 // rhsParam reads the optional rhs query parameter (-1 when absent).
@@ -356,7 +340,7 @@ func rhsParam(r *http.Request) (int, error) {
 
 func (s *Server) history(w http.ResponseWriter, r *http.Request) {
 	id := r.PathValue("id")
-	all, ok := s.t.rows(id)
+	all, _, ok := s.t.histories(id)
 	if !ok {
 		notFound(w, id)
 		return
@@ -367,7 +351,7 @@ func (s *Server) history(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	if rhs >= len(all) {
-		http.Error(w, fmt.Sprintf("job %s has no progress for right-hand side %d", id, rhs), http.StatusNotFound)
+		http.Error(w, fmt.Sprintf("job %s has no right-hand side %d", id, rhs), http.StatusNotFound)
 		return
 	}
 	switch f := r.URL.Query().Get("format"); f {
@@ -387,7 +371,7 @@ func (s *Server) history(w http.ResponseWriter, r *http.Request) {
 			format, ctype = history.JSONLines, "application/jsonl"
 		}
 		var buf bytes.Buffer
-		history.Write(&buf, format, history.History{Rows: all[rhs]})
+		history.Write(&buf, format, all[rhs])
 		w.Header().Set("Content-Type", ctype)
 		w.Header().Set("Content-Disposition", fmt.Sprintf("attachment; filename=%q", fmt.Sprintf("%s-rhs%d.%s", id, rhs, f)))
 		w.Write(buf.Bytes())
@@ -397,13 +381,16 @@ func (s *Server) history(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	out := History{ID: id, Series: []Series{}}
-	for i, rows := range all {
+	for i, h := range all {
 		if rhs >= 0 && i != rhs {
 			continue
 		}
-		sr := Series{RHS: i, Rows: make([]Row, len(rows))}
-		for k, p := range rows {
-			sr.Rows[k] = Row{Iteration: p.Iteration, ElapsedSeconds: p.Elapsed.Seconds(), ResidualNorm: finite(p.ResidualNorm), RelResidual: finite(p.RelResidual)}
+		sr := Series{RHS: i, Thinned: h.Thinned, Rows: make([]Row, len(h.Rows))}
+		for k, p := range h.Rows {
+			sr.Rows[k] = Row{Iteration: p.Iteration, ElapsedSeconds: p.Elapsed.Seconds(), ResidualNorm: solve.Num(p.ResidualNorm), RelResidual: solve.Num(p.RelResidual)}
+			if h.LeastSquares {
+				sr.Rows[k].NormalResidual = solve.NumPtr(p.NormalResidualNorm)
+			}
 		}
 		out.Series = append(out.Series, sr)
 	}
@@ -419,29 +406,25 @@ func (s *Server) chart(w http.ResponseWriter, r *http.Request) {
 		notFound(w, id)
 		return
 	}
-	s.t.mu.Lock()
-	tj := s.t.jobs[id]
-	var cached []byte
-	var version uint64
-	if tj != nil {
-		version = tj.version
-		if tj.svg != nil && tj.svgVersion == version {
-			cached = tj.svg
-		}
+	all, version, ok := s.t.histories(id)
+	if !ok {
+		notFound(w, id)
+		return
 	}
+	s.t.mu.Lock()
+	c, cached := s.t.svg[id]
 	s.t.mu.Unlock()
-	if cached == nil {
-		all, _ := s.t.rows(id)
+	if !cached || c.version != version {
 		var ss []chart.Series
-		for i, rows := range all {
-			if len(rows) == 0 {
+		for i, h := range all {
+			if len(h.Rows) == 0 {
 				continue
 			}
 			label := ""
 			if len(all) > 1 {
 				label = fmt.Sprintf("right-hand side %d", i+1)
 			}
-			ss = append(ss, chart.Series{Label: label, Rows: rows})
+			ss = append(ss, chart.Series{Label: label, Rows: h.Rows})
 		}
 		pre := j.GetPreconditioner()
 		if pre == "" {
@@ -465,16 +448,16 @@ func (s *Server) chart(w http.ResponseWriter, r *http.Request) {
 			http.Error(w, err.Error(), http.StatusInternalServerError)
 			return
 		}
-		cached = buf.Bytes()
+		c = cachedSVG{version: version, body: buf.Bytes()}
 		s.t.mu.Lock()
-		if tj != nil && tj.svgVersion <= version {
-			tj.svg, tj.svgVersion = cached, version
+		if _, ok := s.t.versions[id]; ok {
+			s.t.svg[id] = c
 		}
 		s.t.mu.Unlock()
 	}
 	w.Header().Set("Content-Type", "image/svg+xml")
 	w.Header().Set("Cache-Control", "no-store")
-	w.Write(cached)
+	w.Write(c.body)
 }
 
 // events streams the job list as Server-Sent Events (the HTML Living

@@ -6,6 +6,7 @@ import (
 	"runtime"
 	"time"
 
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
 )
@@ -36,18 +37,18 @@ GOMAXPROCS workers.`
 
 // benchResult is bench's JSON object.
 type benchResult struct {
-	Size          int   `json:"size"`
-	Rows          int   `json:"rows"`
-	Nonzeros      int   `json:"nonzeros"`
-	Workers       int   `json:"workers"`
-	Repeats       int   `json:"repeats"`
-	SpMVBytes     int64 `json:"spmv_bytes"`
-	SpMVSeconds   num   `json:"spmv_seconds"`  // per product, mean over the repeats
-	SpMVGBs       num   `json:"spmv_gb_per_s"` // 10⁹ bytes per second
-	TriadBytes    int64 `json:"triad_bytes"`
-	TriadSeconds  num   `json:"triad_seconds"`
-	TriadGBs      num   `json:"triad_gb_per_s"`
-	SpMVOverTriad num   `json:"spmv_over_triad"`
+	Size          int       `json:"size"`
+	Rows          int       `json:"rows"`
+	Nonzeros      int       `json:"nonzeros"`
+	Workers       int       `json:"workers"`
+	Repeats       int       `json:"repeats"`
+	SpMVBytes     int64     `json:"spmv_bytes"`
+	SpMVSeconds   solve.Num `json:"spmv_seconds"`  // per product, mean over the repeats
+	SpMVGBs       solve.Num `json:"spmv_gb_per_s"` // 10⁹ bytes per second
+	TriadBytes    int64     `json:"triad_bytes"`
+	TriadSeconds  solve.Num `json:"triad_seconds"`
+	TriadGBs      solve.Num `json:"triad_gb_per_s"`
+	SpMVOverTriad solve.Num `json:"spmv_over_triad"`
 }
 
 func runBench(ctx context.Context, e *env, args []string) error {
@@ -92,9 +93,9 @@ func runBench(ctx context.Context, e *env, args []string) error {
 		ts += t1.Sub(t0)
 	}
 	n := float64(*repeat)
-	r.SpMVSeconds, r.TriadSeconds = num(ts.Seconds()/n), num(tt.Seconds()/n)
-	r.SpMVGBs = num(float64(r.SpMVBytes) / float64(r.SpMVSeconds) / 1e9)
-	r.TriadGBs = num(float64(r.TriadBytes) / float64(r.TriadSeconds) / 1e9)
+	r.SpMVSeconds, r.TriadSeconds = solve.Num(ts.Seconds()/n), solve.Num(tt.Seconds()/n)
+	r.SpMVGBs = solve.Num(float64(r.SpMVBytes) / float64(r.SpMVSeconds) / 1e9)
+	r.TriadGBs = solve.Num(float64(r.TriadBytes) / float64(r.TriadSeconds) / 1e9)
 	r.SpMVOverTriad = r.SpMVGBs / r.TriadGBs
 	if *asJSON {
 		return writeJSON(e.stdout, r)

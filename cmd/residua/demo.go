@@ -6,7 +6,6 @@ import (
 	"math"
 	"time"
 
-	"github.com/residua/residua/precond"
 	"github.com/residua/residua/sparse/stencil"
 )
 
@@ -59,7 +58,11 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	if len(pos) != 0 {
 		return usageErrorf("demo: takes no arguments, got %q (run 'residua demo --help')", pos)
 	}
-	if err := checkRunFlags("demo", o); err != nil {
+	req, err := checkRequest("demo", o.request())
+	if err != nil {
+		return err
+	}
+	if err := checkOutputFlags("demo", o); err != nil {
 		return err
 	}
 	if !(contrast > 0) || math.IsInf(contrast, 0) {
@@ -67,10 +70,6 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	}
 	if _, err := checkGrid("demo", size); err != nil {
 		return usageErrorf("demo: --size: %v", err)
-	}
-	kind, err := precond.ParseKind(o.precond)
-	if err != nil {
-		return usageErrorf("demo: --precond: %v", err)
 	}
 
 	start := time.Now()
@@ -89,5 +88,5 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 		fmt.Fprintf(e.stdout, "Grid of %d³ points: %d unknowns, %d nonzeros, built in %s. Solving for the temperatures...\n\n",
 			size, a.Rows, a.NNZ(), formatDuration(built))
 	}
-	return solveCG(ctx, e, p, kind, o)
+	return solveLocal(ctx, e, p, req, o)
 }

@@ -20,6 +20,7 @@ import (
 
 	"github.com/residua/residua/history"
 	"github.com/residua/residua/matrixio"
+	"github.com/residua/residua/solve"
 )
 
 // buildBinary compiles residua into a temporary folder.
@@ -143,9 +144,9 @@ func sameBits(t *testing.T, remote, local string) {
 	}
 }
 
-func decodeReport(t *testing.T, stdout string) solveReport {
+func decodeReport(t *testing.T, stdout string) solve.Summary {
 	t.Helper()
-	var rep solveReport
+	var rep solve.Summary
 	if err := json.Unmarshal([]byte(stdout), &rep); err != nil {
 		t.Fatalf("not a JSON summary: %v\n%s", err, stdout)
 	}
@@ -277,16 +278,16 @@ func TestEndToEnd(t *testing.T) {
 	// jobs --json lists all three with id and state.
 	stdout, _, code = cli(t, bin, "jobs", "--server", srv.grpc, "--json")
 	var list struct {
-		Jobs []struct{ ID, State string }
+		Jobs []struct{ ID, State, Outcome string }
 	}
 	if err := json.Unmarshal([]byte(stdout), &list); err != nil || code != 0 {
 		t.Fatalf("jobs --json: exit %d, %v\n%s", code, err, stdout)
 	}
 	states := map[string]string{}
 	for _, j := range list.Jobs {
-		states[j.ID] = j.State
+		states[j.ID] = j.State + "/" + j.Outcome
 	}
-	if states[remote.JobID] != "finished" || states[job] != "finished" || states[long] != "cancelled" {
+	if states[remote.JobID] != "done/converged" || states[job] != "done/converged" || states[long] != "done/cancelled" {
 		t.Errorf("jobs: %v", states)
 	}
 
@@ -367,7 +368,7 @@ func testToken(t *testing.T, bin string) {
 	os.WriteFile(token, []byte("s3cret-for-the-test\n"), 0o600)
 	srv := startServer(t, bin, "--token-file", token)
 	_, stderr, code := cli(t, bin, "jobs", "--server", srv.grpc)
-	if code != exitFailure || !strings.Contains(stderr, "Unauthenticated") {
+	if code != exitFailure || !strings.Contains(stderr, "wants a valid bearer token") {
 		t.Errorf("no token: exit %d, stderr %q", code, stderr)
 	}
 	if strings.Contains(srv.log(), "s3cret") {

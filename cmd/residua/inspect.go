@@ -7,9 +7,11 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"strings"
 	"time"
 
 	"github.com/residua/residua/matrixio"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 )
 
@@ -40,28 +42,28 @@ and the exit status is 2; the other files are still inspected.`
 // defaultSymTol is the symmetry tolerance relative to max|a(i,j)| used by
 // inspect and solve: common practice, a few hundred units of roundoff, so
 // that products formed in floating point still count as symmetric.
-const defaultSymTol = 1e-12
+const defaultSymTol = sparse.SymmetryTolerance
 
 // inspection is inspect's JSON object: the sparse.Report's fields, flat,
 // with the file's own facts beside them (the outer fields win where the
 // names coincide, by encoding/json's rule for embedded structs).
 type inspection struct {
-	File             string `json:"file"`
-	Rows             int    `json:"rows"`
-	Cols             int    `json:"cols"`
-	Entries          int    `json:"entries"`  // stored in the file
-	Nonzeros         int    `json:"nonzeros"` // after symmetric expansion
-	Format           string `json:"format"`
-	Field            string `json:"field"`
-	HeaderSymmetry   string `json:"header_symmetry"`
-	Symmetric        bool   `json:"symmetric"`
-	PositiveDiagonal bool   `json:"positive_diagonal"`
-	Duplicates       int    `json:"duplicates_summed"`
-	ExplicitZeros    int    `json:"explicit_zeros"`
-	TextBytes        int64  `json:"text_bytes"`
-	ReadSeconds      num    `json:"read_seconds"`
-	ReadMBPerSecond  num    `json:"read_mb_per_second"`
-	Verdict          string `json:"verdict"`
+	File             string    `json:"file"`
+	Rows             int       `json:"rows"`
+	Cols             int       `json:"cols"`
+	Entries          int       `json:"entries"`  // stored in the file
+	Nonzeros         int       `json:"nonzeros"` // after symmetric expansion
+	Format           string    `json:"format"`
+	Field            string    `json:"field"`
+	HeaderSymmetry   string    `json:"header_symmetry"`
+	Symmetric        bool      `json:"symmetric"`
+	PositiveDiagonal bool      `json:"positive_diagonal"`
+	Duplicates       int       `json:"duplicates_summed"`
+	ExplicitZeros    int       `json:"explicit_zeros"`
+	TextBytes        int64     `json:"text_bytes"`
+	ReadSeconds      solve.Num `json:"read_seconds"`
+	ReadMBPerSecond  solve.Num `json:"read_mb_per_second"`
+	Verdict          string    `json:"verdict"`
 	sparse.Report
 }
 
@@ -123,10 +125,10 @@ func inspectFile(path string, symTol float64) (*inspection, error) {
 		Format: info.Header.Format, Field: info.Header.Field, HeaderSymmetry: info.Header.Symmetry,
 		Symmetric: r.Symmetric, PositiveDiagonal: r.Diagonal.Positive,
 		Duplicates: info.Duplicates, ExplicitZeros: info.ExplicitZeros, TextBytes: info.Bytes,
-		ReadSeconds: seconds(read), Report: r,
+		ReadSeconds: solve.Seconds(read), Report: r,
 	}
 	if read > 0 {
-		in.ReadMBPerSecond = num(float64(info.Bytes) / 1e6 / read.Seconds())
+		in.ReadMBPerSecond = solve.Num(float64(info.Bytes) / 1e6 / read.Seconds())
 	}
 	in.Verdict = verdict(&r)
 	return in, nil
@@ -143,12 +145,8 @@ func verdict(r *sparse.Report) string {
 	case r.NonFinite > 0:
 		return fmt.Sprintf("%d entries are NaN or infinite: no solver can use this matrix", r.NonFinite)
 	case !r.Symmetric:
-		w := r.WorstPair
-		if w == nil {
-			return "not symmetric: CG needs a symmetric positive definite matrix; 'residua lsq' solves the normal equations"
-		}
-		return fmt.Sprintf("not symmetric: a(%d,%d) = %s but a(%d,%d) = %s; CG needs a symmetric positive definite matrix, 'residua lsq' solves the normal equations",
-			w.Row+1, w.Col+1, shortFloat(w.Aij), w.Col+1, w.Row+1, shortFloat(w.Aji))
+		_, why := solve.Symmetry(*r)
+		return strings.TrimPrefix(why, "is ") + "; CG needs a symmetric positive definite matrix, 'residua lsq' solves the normal equations"
 	case !r.Diagonal.Positive:
 		return fmt.Sprintf("symmetric, but %d diagonal entries are zero and %d negative: not positive definite, CG cannot be used",
 			r.Diagonal.Zero, r.Diagonal.Negative)
@@ -157,8 +155,6 @@ func verdict(r *sparse.Report) string {
 	}
 	return "symmetric with positive diagonal: CG can be tried"
 }
-
-func shortFloat(v float64) string { return fmt.Sprint(v) }
 
 func (in *inspection) writeText(w io.Writer) {
 	r := &in.Report
@@ -176,21 +172,21 @@ func (in *inspection) writeText(w io.Writer) {
 	case r.Symmetric && r.Asymmetry == 0:
 		line("symmetry", "symmetric (exactly)")
 	case r.Symmetric:
-		line("symmetry", "symmetric within %s (largest |a(i,j) − a(j,i)| is %s of max|a|)", sci(r.SymmetryTol), sci(r.Asymmetry))
+		line("symmetry", "symmetric within %s (largest |a(i,j) − a(j,i)| is %s of max|a|)", solve.Sci(r.SymmetryTol), solve.Sci(r.Asymmetry))
 	case r.WorstPair != nil:
 		wp := r.WorstPair
 		line("symmetry", "not symmetric: worst pair a(%d,%d) = %s, a(%d,%d) = %s (%s of max|a|; pattern %s)",
-			wp.Row+1, wp.Col+1, shortFloat(wp.Aij), wp.Col+1, wp.Row+1, shortFloat(wp.Aji), sci(r.Asymmetry), yesNo(r.PatternSymmetric, "symmetric", "not symmetric"))
+			wp.Row+1, wp.Col+1, solve.ShortFloat(wp.Aij), wp.Col+1, wp.Row+1, solve.ShortFloat(wp.Aji), solve.Sci(r.Asymmetry), yesNo(r.PatternSymmetric, "symmetric", "not symmetric"))
 	default:
 		line("symmetry", "not symmetric")
 	}
 	d := r.Diagonal
-	line("diagonal", "min %s, max %s; %d zero (%d not stored), %d negative", sci(d.Min), sci(d.Max), d.Zero, d.Missing, d.Negative)
+	line("diagonal", "min %s, max %s; %d zero (%d not stored), %d negative", solve.Sci(d.Min), solve.Sci(d.Max), d.Zero, d.Missing, d.Negative)
 	line("dominance", "%.1f%% of rows weakly, %.1f%% strictly diagonally dominant", 100*r.WeaklyDominant, 100*r.StrictlyDominant)
 	line("bandwidth", "%d (lower %d, upper %d), profile %d", r.Bandwidth, r.LowerBandwidth, r.UpperBandwidth, r.Profile)
 	line("row lengths", "min %d, max %d, mean %.1f, std %.1f, %d empty", r.RowLength.Min, r.RowLength.Max, r.RowLength.Mean, r.RowLength.Std, r.RowLength.Empty)
 	if r.Square {
-		line("Gershgorin", "eigenvalues in [%s, %s]", sci(r.GershgorinLow), sci(r.GershgorinHigh))
+		line("Gershgorin", "eigenvalues in [%s, %s]", solve.Sci(r.GershgorinLow), solve.Sci(r.GershgorinHigh))
 	}
 	if r.NonFinite > 0 {
 		line("non-finite", "%d entries are NaN or ±Inf", r.NonFinite)

@@ -88,6 +88,10 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		return usageErrorf("serve: --tls-cert and --tls-key go together")
 	}
 	cfg.Logger = slog.New(slog.NewTextHandler(e.stderr, nil))
+	// The service counts its jobs into the metrics whether or not the
+	// page that serves them runs.
+	m := metrics.New()
+	cfg.Observer = m
 	srv, err := api.NewServer(cfg)
 	if err != nil {
 		return usageErrorf("serve: %v", err)
@@ -108,7 +112,6 @@ func runServe(ctx context.Context, e *env, args []string) error {
 			lis.Close()
 			return fmt.Errorf("serve: --http: %w", err)
 		}
-		m := metrics.New()
 		m.ObserveQueue(srv.Registry().Counts)
 		m.ObserveUploads(srv.UploadBytes)
 		m.ObserveStore(srv.StoredBytes)

@@ -18,7 +18,7 @@ import (
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/matrixio"
 	"github.com/residua/residua/monitor"
-	"github.com/residua/residua/precond"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 )
 
@@ -57,7 +57,7 @@ solve. The answer is bitwise the one a local solve gives on a machine with
 the same number of processors. --detach starts the job, prints its id and
 returns; follow it with 'residua watch JOB'.`
 
-// solveOpts are the flags shared by solve, demo and (in part) lsq.
+// solveOpts are the flags shared by solve, lsq and demo.
 type solveOpts struct {
 	b, x0, precond  string
 	rtol, atol      float64
@@ -67,16 +67,17 @@ type solveOpts struct {
 	json, quiet     bool
 }
 
-// addRunFlags registers the flags of the conjugate-gradient commands.
+// addRunFlags registers the tolerance flags of the conjugate-gradient
+// commands.
 func addRunFlags(f *cmdFlags, o *solveOpts) {
-	f.Float64Var(&o.rtol, "rtol", 1e-8, "relative tolerance: stop when ‖b − A·x‖ ≤ max(rtol·‖b‖, atol)")
-	f.Float64Var(&o.atol, "atol", 0, "absolute tolerance on ‖b − A·x‖")
+	f.Float64Var(&o.rtol, "rtol", 0, "relative tolerance: stop when ‖b − A·x‖ ≤ max(rtol·‖b‖, atol); 0 means the default, 1e-8")
+	f.Float64Var(&o.atol, "atol", 0, "absolute tolerance on ‖b − A·x‖ (default 0: none)")
 	addOutputFlags(f, o)
 }
 
 // addOutputFlags registers the flags every solving command has.
 func addOutputFlags(f *cmdFlags, o *solveOpts) {
-	f.IntVar(&o.maxIter, "max-iter", 0, "iteration cap `N` (default 10·n)")
+	f.IntVar(&o.maxIter, "max-iter", 0, "iteration cap `N`; 0 means the default, 10·n")
 	f.DurationVar(&o.timeLimit, "time-limit", 0, "wall-time budget for the iterations, e.g. 30s or 5m (default none)")
 	f.StringVar(&o.out, "o", "", "write the solution x to this Matrix Market `file` (only if converged)")
 	f.StringVar(&o.hist, "history", "", "write the convergence history to this `file` (.csv, or .json for JSON lines)")
@@ -85,25 +86,33 @@ func addOutputFlags(f *cmdFlags, o *solveOpts) {
 	f.BoolVar(&o.quiet, "quiet", false, "no live progress on stderr")
 }
 
-// checkRunFlags refuses values the solvers would reject.
-func checkRunFlags(cmd string, o *solveOpts) error {
-	switch {
-	case !(o.rtol > 0) || math.IsInf(o.rtol, 0):
-		return usageErrorf("%s: --rtol %v must be positive and finite (use a tiny value such as 1e-300 to rely on --atol alone)", cmd, o.rtol)
-	case !(o.atol >= 0) || math.IsInf(o.atol, 0):
-		return usageErrorf("%s: --atol %v must be zero or positive and finite", cmd, o.atol)
-	}
-	return checkOutputFlags(cmd, o)
+// request turns the flags into the solve layer's request.
+func (o *solveOpts) request() solve.Request {
+	return solve.Request{Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit}
 }
 
-// checkOutputFlags checks the flags addOutputFlags registers.
-func checkOutputFlags(cmd string, o *solveOpts) error {
-	switch {
-	case o.maxIter < 0:
-		return usageErrorf("%s: --max-iter %d must not be negative", cmd, o.maxIter)
-	case o.timeLimit < 0:
-		return usageErrorf("%s: --time-limit %v must not be negative", cmd, o.timeLimit)
+// flagOf names the command-line flag of a request setting (the flags are
+// the settings' names with dashes, except for the preconditioner).
+func flagOf(field string) string {
+	if field == "preconditioner" {
+		return "precond"
 	}
+	return strings.ReplaceAll(field, "_", "-")
+}
+
+// checkRequest validates a request built from the flags, naming the flag
+// of a setting it refuses.
+func checkRequest(cmd string, r solve.Request) (solve.Request, error) {
+	r, err := r.Validate()
+	var fe *solve.FieldError
+	if errors.As(err, &fe) {
+		return r, usageErrorf("%s: --%s: %v", cmd, flagOf(fe.Field), fe.Err)
+	}
+	return r, err
+}
+
+// checkOutputFlags checks the output file names.
+func checkOutputFlags(cmd string, o *solveOpts) error {
 	if o.hist != "" {
 		if _, ok := history.FormatOf(o.hist); !ok {
 			return usageErrorf("%s: --history %s: the name must end in .csv or .json (JSON lines)", cmd, o.hist)
@@ -134,16 +143,16 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	if len(pos) != 1 {
 		return usageErrorf("solve: want one matrix file, got %d arguments (run 'residua solve --help')", len(pos))
 	}
-	if err := checkRunFlags("solve", o); err != nil {
+	req, err := checkRequest("solve", o.request())
+	if err != nil {
 		return err
 	}
-	kind, err := precond.ParseKind(o.precond)
-	if err != nil {
-		return usageErrorf("solve: --precond: %v", err)
+	if err := checkOutputFlags("solve", o); err != nil {
+		return err
 	}
 	so.resolve()
 	if so.addr != "" {
-		return remoteSolve(ctx, e, pos[0], o, so, *detach, nil)
+		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)
 	}
 	if *detach {
 		return usageErrorf("solve: --detach needs --server (or $%s)", envServer)
@@ -152,7 +161,7 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	return solveCG(ctx, e, p, kind, o)
+	return solveLocal(ctx, e, p, req, o)
 }
 
 // problem is a system to solve, with where it came from.
@@ -183,7 +192,7 @@ func loadProblem(path, bPath string) (*problem, error) {
 			return nil, inputError(err)
 		}
 		p.b, p.rhs = b, "from "+bPath
-	case isBundle(path):
+	case matrixio.IsBundle(path):
 		b, _, err := matrixio.ReadBundleRHS(path, nil)
 		if err == nil {
 			p.b, p.rhs = b, "the bundle's own right-hand side"
@@ -205,21 +214,29 @@ func loadProblem(path, bPath string) (*problem, error) {
 	return p, nil
 }
 
-func isBundle(path string) bool {
-	for _, ext := range []string{".tar.gz", ".tgz", ".tar"} {
-		if strings.HasSuffix(path, ext) {
-			return true
-		}
-	}
-	return false
-}
-
 func onesVec(n int) []float64 {
 	v := make([]float64, n)
 	for i := range v {
 		v[i] = 1
 	}
 	return v
+}
+
+// onesSolution says whether x = 1 is the answer the request should find
+// for p, and describes p's right-hand side. With b = A·1 a system's
+// solution is all ones; for least squares x = 1 solves the consistent
+// system, and is the solution sought only when it is the only one (full
+// column rank, which needs rows ≥ cols) and there is no damping.
+func (p *problem) onesSolution(req solve.Request) (bool, string) {
+	if !p.ones || !req.LeastSquares {
+		return p.ones, p.rhs
+	}
+	ones := p.a.Rows >= p.a.Cols && req.Damp == 0
+	rhs := "b = A·1 (no -b given): a consistent system that x = 1 solves"
+	if ones {
+		return true, rhs + "; the unique solution when A has full column rank"
+	}
+	return false, rhs + "; not the solution sought here (damped, or fewer rows than columns: the minimum-norm one)"
 }
 
 // readX0 reads a starting guess and checks its length.
@@ -237,98 +254,70 @@ func readX0(path string, n int) ([]float64, error) {
 	return x0, nil
 }
 
-// checkSPDShape refuses what conjugate gradients cannot solve before any
-// work: a rectangular matrix (exit 2, use lsq) or a nonsymmetric one (exit
-// 4, not SPD).
-func checkSPDShape(p *problem) error {
-	a := p.a
-	if a.Rows != a.Cols {
-		return usageErrorf("%s is %d×%d, not square: conjugate gradients solves square SPD systems; for the least-squares solution of min ‖A·x − b‖ run 'residua lsq %s -b b.mtx'",
-			p.name, a.Rows, a.Cols, p.name)
-	}
-	if p.symmetric {
-		return nil
-	}
-	// The file stores every entry: check the values (see defaultSymTol).
-	r := sparse.Analyze(a, defaultSymTol)
-	if r.Symmetric {
-		return nil
-	}
-	what := "not symmetric"
-	if w := r.WorstPair; w != nil {
-		what = fmt.Sprintf("not symmetric: a(%d,%d) = %s but a(%d,%d) = %s", w.Row+1, w.Col+1, shortFloat(w.Aij), w.Col+1, w.Row+1, shortFloat(w.Aji))
-	}
-	return &exitError{code: exitBreakdown, err: fmt.Errorf("%s is %s; conjugate gradients needs a symmetric positive definite matrix, and 'residua lsq %s' solves the normal equations AᵀA·x = Aᵀb instead",
-		p.name, what, p.name)}
-}
-
-// solveCG runs the local conjugate-gradient solve of p and prints the
+// solveLocal runs a solve of p in this process, through the solve layer,
+// with the live display and the outputs the flags ask for, and prints the
 // summary; the returned error carries the exit status.
-func solveCG(ctx context.Context, e *env, p *problem, kind precond.Kind, o *solveOpts) error {
-	if err := checkSPDShape(p); err != nil {
-		return err
-	}
+func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *solveOpts) error {
+	m := solve.Check(p.a, p.name, p.symmetric)
 	x0, err := readX0(o.x0, p.a.Cols)
 	if err != nil {
 		return err
 	}
-	choice, err := precond.New(p.a, kind)
+	ones, rhs := p.onesSolution(req)
+	setup, err := solve.Prepare(m, req)
 	if err != nil {
-		return &exitError{code: exitBreakdown, err: fmt.Errorf("preconditioner %s: %w", kind, err)}
+		sum := solve.Failure(m, req, err)
+		sum.RHS, sum.ReadSeconds = rhs, solve.Seconds(p.read)
+		return printOnly(e, o, &sum, err)
 	}
-	rep := &solveReport{
-		Matrix: p.name, Rows: p.a.Rows, Cols: p.a.Cols, Nonzeros: p.a.NNZ(), RHS: p.rhs,
-		Preconditioner: string(choice.Kind), PreconditionerReason: choice.Reason,
-		Shift: numPtr(choice.Shift), ShiftTries: choice.Tries, PreconditionerBytes: &choice.Bytes,
-		ReadSeconds: seconds(p.read), SetupSeconds: seconds(choice.Setup),
-	}
-
-	bnorm := norm2(p.b)
-	target := o.rtol
-	if bnorm > 0 && o.atol/bnorm > target {
-		target = o.atol / bnorm
-	}
-	rec, finish, err := recorders(e, o, false, monitor.Options{Target: target, Matrix: filepath.Base(p.name), Preconditioner: string(choice.Kind)})
+	mo := monitor.Options{Target: target(req, p.b), Matrix: filepath.Base(p.name), Preconditioner: setup.Summary().Preconditioner}
+	rec, finish, err := recorders(e, o, req.LeastSquares, mo)
 	if err != nil {
 		return err
 	}
-	s := krylov.Settings{RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit, X0: x0, Recorder: rec}
 	x := make([]float64, p.a.Cols)
-	res, solveErr := krylov.CG(ctx, p.a, p.b, x, choice.M, s)
-	res.Preconditioner = string(choice.Kind)
-	res.Setup = choice.Setup
+	sum, solveErr := setup.Solve(ctx, p.b, x0, x, rec)
+	sum.RHS, sum.ReadSeconds = rhs, solve.Seconds(p.read)
+	if ones {
+		sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))
+	}
+	return recorderFailure(ctx, sum.Status, finishRun(e, o, &sum, x, finish, solveErr))
+}
 
-	rep.Method = res.Method
-	rep.Converged = res.Status == krylov.Converged
-	rep.Status = res.Status.String()
-	rep.Iterations = res.Iterations
-	rep.RelativeResidual = num(res.RelResidual)
-	rep.TrueResidualNorm = num(res.TrueResidualNorm)
-	rep.RecursiveResidualNorm = numPtr(res.ResidualNorm)
-	rep.RHSNorm = num(res.RHSNorm)
-	rep.RecursiveRelativeResidual = numPtr(res.ResidualNorm)
-	if res.RHSNorm > 0 {
-		rep.RecursiveRelativeResidual = numPtr(res.ResidualNorm / res.RHSNorm)
+// target is the relative residual a system's solve aims at, for the live
+// display: max(rtol, atol/‖b‖); zero for least squares, which has none.
+func target(req solve.Request, b []float64) float64 {
+	if req.LeastSquares {
+		return 0
 	}
-	rep.SolveSeconds = seconds(res.Solve)
-	rep.SecondsPerIteration = seconds(res.PerIteration)
-	rep.LambdaMin, rep.LambdaMax, rep.CondEstimate = numPtr(res.LambdaMin), numPtr(res.LambdaMax), num(res.Cond)
-	rep.RelTol, rep.AbsTol = numPtr(res.Settings.RelTol), num(res.Settings.AbsTol)
-	rep.MaxIter, rep.TimeLimitSeconds = res.Settings.MaxIter, seconds(res.Settings.TimeLimit)
-	if p.ones {
-		rep.ErrorVsOnes = numPtr(maxErrorVsOnes(x))
+	t := req.RelTol
+	if t == 0 {
+		t = krylov.DefaultRelTol
 	}
-	if solveErr != nil {
-		rep.Error = solveErr.Error()
+	if bn := norm2(b); bn > 0 && req.AbsTol/bn > t {
+		t = req.AbsTol / bn
 	}
-	return recorderFailure(ctx, res.Status, finishRun(e, o, p.name, rep, x, finish, solveErr))
+	return t
+}
+
+// printOnly prints the summary of a solve that ended before its method ran
+// and returns the error with its exit status.
+func printOnly(e *env, o *solveOpts, sum *solve.Summary, err error) error {
+	if o.json {
+		if werr := writeJSON(e.stdout, sum); werr != nil {
+			return werr
+		}
+	} else {
+		writeSummary(e.stdout, sum)
+	}
+	return outcomeError(sum, err)
 }
 
 // recorders builds the recorder chain of a solve: the live display (unless
 // --quiet), the history file and the in-memory log the plot needs. finish
 // closes the history file and draws the plot; it must be called after the
 // solve, whatever its outcome.
-func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (krylov.Recorder, func(rep *solveReport) error, error) {
+func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (krylov.Recorder, func(*solve.Summary) error, error) {
 	var t tee
 	var hw *history.Writer
 	if o.hist != "" {
@@ -346,15 +335,10 @@ func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (kry
 	}
 	var mon *monitor.Monitor
 	if !o.quiet {
-		if f, ok := e.stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
-			// On a terminal the summary printed after the solve replaces
-			// the panel, so the panel leaves nothing behind.
-			mo.Summary = func(io.Writer, *krylov.Result) {}
-		}
-		mon = monitor.New(e.stderr, mo)
+		mon = newMonitor(e, mo)
 		t = append(t, mon)
 	}
-	finish := func(rep *solveReport) error {
+	finish := func(sum *solve.Summary) error {
 		if mon != nil {
 			mon.Close() // a no-op when the solver already called Finish
 		}
@@ -363,15 +347,14 @@ func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (kry
 			if err := hw.Close(); err != nil {
 				errs = append(errs, fmt.Errorf("writing the history %s: %w", o.hist, err))
 			} else {
-				rep.HistoryFile = o.hist
+				sum.HistoryFile = o.hist
 			}
 		}
 		if log != nil {
-			opt := chart.Options{Matrix: mo.Matrix, Preconditioner: mo.Preconditioner, Tolerance: mo.Target}
-			if err := chart.Write(o.plot, opt, chart.Series{Rows: log.Snapshot().Rows}); err != nil {
-				errs = append(errs, fmt.Errorf("drawing %s: %w", o.plot, err))
+			if err := drawPlot(o.plot, mo, log.Snapshot()); err != nil {
+				errs = append(errs, err)
 			} else {
-				rep.PlotFile = o.plot
+				sum.PlotFile = o.plot
 			}
 		}
 		return errors.Join(errs...)
@@ -379,65 +362,89 @@ func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (kry
 	return t, finish, nil
 }
 
+// newMonitor makes the live display. On a terminal the summary printed
+// after the solve replaces the panel, so the panel leaves nothing behind.
+func newMonitor(e *env, mo monitor.Options) *monitor.Monitor {
+	if f, ok := e.stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
+		mo.Summary = func(io.Writer, *krylov.Result) {}
+	}
+	return monitor.New(e.stderr, mo)
+}
+
+// drawPlot draws a history's residual curve with the run's tolerance,
+// matrix and preconditioner.
+func drawPlot(path string, mo monitor.Options, h history.History) error {
+	opt := chart.Options{Matrix: mo.Matrix, Preconditioner: mo.Preconditioner, Tolerance: mo.Target}
+	if err := chart.Write(path, opt, chart.Series{Rows: h.Rows}); err != nil {
+		return fmt.Errorf("drawing %s: %w", path, err)
+	}
+	return nil
+}
+
 // finishRun writes the outputs of a finished solve (history, plot, and the
 // solution when it converged), prints the summary and returns the error
 // that gives the exit status.
-func finishRun(e *env, o *solveOpts, name string, rep *solveReport, x []float64, finish func(*solveReport) error, solveErr error) error {
-	outErr := finish(rep)
+func finishRun(e *env, o *solveOpts, sum *solve.Summary, x []float64, finish func(*solve.Summary) error, solveErr error) error {
+	outErr := finish(sum)
 	if o.out != "" {
-		if rep.Converged {
+		if sum.Converged && x != nil {
 			if err := matrixio.WriteVectorFile(o.out, x); err != nil {
 				outErr = errors.Join(outErr, fmt.Errorf("writing the solution %s: %w", o.out, err))
 			} else {
-				rep.SolutionFile = o.out
+				sum.SolutionFile = o.out
 			}
 		} else {
-			rep.SolutionNote = "not written to " + o.out + " (the solve did not converge)"
+			sum.SolutionNote = "not written to " + o.out + " (the solve did not converge)"
 		}
 	}
 	if o.json {
-		if err := rep.writeJSON(e.stdout); err != nil {
+		if err := writeJSON(e.stdout, sum); err != nil {
 			return err
 		}
 	} else {
-		rep.writeText(e.stdout)
+		writeSummary(e.stdout, sum)
 	}
 	if outErr != nil {
 		return outErr
 	}
-	return statusError(rep.Status, rep.Iterations, solveErr)
+	return outcomeError(sum, solveErr)
 }
 
 // recorderFailure turns the exit status of a solve that a recorder stopped
 // (the history file could not be written: status cancelled although the
 // context is live) from 3 into 1, an I/O failure rather than a stop.
-func recorderFailure(ctx context.Context, st krylov.Status, err error) error {
+func recorderFailure(ctx context.Context, status string, err error) error {
 	var ee *exitError
-	if st == krylov.Cancelled && ctx.Err() == nil && errors.As(err, &ee) && ee.code == exitNotConverged {
+	if status == string(solve.Cancelled) && ctx.Err() == nil && errors.As(err, &ee) && ee.code == exitNotConverged {
 		ee.code = exitFailure
 	}
 	return err
 }
 
-// statusError maps a solve's outcome to the error that carries its exit
-// status: nil when converged, 4 for a breakdown, 3 for every other way of
-// stopping early.
-func statusError(status string, iterations int, solveErr error) error {
-	switch status {
-	case krylov.Converged.String():
-		return nil
-	case krylov.Breakdown.String():
-		if solveErr == nil {
-			solveErr = errors.New("breakdown")
-		}
-		return &exitError{code: exitBreakdown, err: solveErr}
-	case krylov.Cancelled.String():
-		if solveErr == nil || errors.Is(solveErr, context.Canceled) {
-			solveErr = errors.New("cancelled")
-		}
-		return &exitError{code: exitNotConverged, err: fmt.Errorf("stopped without converging after %d iterations: %w", iterations, solveErr)}
+// outcomeError maps a solve's outcome to the error that carries its exit
+// status: nil when converged; 4 for a breakdown, a set-up that failed or a
+// matrix that is not symmetric; 2 for a request or matrix shape refused;
+// 3 for every other way of stopping early; 1 for a failure. The message is
+// the outcome's word, then the summary's headline.
+func outcomeError(sum *solve.Summary, err error) error {
+	if err == nil {
+		err = errors.New(sum.Status)
 	}
-	return &exitError{code: exitNotConverged, err: fmt.Errorf("stopped without converging after %d iterations: %s", iterations, status)}
+	code := exitFailure
+	switch solve.Outcome(sum.Status) {
+	case solve.Converged:
+		return nil
+	case solve.Breakdown, solve.SetupFailed:
+		code = exitBreakdown
+	case solve.Refused:
+		code = exitUsage
+		if errors.Is(err, solve.ErrNotSymmetric) {
+			code = exitBreakdown
+		}
+	case solve.IterationLimit, solve.TimeLimit, solve.Stagnated, solve.Cancelled:
+		code = exitNotConverged
+	}
+	return &exitError{code: code, err: fmt.Errorf("%s: %s", sum.Status, sum.Headline)}
 }
 
 func norm2(v []float64) float64 {

@@ -20,11 +20,12 @@ import (
 	"github.com/residua/residua/history"
 	"github.com/residua/residua/internal/shared"
 	"github.com/residua/residua/matrixio"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 )
 
 // runJSON runs a command with --json and decodes its summary.
-func runJSON(t *testing.T, args ...string) (rep solveReport, stderr string, code int) {
+func runJSON(t *testing.T, args ...string) (rep solve.Summary, stderr string, code int) {
 	t.Helper()
 	stdout, stderr, code := runCLI(t, append(args, "--json", "--quiet")...)
 	if stdout == "" {
@@ -176,7 +177,7 @@ func TestSolveCancelled(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	cancel()
 	stdout, stderr, code := runCLIContext(ctx, t, "solve", sharedMatrix(t, "nos4.mtx"), "--json", "--quiet")
-	var rep solveReport
+	var rep solve.Summary
 	if err := json.Unmarshal([]byte(stdout), &rep); err != nil {
 		t.Fatalf("%v: %s", err, stdout)
 	}

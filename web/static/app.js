@@ -21,14 +21,35 @@ function duration(s) {
   return Math.floor(s / 3600) + " h " + String(Math.round((s % 3600) / 60)).padStart(2, "0") + " min";
 }
 
-function sci(v) {
-  return v == null ? "—" : v.toExponential(2);
+// num reads a number of the JSON, where NaN and infinities are the strings
+// "NaN", "+Inf" and "-Inf" and a missing value is null.
+function num(v) {
+  if (v == null) return null;
+  if (typeof v === "string") return v === "NaN" ? NaN : v === "+Inf" ? Infinity : -Infinity;
+  return v;
 }
 
-// stateClass maps a job's state words to the colour the card carries.
+function sci(v) {
+  v = num(v);
+  if (v == null) return "—";
+  if (!isFinite(v)) return String(v);
+  return v.toExponential(2);
+}
+
+// stateClass maps a job's state and outcome to the colour the card carries.
 function stateClass(job) {
-  if (job.state === "finished") return job.state_text === "converged" ? "converged" : "stopped";
-  return job.state;
+  if (job.state !== "done") return job.state;
+  switch (job.outcome) {
+    case "converged":
+    case "cancelled":
+      return job.outcome;
+    case "breakdown":
+    case "setup-failed":
+    case "refused":
+    case "failed":
+      return "failed";
+  }
+  return "stopped";
 }
 
 function card(job) {
@@ -50,31 +71,43 @@ function fill(li, job) {
   const q = (sel) => li.querySelector(sel);
   li.dataset.state = stateClass(job);
   q(".state").textContent = job.state_text;
-  q(".matrix").textContent = job.label ? job.label + " · " + job.matrix : job.matrix;
-  q(".size").textContent = job.rows ? "n = " + fmtInt.format(job.rows) + " · " + fmtInt.format(job.nonzeros) + " nonzeros" : "";
+  q(".matrix").textContent = job.label && job.label !== job.matrix ? job.label + " · " + job.matrix : job.matrix;
+  let size = "";
+  if (job.rows) {
+    size = job.rows === job.cols ? "n = " + fmtInt.format(job.rows) : fmtInt.format(job.rows) + " × " + fmtInt.format(job.cols);
+    size += " · " + fmtInt.format(job.nonzeros) + " nonzeros";
+  }
+  q(".size").textContent = size;
   q(".precond").textContent = job.preconditioner || "—";
   let it = fmtInt.format(job.iteration);
   if (job.rhs_count > 1) it += " (right-hand side " + (job.rhs + 1) + " of " + job.rhs_count + ")";
   q(".iteration").textContent = job.state === "queued" ? "—" : it;
-  q(".residual").textContent = sci(job.relative_residual) + (job.tolerance ? " (tolerance " + job.tolerance.toExponential(0) + ")" : "");
-  q(".reduction").textContent = job.reduction_per_iteration == null ? "—" : job.reduction_per_iteration.toFixed(4);
+  let res = sci(job.relative_residual);
+  if (job.normal_residual_norm != null) res += " · ‖Aᵀr‖ " + sci(job.normal_residual_norm);
+  if (job.tolerance) res += " (tolerance " + job.tolerance.toExponential(0) + ")";
+  q(".residual").textContent = res;
+  const red = num(job.reduction_per_iteration);
+  q(".reduction").textContent = red == null ? "—" : red.toFixed(4);
   let left = "—";
   if (job.state === "running") {
     if (job.iterations_left != null) {
       left = "≈ " + fmtInt.format(job.iterations_left) + " it · " + duration(job.seconds_left);
-    } else if (job.reduction_per_iteration != null && job.reduction_per_iteration >= 1) {
+    } else if (red != null && red >= 1) {
       left = "no estimate: not decreasing lately";
     } else {
       left = "no estimate yet";
     }
-  } else if (job.state !== "queued") {
+  } else if (job.state === "done") {
     left = "done";
   }
   q(".left").textContent = left;
   q(".elapsed").textContent = job.state === "queued" ? "waiting" : duration(job.elapsed_seconds);
+  // A finished job says how it ended in a sentence (the summary's
+  // headline); a failed one what went wrong.
   const err = q(".error");
-  err.hidden = !job.error;
-  err.textContent = job.error || "";
+  const note = job.state === "done" ? (job.headline || job.error) : job.error;
+  err.hidden = !note;
+  err.textContent = note || "";
   if (job.history_rows > 0 && String(job.version) !== li.dataset.version && !li.dataset.loading) {
     loadChart(li, job);
   }

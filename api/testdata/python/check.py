@@ -76,7 +76,7 @@ def matvec_t(cols, entries, y):
 def least_squares(stub, path):
     """Uploads a rectangular matrix and solves min ||A x - b|| for
     b = A 1 + a component outside range(A) (so the system is inconsistent),
-    by method "lsq"; checks in Python that the x received satisfies the
+    as least squares (method auto, least_squares set); checks in Python that the x received satisfies the
     normal equations: ||A^T r|| small against ||A||_F ||r||, the quantity
     Paige and Saunders' inconsistent-system rule bounds (ACM TOMS 8(1), 1982,
     section 6)."""
@@ -86,7 +86,7 @@ def least_squares(stub, path):
     m = upload(stub, path, "python-lsq")
     if (m.rows, m.cols) != (rows, cols):
         fail("least-squares upload reply %dx%d, file %dx%d" % (m.rows, m.cols, rows, cols))
-    req = pb.SolveRequest(matrix_id=m.id, rhs=[pb.VectorRef(data=pack(b))], method="lsq",
+    req = pb.SolveRequest(matrix_id=m.id, rhs=[pb.VectorRef(data=pack(b))], least_squares=True,
                           progress=pb.ProgressPolicy(every_iterations=5))
     events, solution = collect(stub.Solve(req, timeout=120))
     result = events[-2].result
@@ -214,7 +214,7 @@ def main():
         fail("detached solve sent %s" % first)
     job_id = first[0].job_id
     watched, _ = collect(stub.Watch(pb.WatchRequest(job_id=job_id), timeout=120))
-    if watched[-1].finished.state != pb.FINISHED:
+    if watched[-1].finished.state != pb.DONE or watched[-1].finished.outcome != "converged":
         fail("detached job ended %s" % watched[-1].finished)
     chunks = list(stub.DownloadSolution(pb.DownloadSolutionRequest(job_id=job_id, rhs=0), timeout=60))
     x2 = []

@@ -114,22 +114,18 @@ func (MatrixEncoding) EnumDescriptor() ([]byte, []int) {
 	return file_residua_v1_residua_proto_rawDescGZIP(), []int{0}
 }
 
-// JobState is where a job is in its life.
+// JobState is where a job is in its life; how it ended is its outcome
+// (Job.outcome, Finished.outcome), one of the words of SolveResult.status.
 type JobState int32
 
 const (
 	JobState_JOB_STATE_UNSPECIFIED JobState = 0
-	// Waiting for a solve slot.
+	// Waiting for a solve slot ("queued").
 	JobState_QUEUED JobState = 1
-	// Setting up the preconditioner or iterating.
+	// Setting up the preconditioner or iterating ("running").
 	JobState_RUNNING JobState = 2
-	// Ran to a status for every right-hand side (which may be a status
-	// other than converged: see SolveResult.status).
-	JobState_FINISHED JobState = 3
-	// Stopped by an error (breakdown, not positive definite, internal).
-	JobState_FAILED JobState = 4
-	// Cancelled by CancelJob, by its attached stream ending, or by shutdown.
-	JobState_CANCELLED JobState = 5
+	// Ended ("done"), whatever the outcome.
+	JobState_DONE JobState = 3
 )
 
 // Enum value maps for JobState.
@@ -138,17 +134,13 @@ var (
 		0: "JOB_STATE_UNSPECIFIED",
 		1: "QUEUED",
 		2: "RUNNING",
-		3: "FINISHED",
-		4: "FAILED",
-		5: "CANCELLED",
+		3: "DONE",
 	}
 	JobState_value = map[string]int32{
 		"JOB_STATE_UNSPECIFIED": 0,
 		"QUEUED":                1,
 		"RUNNING":               2,
-		"FINISHED":              3,
-		"FAILED":                4,
-		"CANCELLED":             5,
+		"DONE":                  3,
 	}
 )
 
@@ -1045,13 +1037,15 @@ type SolveRequest struct {
 	// Starting guesses: none (zero), one per right-hand side, or one used
 	// for all.
 	X0 []*VectorRef `protobuf:"bytes,3,rep,name=x0,proto3" json:"x0,omitempty"`
-	// The method: "cg" (conjugate gradients, for a symmetric positive
-	// definite A; the default when empty), or a least-squares method for any
-	// A, square or rectangular, solving min ‖A·x − b‖₂² + damp²·‖x‖₂² with
-	// products by A and Aᵀ only: "lsq" (the server's choice, LSQR), "lsqr"
-	// (Paige and Saunders, ACM TOMS 8(1), 1982) or "cgls" (Björck, Numerical
-	// Methods for Least Squares Problems, 1996, §7.4). For least squares, b
-	// has as many entries as A has rows, x0 and x as many as A has columns.
+	// The method, in the words of the CLI and the JSON summaries: "auto"
+	// (the default when empty: conjugate gradients for a system, LSQR for
+	// least squares), "cg" (conjugate gradients, for a symmetric positive
+	// definite A), or a least-squares method for any A, square or
+	// rectangular, solving min ‖A·x − b‖₂² + damp²·‖x‖₂² with products by A
+	// and Aᵀ only: "lsqr" (Paige and Saunders, ACM TOMS 8(1), 1982) or "cgls"
+	// (Björck, Numerical Methods for Least Squares Problems, 1996, §7.4).
+	// For least squares, b has as many entries as A has rows, x0 and x as
+	// many as A has columns.
 	Method string `protobuf:"bytes,4,opt,name=method,proto3" json:"method,omitempty"`
 	// The preconditioner. For "cg": "auto" (default when empty), "none", or
 	// a kind of the server's precond package ("jacobi", "ic0"). For least
@@ -1083,8 +1077,11 @@ type SolveRequest struct {
 	// A label for people, shown in job lists.
 	Label string `protobuf:"bytes,14,opt,name=label,proto3" json:"label,omitempty"`
 	// Least squares only: btol (see rtol) and the damping λ ≥ 0.
-	Btol          float64 `protobuf:"fixed64,15,opt,name=btol,proto3" json:"btol,omitempty"`
-	Damp          float64 `protobuf:"fixed64,16,opt,name=damp,proto3" json:"damp,omitempty"`
+	Btol float64 `protobuf:"fixed64,15,opt,name=btol,proto3" json:"btol,omitempty"`
+	Damp float64 `protobuf:"fixed64,16,opt,name=damp,proto3" json:"damp,omitempty"`
+	// Solve the least-squares problem (implied by method lsqr or cgls; with
+	// method auto it picks LSQR).
+	LeastSquares  bool `protobuf:"varint,17,opt,name=least_squares,json=leastSquares,proto3" json:"least_squares,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1229,6 +1226,13 @@ func (x *SolveRequest) GetDamp() float64 {
 		return x.Damp
 	}
 	return 0
+}
+
+func (x *SolveRequest) GetLeastSquares() bool {
+	if x != nil {
+		return x.LeastSquares
+	}
+	return false
 }
 
 // JobEvent is one message of a Solve or Watch stream.
@@ -1665,16 +1669,18 @@ func (x *Progress) GetNormalResidualNorm() float64 {
 
 // Settings echoes the settings a solve used, defaults filled in.
 type Settings struct {
-	state   protoimpl.MessageState `protogen:"open.v1"`
-	Rtol    float64                `protobuf:"fixed64,1,opt,name=rtol,proto3" json:"rtol,omitempty"`
-	Atol    float64                `protobuf:"fixed64,2,opt,name=atol,proto3" json:"atol,omitempty"`
-	MaxIter int64                  `protobuf:"varint,3,opt,name=max_iter,json=maxIter,proto3" json:"max_iter,omitempty"`
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Systems only.
+	Rtol *float64 `protobuf:"fixed64,1,opt,name=rtol,proto3,oneof" json:"rtol,omitempty"`
+	// A system's absolute tolerance, or least squares' relative atol.
+	Atol    float64 `protobuf:"fixed64,2,opt,name=atol,proto3" json:"atol,omitempty"`
+	MaxIter int64   `protobuf:"varint,3,opt,name=max_iter,json=maxIter,proto3" json:"max_iter,omitempty"`
 	// Zero: no time budget.
 	TimeLimitSeconds float64 `protobuf:"fixed64,4,opt,name=time_limit_seconds,json=timeLimitSeconds,proto3" json:"time_limit_seconds,omitempty"`
 	RefreshEvery     int32   `protobuf:"varint,5,opt,name=refresh_every,json=refreshEvery,proto3" json:"refresh_every,omitempty"`
 	// Least squares only.
-	Btol          float64 `protobuf:"fixed64,6,opt,name=btol,proto3" json:"btol,omitempty"`
-	Damp          float64 `protobuf:"fixed64,7,opt,name=damp,proto3" json:"damp,omitempty"`
+	Btol          *float64 `protobuf:"fixed64,6,opt,name=btol,proto3,oneof" json:"btol,omitempty"`
+	Damp          *float64 `protobuf:"fixed64,7,opt,name=damp,proto3,oneof" json:"damp,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1710,8 +1716,8 @@ func (*Settings) Descriptor() ([]byte, []int) {
 }
 
 func (x *Settings) GetRtol() float64 {
-	if x != nil {
-		return x.Rtol
+	if x != nil && x.Rtol != nil {
+		return *x.Rtol
 	}
 	return 0
 }
@@ -1745,64 +1751,83 @@ func (x *Settings) GetRefreshEvery() int32 {
 }
 
 func (x *Settings) GetBtol() float64 {
-	if x != nil {
-		return x.Btol
+	if x != nil && x.Btol != nil {
+		return *x.Btol
 	}
 	return 0
 }
 
 func (x *Settings) GetDamp() float64 {
-	if x != nil {
-		return x.Damp
+	if x != nil && x.Damp != nil {
+		return *x.Damp
 	}
 	return 0
 }
 
-// SolveResult is the outcome for one right-hand side: the same fields as
-// the CLI's solve --json summary (lsq --json for least squares).
+// SolveResult is the outcome for one right-hand side: the fields of the
+// JSON summary the CLI's solve --json and lsq --json print (the README's
+// tables; the key is named beside a field whose name differs), for the
+// figures the server knows. An optional field is absent where the summary
+// leaves its key out (a figure of the other method).
 type SolveResult struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	Rhs   int32                  `protobuf:"varint,1,opt,name=rhs,proto3" json:"rhs,omitempty"`
+	// rhs_index: the right-hand side (0-based).
+	Rhs int32 `protobuf:"varint,1,opt,name=rhs,proto3" json:"rhs,omitempty"`
 	// True exactly when status is "converged".
 	Converged bool `protobuf:"varint,2,opt,name=converged,proto3" json:"converged,omitempty"`
-	// The solver's status: "converged", "iteration-limit", "time-limit",
-	// "cancelled", "stagnated" or "breakdown".
-	Status     string `protobuf:"bytes,3,opt,name=status,proto3" json:"status,omitempty"`
+	// The outcome: "converged", "iteration-limit", "time-limit",
+	// "stagnated", "cancelled", "breakdown", "setup-failed", "refused" or
+	// "failed".
+	Status string `protobuf:"bytes,3,opt,name=status,proto3" json:"status,omitempty"`
+	// The outcome in one sentence for people.
+	Headline   string `protobuf:"bytes,27,opt,name=headline,proto3" json:"headline,omitempty"`
 	Method     string `protobuf:"bytes,4,opt,name=method,proto3" json:"method,omitempty"`
 	Iterations int64  `protobuf:"varint,5,opt,name=iterations,proto3" json:"iterations,omitempty"`
 	// ‖b − A·x‖₂ recomputed from the returned x, divided by ‖b‖₂.
 	RelativeResidual float64 `protobuf:"fixed64,6,opt,name=relative_residual,json=relativeResidual,proto3" json:"relative_residual,omitempty"`
-	// The recursive residual norm at the end, and the true one.
-	ResidualNorm         float64 `protobuf:"fixed64,7,opt,name=residual_norm,json=residualNorm,proto3" json:"residual_norm,omitempty"`
-	TrueResidualNorm     float64 `protobuf:"fixed64,8,opt,name=true_residual_norm,json=trueResidualNorm,proto3" json:"true_residual_norm,omitempty"`
-	RhsNorm              float64 `protobuf:"fixed64,9,opt,name=rhs_norm,json=rhsNorm,proto3" json:"rhs_norm,omitempty"`
-	Preconditioner       string  `protobuf:"bytes,10,opt,name=preconditioner,proto3" json:"preconditioner,omitempty"`
-	PreconditionerReason string  `protobuf:"bytes,11,opt,name=preconditioner_reason,json=preconditionerReason,proto3" json:"preconditioner_reason,omitempty"`
-	Shift                float64 `protobuf:"fixed64,12,opt,name=shift,proto3" json:"shift,omitempty"`
-	SetupSeconds         float64 `protobuf:"fixed64,13,opt,name=setup_seconds,json=setupSeconds,proto3" json:"setup_seconds,omitempty"`
-	SolveSeconds         float64 `protobuf:"fixed64,14,opt,name=solve_seconds,json=solveSeconds,proto3" json:"solve_seconds,omitempty"`
-	PerIterationSeconds  float64 `protobuf:"fixed64,15,opt,name=per_iteration_seconds,json=perIterationSeconds,proto3" json:"per_iteration_seconds,omitempty"`
-	// Lanczos estimates from CG's coefficients for the preconditioned
-	// operator (zero when fewer than two iterations ran).
-	LambdaMin float64   `protobuf:"fixed64,16,opt,name=lambda_min,json=lambdaMin,proto3" json:"lambda_min,omitempty"`
-	LambdaMax float64   `protobuf:"fixed64,17,opt,name=lambda_max,json=lambdaMax,proto3" json:"lambda_max,omitempty"`
+	// Least squares only: ‖b − A·x‖₂.
+	ResidualNorm     *float64 `protobuf:"fixed64,7,opt,name=residual_norm,json=residualNorm,proto3,oneof" json:"residual_norm,omitempty"`
+	TrueResidualNorm float64  `protobuf:"fixed64,8,opt,name=true_residual_norm,json=trueResidualNorm,proto3" json:"true_residual_norm,omitempty"`
+	RhsNorm          float64  `protobuf:"fixed64,9,opt,name=rhs_norm,json=rhsNorm,proto3" json:"rhs_norm,omitempty"`
+	// Conjugate gradients only: the recursively updated residual at the end.
+	RecursiveResidualNorm     *float64 `protobuf:"fixed64,30,opt,name=recursive_residual_norm,json=recursiveResidualNorm,proto3,oneof" json:"recursive_residual_norm,omitempty"`
+	RecursiveRelativeResidual *float64 `protobuf:"fixed64,31,opt,name=recursive_relative_residual,json=recursiveRelativeResidual,proto3,oneof" json:"recursive_relative_residual,omitempty"`
+	Preconditioner            string   `protobuf:"bytes,10,opt,name=preconditioner,proto3" json:"preconditioner,omitempty"`
+	PreconditionerReason      string   `protobuf:"bytes,11,opt,name=preconditioner_reason,json=preconditionerReason,proto3" json:"preconditioner_reason,omitempty"`
+	Shift                     *float64 `protobuf:"fixed64,12,opt,name=shift,proto3,oneof" json:"shift,omitempty"`
+	ShiftTries                int32    `protobuf:"varint,28,opt,name=shift_tries,json=shiftTries,proto3" json:"shift_tries,omitempty"`
+	PreconditionerBytes       *int64   `protobuf:"varint,29,opt,name=preconditioner_bytes,json=preconditionerBytes,proto3,oneof" json:"preconditioner_bytes,omitempty"`
+	SetupSeconds              float64  `protobuf:"fixed64,13,opt,name=setup_seconds,json=setupSeconds,proto3" json:"setup_seconds,omitempty"`
+	SolveSeconds              float64  `protobuf:"fixed64,14,opt,name=solve_seconds,json=solveSeconds,proto3" json:"solve_seconds,omitempty"`
+	// seconds_per_iteration.
+	PerIterationSeconds float64 `protobuf:"fixed64,15,opt,name=per_iteration_seconds,json=perIterationSeconds,proto3" json:"per_iteration_seconds,omitempty"`
+	// Lanczos estimates for the preconditioned operator (conjugate gradients
+	// only: lambda_min_estimate, lambda_max_estimate) and the condition
+	// estimate (cond_estimate; of the scaled operator for least squares).
+	LambdaMin *float64  `protobuf:"fixed64,16,opt,name=lambda_min,json=lambdaMin,proto3,oneof" json:"lambda_min,omitempty"`
+	LambdaMax *float64  `protobuf:"fixed64,17,opt,name=lambda_max,json=lambdaMax,proto3,oneof" json:"lambda_max,omitempty"`
 	Cond      float64   `protobuf:"fixed64,18,opt,name=cond,proto3" json:"cond,omitempty"`
 	Settings  *Settings `protobuf:"bytes,19,opt,name=settings,proto3" json:"settings,omitempty"`
-	FromCache bool      `protobuf:"varint,20,opt,name=from_cache,json=fromCache,proto3" json:"from_cache,omitempty"`
-	// For a breakdown: what broke down, in words.
+	// preconditioner_from_cache.
+	FromCache bool `protobuf:"varint,20,opt,name=from_cache,json=fromCache,proto3" json:"from_cache,omitempty"`
+	// What broke down or failed, in words.
 	Error string `protobuf:"bytes,21,opt,name=error,proto3" json:"error,omitempty"`
 	// Least squares only: ‖Aᵀr − damp²·x‖₂ recomputed from x, ‖x‖₂, the
-	// estimate of ‖A‖ (Frobenius, of the scaled operator) the rules used,
-	// the rule that was met ("residual" or "normal-residual"), and A's zero
-	// columns (0-based; A is then rank deficient). cond above is then the
-	// condition estimate of the scaled operator (Paige and Saunders §5).
-	NormalResidualNorm float64 `protobuf:"fixed64,22,opt,name=normal_residual_norm,json=normalResidualNorm,proto3" json:"normal_residual_norm,omitempty"`
-	XNorm              float64 `protobuf:"fixed64,23,opt,name=x_norm,json=xNorm,proto3" json:"x_norm,omitempty"`
-	ANormEstimate      float64 `protobuf:"fixed64,24,opt,name=a_norm_estimate,json=aNormEstimate,proto3" json:"a_norm_estimate,omitempty"`
-	StoppedBy          string  `protobuf:"bytes,25,opt,name=stopped_by,json=stoppedBy,proto3" json:"stopped_by,omitempty"`
-	ZeroColumns        []int64 `protobuf:"varint,26,rep,packed,name=zero_columns,json=zeroColumns,proto3" json:"zero_columns,omitempty"`
-	unknownFields      protoimpl.UnknownFields
-	sizeCache          protoimpl.SizeCache
+	// estimate of ‖A‖ (norm_estimate), the rule that was met ("residual" or
+	// "normal-residual") and A's zero columns (0-based).
+	NormalResidualNorm *float64 `protobuf:"fixed64,22,opt,name=normal_residual_norm,json=normalResidualNorm,proto3,oneof" json:"normal_residual_norm,omitempty"`
+	XNorm              *float64 `protobuf:"fixed64,23,opt,name=x_norm,json=xNorm,proto3,oneof" json:"x_norm,omitempty"`
+	ANormEstimate      *float64 `protobuf:"fixed64,24,opt,name=a_norm_estimate,json=aNormEstimate,proto3,oneof" json:"a_norm_estimate,omitempty"`
+	StoppedBy          string   `protobuf:"bytes,25,opt,name=stopped_by,json=stoppedBy,proto3" json:"stopped_by,omitempty"`
+	ZeroColumns        []int64  `protobuf:"varint,26,rep,packed,name=zero_columns,json=zeroColumns,proto3" json:"zero_columns,omitempty"`
+	// The matrix: its name, id and shape.
+	Matrix        string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
+	MatrixId      string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
+	Rows          int64  `protobuf:"varint,34,opt,name=rows,proto3" json:"rows,omitempty"`
+	Cols          int64  `protobuf:"varint,35,opt,name=cols,proto3" json:"cols,omitempty"`
+	Nonzeros      int64  `protobuf:"varint,36,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *SolveResult) Reset() {
@@ -1856,6 +1881,13 @@ func (x *SolveResult) GetStatus() string {
 	return ""
 }
 
+func (x *SolveResult) GetHeadline() string {
+	if x != nil {
+		return x.Headline
+	}
+	return ""
+}
+
 func (x *SolveResult) GetMethod() string {
 	if x != nil {
 		return x.Method
@@ -1878,8 +1910,8 @@ func (x *SolveResult) GetRelativeResidual() float64 {
 }
 
 func (x *SolveResult) GetResidualNorm() float64 {
-	if x != nil {
-		return x.ResidualNorm
+	if x != nil && x.ResidualNorm != nil {
+		return *x.ResidualNorm
 	}
 	return 0
 }
@@ -1894,6 +1926,20 @@ func (x *SolveResult) GetTrueResidualNorm() float64 {
 func (x *SolveResult) GetRhsNorm() float64 {
 	if x != nil {
 		return x.RhsNorm
+	}
+	return 0
+}
+
+func (x *SolveResult) GetRecursiveResidualNorm() float64 {
+	if x != nil && x.RecursiveResidualNorm != nil {
+		return *x.RecursiveResidualNorm
+	}
+	return 0
+}
+
+func (x *SolveResult) GetRecursiveRelativeResidual() float64 {
+	if x != nil && x.RecursiveRelativeResidual != nil {
+		return *x.RecursiveRelativeResidual
 	}
 	return 0
 }
@@ -1913,8 +1959,22 @@ func (x *SolveResult) GetPreconditionerReason() string {
 }
 
 func (x *SolveResult) GetShift() float64 {
+	if x != nil && x.Shift != nil {
+		return *x.Shift
+	}
+	return 0
+}
+
+func (x *SolveResult) GetShiftTries() int32 {
 	if x != nil {
-		return x.Shift
+		return x.ShiftTries
+	}
+	return 0
+}
+
+func (x *SolveResult) GetPreconditionerBytes() int64 {
+	if x != nil && x.PreconditionerBytes != nil {
+		return *x.PreconditionerBytes
 	}
 	return 0
 }
@@ -1941,15 +2001,15 @@ func (x *SolveResult) GetPerIterationSeconds() float64 {
 }
 
 func (x *SolveResult) GetLambdaMin() float64 {
-	if x != nil {
-		return x.LambdaMin
+	if x != nil && x.LambdaMin != nil {
+		return *x.LambdaMin
 	}
 	return 0
 }
 
 func (x *SolveResult) GetLambdaMax() float64 {
-	if x != nil {
-		return x.LambdaMax
+	if x != nil && x.LambdaMax != nil {
+		return *x.LambdaMax
 	}
 	return 0
 }
@@ -1983,22 +2043,22 @@ func (x *SolveResult) GetError() string {
 }
 
 func (x *SolveResult) GetNormalResidualNorm() float64 {
-	if x != nil {
-		return x.NormalResidualNorm
+	if x != nil && x.NormalResidualNorm != nil {
+		return *x.NormalResidualNorm
 	}
 	return 0
 }
 
 func (x *SolveResult) GetXNorm() float64 {
-	if x != nil {
-		return x.XNorm
+	if x != nil && x.XNorm != nil {
+		return *x.XNorm
 	}
 	return 0
 }
 
 func (x *SolveResult) GetANormEstimate() float64 {
-	if x != nil {
-		return x.ANormEstimate
+	if x != nil && x.ANormEstimate != nil {
+		return *x.ANormEstimate
 	}
 	return 0
 }
@@ -2017,6 +2077,41 @@ func (x *SolveResult) GetZeroColumns() []int64 {
 	return nil
 }
 
+func (x *SolveResult) GetMatrix() string {
+	if x != nil {
+		return x.Matrix
+	}
+	return ""
+}
+
+func (x *SolveResult) GetMatrixId() string {
+	if x != nil {
+		return x.MatrixId
+	}
+	return ""
+}
+
+func (x *SolveResult) GetRows() int64 {
+	if x != nil {
+		return x.Rows
+	}
+	return 0
+}
+
+func (x *SolveResult) GetCols() int64 {
+	if x != nil {
+		return x.Cols
+	}
+	return 0
+}
+
+func (x *SolveResult) GetNonzeros() int64 {
+	if x != nil {
+		return x.Nonzeros
+	}
+	return 0
+}
+
 // VectorChunk is a piece of a solution vector.
 type VectorChunk struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -2029,7 +2124,10 @@ type VectorChunk struct {
 	// Packed little-endian float64 entries (whole entries, at most 4 MB).
 	Data []byte `protobuf:"bytes,4,opt,name=data,proto3" json:"data,omitempty"`
 	// This is the vector's final chunk.
-	Last          bool `protobuf:"varint,5,opt,name=last,proto3" json:"last,omitempty"`
+	Last bool `protobuf:"varint,5,opt,name=last,proto3" json:"last,omitempty"`
+	// Final chunk only: the lowercase hex SHA-256 of the whole vector's
+	// packed bytes, which the receiver checks together with the length.
+	Sha256        string `protobuf:"bytes,6,opt,name=sha256,proto3" json:"sha256,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -2099,11 +2197,25 @@ func (x *VectorChunk) GetLast() bool {
 	return false
 }
 
+func (x *VectorChunk) GetSha256() string {
+	if x != nil {
+		return x.Sha256
+	}
+	return ""
+}
+
 // Finished is the last event of a job.
 type Finished struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	State JobState               `protobuf:"varint,1,opt,name=state,proto3,enum=residua.v1.JobState" json:"state,omitempty"`
-	// The error that ended the job, in words (empty when FINISHED).
+	// DONE.
+	State JobState `protobuf:"varint,1,opt,name=state,proto3,enum=residua.v1.JobState" json:"state,omitempty"`
+	// How the job ended: the first right-hand side's status that was not
+	// "converged", or "converged"; "cancelled" when it was cancelled,
+	// "setup-failed" when its preconditioner could not be set up, "failed"
+	// when the server failed.
+	Outcome string `protobuf:"bytes,5,opt,name=outcome,proto3" json:"outcome,omitempty"`
+	// The error that ended the job, in words (empty when it ran to a status
+	// for every right-hand side).
 	Error string `protobuf:"bytes,2,opt,name=error,proto3" json:"error,omitempty"`
 	// Progress events this stream dropped because it read too slowly.
 	DroppedProgress int64   `protobuf:"varint,3,opt,name=dropped_progress,json=droppedProgress,proto3" json:"dropped_progress,omitempty"`
@@ -2149,6 +2261,13 @@ func (x *Finished) GetState() JobState {
 	return JobState_JOB_STATE_UNSPECIFIED
 }
 
+func (x *Finished) GetOutcome() string {
+	if x != nil {
+		return x.Outcome
+	}
+	return ""
+}
+
 func (x *Finished) GetError() string {
 	if x != nil {
 		return x.Error
@@ -2172,14 +2291,18 @@ func (x *Finished) GetElapsedSeconds() float64 {
 
 // Job describes a job.
 type Job struct {
-	state      protoimpl.MessageState `protogen:"open.v1"`
-	Id         string                 `protobuf:"bytes,1,opt,name=id,proto3" json:"id,omitempty"`
-	State      JobState               `protobuf:"varint,2,opt,name=state,proto3,enum=residua.v1.JobState" json:"state,omitempty"`
-	MatrixId   string                 `protobuf:"bytes,3,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
-	MatrixName string                 `protobuf:"bytes,4,opt,name=matrix_name,json=matrixName,proto3" json:"matrix_name,omitempty"`
-	Rows       int64                  `protobuf:"varint,5,opt,name=rows,proto3" json:"rows,omitempty"`
-	Nonzeros   int64                  `protobuf:"varint,6,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
-	Method     string                 `protobuf:"bytes,7,opt,name=method,proto3" json:"method,omitempty"`
+	state protoimpl.MessageState `protogen:"open.v1"`
+	Id    string                 `protobuf:"bytes,1,opt,name=id,proto3" json:"id,omitempty"`
+	State JobState               `protobuf:"varint,2,opt,name=state,proto3,enum=residua.v1.JobState" json:"state,omitempty"`
+	// Empty until the job is done; then as Finished.outcome.
+	Outcome    string `protobuf:"bytes,22,opt,name=outcome,proto3" json:"outcome,omitempty"`
+	MatrixId   string `protobuf:"bytes,3,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
+	MatrixName string `protobuf:"bytes,4,opt,name=matrix_name,json=matrixName,proto3" json:"matrix_name,omitempty"`
+	Rows       int64  `protobuf:"varint,5,opt,name=rows,proto3" json:"rows,omitempty"`
+	Cols       int64  `protobuf:"varint,23,opt,name=cols,proto3" json:"cols,omitempty"`
+	Nonzeros   int64  `protobuf:"varint,6,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
+	// The method that runs (never "auto").
+	Method string `protobuf:"bytes,7,opt,name=method,proto3" json:"method,omitempty"`
 	// The preconditioner requested, and the kind chosen once accepted.
 	PreconditionerRequested string `protobuf:"bytes,8,opt,name=preconditioner_requested,json=preconditionerRequested,proto3" json:"preconditioner_requested,omitempty"`
 	Preconditioner          string `protobuf:"bytes,9,opt,name=preconditioner,proto3" json:"preconditioner,omitempty"`
@@ -2250,6 +2373,13 @@ func (x *Job) GetState() JobState {
 	return JobState_JOB_STATE_UNSPECIFIED
 }
 
+func (x *Job) GetOutcome() string {
+	if x != nil {
+		return x.Outcome
+	}
+	return ""
+}
+
 func (x *Job) GetMatrixId() string {
 	if x != nil {
 		return x.MatrixId
@@ -2267,6 +2397,13 @@ func (x *Job) GetMatrixName() string {
 func (x *Job) GetRows() int64 {
 	if x != nil {
 		return x.Rows
+	}
+	return 0
+}
+
+func (x *Job) GetCols() int64 {
+	if x != nil {
+		return x.Cols
 	}
 	return 0
 }
@@ -2471,6 +2608,194 @@ func (x *GetJobRequest) GetJobId() string {
 	return ""
 }
 
+type GetMatrixRequest struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Id            string                 `protobuf:"bytes,1,opt,name=id,proto3" json:"id,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetMatrixRequest) Reset() {
+	*x = GetMatrixRequest{}
+	mi := &file_residua_v1_residua_proto_msgTypes[24]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetMatrixRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetMatrixRequest) ProtoMessage() {}
+
+func (x *GetMatrixRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_residua_v1_residua_proto_msgTypes[24]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetMatrixRequest.ProtoReflect.Descriptor instead.
+func (*GetMatrixRequest) Descriptor() ([]byte, []int) {
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{24}
+}
+
+func (x *GetMatrixRequest) GetId() string {
+	if x != nil {
+		return x.Id
+	}
+	return ""
+}
+
+type GetHistoryRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	JobId string                 `protobuf:"bytes,1,opt,name=job_id,json=jobId,proto3" json:"job_id,omitempty"`
+	// Index of the right-hand side (0-based).
+	Rhs           int32 `protobuf:"varint,2,opt,name=rhs,proto3" json:"rhs,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetHistoryRequest) Reset() {
+	*x = GetHistoryRequest{}
+	mi := &file_residua_v1_residua_proto_msgTypes[25]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetHistoryRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetHistoryRequest) ProtoMessage() {}
+
+func (x *GetHistoryRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_residua_v1_residua_proto_msgTypes[25]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetHistoryRequest.ProtoReflect.Descriptor instead.
+func (*GetHistoryRequest) Descriptor() ([]byte, []int) {
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{25}
+}
+
+func (x *GetHistoryRequest) GetJobId() string {
+	if x != nil {
+		return x.JobId
+	}
+	return ""
+}
+
+func (x *GetHistoryRequest) GetRhs() int32 {
+	if x != nil {
+		return x.Rhs
+	}
+	return 0
+}
+
+// History is one right-hand side's convergence history.
+type History struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	JobId string                 `protobuf:"bytes,1,opt,name=job_id,json=jobId,proto3" json:"job_id,omitempty"`
+	Rhs   int32                  `protobuf:"varint,2,opt,name=rhs,proto3" json:"rhs,omitempty"`
+	// The rows in order, iteration 0 first; rhs is set in each.
+	Rows []*Progress `protobuf:"bytes,3,rep,name=rows,proto3" json:"rows,omitempty"`
+	// Rows were left out to bound the memory: the rows are evenly spaced
+	// samples of the solve (arrivals at multiples of a power-of-two stride)
+	// with its first and latest rows exact.
+	Thinned bool `protobuf:"varint,4,opt,name=thinned,proto3" json:"thinned,omitempty"`
+	// The rows recorded, kept or not.
+	Recorded int64 `protobuf:"varint,5,opt,name=recorded,proto3" json:"recorded,omitempty"`
+	// The rows carry normal_residual_norm (a least-squares solve).
+	LeastSquares  bool `protobuf:"varint,6,opt,name=least_squares,json=leastSquares,proto3" json:"least_squares,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *History) Reset() {
+	*x = History{}
+	mi := &file_residua_v1_residua_proto_msgTypes[26]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *History) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*History) ProtoMessage() {}
+
+func (x *History) ProtoReflect() protoreflect.Message {
+	mi := &file_residua_v1_residua_proto_msgTypes[26]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use History.ProtoReflect.Descriptor instead.
+func (*History) Descriptor() ([]byte, []int) {
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{26}
+}
+
+func (x *History) GetJobId() string {
+	if x != nil {
+		return x.JobId
+	}
+	return ""
+}
+
+func (x *History) GetRhs() int32 {
+	if x != nil {
+		return x.Rhs
+	}
+	return 0
+}
+
+func (x *History) GetRows() []*Progress {
+	if x != nil {
+		return x.Rows
+	}
+	return nil
+}
+
+func (x *History) GetThinned() bool {
+	if x != nil {
+		return x.Thinned
+	}
+	return false
+}
+
+func (x *History) GetRecorded() int64 {
+	if x != nil {
+		return x.Recorded
+	}
+	return 0
+}
+
+func (x *History) GetLeastSquares() bool {
+	if x != nil {
+		return x.LeastSquares
+	}
+	return false
+}
+
 type ListJobsRequest struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
 	unknownFields protoimpl.UnknownFields
@@ -2479,7 +2804,7 @@ type ListJobsRequest struct {
 
 func (x *ListJobsRequest) Reset() {
 	*x = ListJobsRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[24]
+	mi := &file_residua_v1_residua_proto_msgTypes[27]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2491,7 +2816,7 @@ func (x *ListJobsRequest) String() string {
 func (*ListJobsRequest) ProtoMessage() {}
 
 func (x *ListJobsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[24]
+	mi := &file_residua_v1_residua_proto_msgTypes[27]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2504,7 +2829,7 @@ func (x *ListJobsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListJobsRequest.ProtoReflect.Descriptor instead.
 func (*ListJobsRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{24}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{27}
 }
 
 type ListJobsResponse struct {
@@ -2516,7 +2841,7 @@ type ListJobsResponse struct {
 
 func (x *ListJobsResponse) Reset() {
 	*x = ListJobsResponse{}
-	mi := &file_residua_v1_residua_proto_msgTypes[25]
+	mi := &file_residua_v1_residua_proto_msgTypes[28]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2528,7 +2853,7 @@ func (x *ListJobsResponse) String() string {
 func (*ListJobsResponse) ProtoMessage() {}
 
 func (x *ListJobsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[25]
+	mi := &file_residua_v1_residua_proto_msgTypes[28]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2541,7 +2866,7 @@ func (x *ListJobsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListJobsResponse.ProtoReflect.Descriptor instead.
 func (*ListJobsResponse) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{25}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{28}
 }
 
 func (x *ListJobsResponse) GetJobs() []*Job {
@@ -2560,7 +2885,7 @@ type CancelJobRequest struct {
 
 func (x *CancelJobRequest) Reset() {
 	*x = CancelJobRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[26]
+	mi := &file_residua_v1_residua_proto_msgTypes[29]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2572,7 +2897,7 @@ func (x *CancelJobRequest) String() string {
 func (*CancelJobRequest) ProtoMessage() {}
 
 func (x *CancelJobRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[26]
+	mi := &file_residua_v1_residua_proto_msgTypes[29]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2585,7 +2910,7 @@ func (x *CancelJobRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CancelJobRequest.ProtoReflect.Descriptor instead.
 func (*CancelJobRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{26}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{29}
 }
 
 func (x *CancelJobRequest) GetJobId() string {
@@ -2608,7 +2933,7 @@ type DownloadSolutionRequest struct {
 
 func (x *DownloadSolutionRequest) Reset() {
 	*x = DownloadSolutionRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[27]
+	mi := &file_residua_v1_residua_proto_msgTypes[30]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2620,7 +2945,7 @@ func (x *DownloadSolutionRequest) String() string {
 func (*DownloadSolutionRequest) ProtoMessage() {}
 
 func (x *DownloadSolutionRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[27]
+	mi := &file_residua_v1_residua_proto_msgTypes[30]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2633,7 +2958,7 @@ func (x *DownloadSolutionRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DownloadSolutionRequest.ProtoReflect.Descriptor instead.
 func (*DownloadSolutionRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{27}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{30}
 }
 
 func (x *DownloadSolutionRequest) GetJobId() string {
@@ -2718,7 +3043,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"freedBytes\"r\n" +
 	"\x0eProgressPolicy\x12)\n" +
 	"\x10every_iterations\x18\x01 \x01(\x05R\x0feveryIterations\x125\n" +
-	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\x90\x04\n" +
+	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\xb5\x04\n" +
 	"\fSolveRequest\x12\x1b\n" +
 	"\tmatrix_id\x18\x01 \x01(\tR\bmatrixId\x12'\n" +
 	"\x03rhs\x18\x02 \x03(\v2\x15.residua.v1.VectorRefR\x03rhs\x12%\n" +
@@ -2737,7 +3062,8 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\rkeep_solution\x18\r \x01(\bR\fkeepSolution\x12\x14\n" +
 	"\x05label\x18\x0e \x01(\tR\x05label\x12\x12\n" +
 	"\x04btol\x18\x0f \x01(\x01R\x04btol\x12\x12\n" +
-	"\x04damp\x18\x10 \x01(\x01R\x04damp\"\xf0\x02\n" +
+	"\x04damp\x18\x10 \x01(\x01R\x04damp\x12#\n" +
+	"\rleast_squares\x18\x11 \x01(\bR\fleastSquares\"\xf0\x02\n" +
 	"\bJobEvent\x12\x10\n" +
 	"\x03seq\x18\x01 \x01(\x04R\x03seq\x12\x15\n" +
 	"\x06job_id\x18\x02 \x01(\tR\x05jobId\x12,\n" +
@@ -2770,67 +3096,95 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x0felapsed_seconds\x18\x03 \x01(\x01R\x0eelapsedSeconds\x12#\n" +
 	"\rresidual_norm\x18\x04 \x01(\x01R\fresidualNorm\x12+\n" +
 	"\x11relative_residual\x18\x05 \x01(\x01R\x10relativeResidual\x120\n" +
-	"\x14normal_residual_norm\x18\x06 \x01(\x01R\x12normalResidualNorm\"\xc8\x01\n" +
-	"\bSettings\x12\x12\n" +
-	"\x04rtol\x18\x01 \x01(\x01R\x04rtol\x12\x12\n" +
+	"\x14normal_residual_norm\x18\x06 \x01(\x01R\x12normalResidualNorm\"\xf2\x01\n" +
+	"\bSettings\x12\x17\n" +
+	"\x04rtol\x18\x01 \x01(\x01H\x00R\x04rtol\x88\x01\x01\x12\x12\n" +
 	"\x04atol\x18\x02 \x01(\x01R\x04atol\x12\x19\n" +
 	"\bmax_iter\x18\x03 \x01(\x03R\amaxIter\x12,\n" +
 	"\x12time_limit_seconds\x18\x04 \x01(\x01R\x10timeLimitSeconds\x12#\n" +
-	"\rrefresh_every\x18\x05 \x01(\x05R\frefreshEvery\x12\x12\n" +
-	"\x04btol\x18\x06 \x01(\x01R\x04btol\x12\x12\n" +
-	"\x04damp\x18\a \x01(\x01R\x04damp\"\x85\a\n" +
+	"\rrefresh_every\x18\x05 \x01(\x05R\frefreshEvery\x12\x17\n" +
+	"\x04btol\x18\x06 \x01(\x01H\x01R\x04btol\x88\x01\x01\x12\x17\n" +
+	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
+	"\x05_rtolB\a\n" +
+	"\x05_btolB\a\n" +
+	"\x05_damp\"\xdf\v\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
-	"\x06status\x18\x03 \x01(\tR\x06status\x12\x16\n" +
+	"\x06status\x18\x03 \x01(\tR\x06status\x12\x1a\n" +
+	"\bheadline\x18\x1b \x01(\tR\bheadline\x12\x16\n" +
 	"\x06method\x18\x04 \x01(\tR\x06method\x12\x1e\n" +
 	"\n" +
 	"iterations\x18\x05 \x01(\x03R\n" +
 	"iterations\x12+\n" +
-	"\x11relative_residual\x18\x06 \x01(\x01R\x10relativeResidual\x12#\n" +
-	"\rresidual_norm\x18\a \x01(\x01R\fresidualNorm\x12,\n" +
+	"\x11relative_residual\x18\x06 \x01(\x01R\x10relativeResidual\x12(\n" +
+	"\rresidual_norm\x18\a \x01(\x01H\x00R\fresidualNorm\x88\x01\x01\x12,\n" +
 	"\x12true_residual_norm\x18\b \x01(\x01R\x10trueResidualNorm\x12\x19\n" +
-	"\brhs_norm\x18\t \x01(\x01R\arhsNorm\x12&\n" +
+	"\brhs_norm\x18\t \x01(\x01R\arhsNorm\x12;\n" +
+	"\x17recursive_residual_norm\x18\x1e \x01(\x01H\x01R\x15recursiveResidualNorm\x88\x01\x01\x12C\n" +
+	"\x1brecursive_relative_residual\x18\x1f \x01(\x01H\x02R\x19recursiveRelativeResidual\x88\x01\x01\x12&\n" +
 	"\x0epreconditioner\x18\n" +
 	" \x01(\tR\x0epreconditioner\x123\n" +
-	"\x15preconditioner_reason\x18\v \x01(\tR\x14preconditionerReason\x12\x14\n" +
-	"\x05shift\x18\f \x01(\x01R\x05shift\x12#\n" +
+	"\x15preconditioner_reason\x18\v \x01(\tR\x14preconditionerReason\x12\x19\n" +
+	"\x05shift\x18\f \x01(\x01H\x03R\x05shift\x88\x01\x01\x12\x1f\n" +
+	"\vshift_tries\x18\x1c \x01(\x05R\n" +
+	"shiftTries\x126\n" +
+	"\x14preconditioner_bytes\x18\x1d \x01(\x03H\x04R\x13preconditionerBytes\x88\x01\x01\x12#\n" +
 	"\rsetup_seconds\x18\r \x01(\x01R\fsetupSeconds\x12#\n" +
 	"\rsolve_seconds\x18\x0e \x01(\x01R\fsolveSeconds\x122\n" +
-	"\x15per_iteration_seconds\x18\x0f \x01(\x01R\x13perIterationSeconds\x12\x1d\n" +
+	"\x15per_iteration_seconds\x18\x0f \x01(\x01R\x13perIterationSeconds\x12\"\n" +
 	"\n" +
-	"lambda_min\x18\x10 \x01(\x01R\tlambdaMin\x12\x1d\n" +
+	"lambda_min\x18\x10 \x01(\x01H\x05R\tlambdaMin\x88\x01\x01\x12\"\n" +
 	"\n" +
-	"lambda_max\x18\x11 \x01(\x01R\tlambdaMax\x12\x12\n" +
+	"lambda_max\x18\x11 \x01(\x01H\x06R\tlambdaMax\x88\x01\x01\x12\x12\n" +
 	"\x04cond\x18\x12 \x01(\x01R\x04cond\x120\n" +
 	"\bsettings\x18\x13 \x01(\v2\x14.residua.v1.SettingsR\bsettings\x12\x1d\n" +
 	"\n" +
 	"from_cache\x18\x14 \x01(\bR\tfromCache\x12\x14\n" +
-	"\x05error\x18\x15 \x01(\tR\x05error\x120\n" +
-	"\x14normal_residual_norm\x18\x16 \x01(\x01R\x12normalResidualNorm\x12\x15\n" +
-	"\x06x_norm\x18\x17 \x01(\x01R\x05xNorm\x12&\n" +
-	"\x0fa_norm_estimate\x18\x18 \x01(\x01R\raNormEstimate\x12\x1d\n" +
+	"\x05error\x18\x15 \x01(\tR\x05error\x125\n" +
+	"\x14normal_residual_norm\x18\x16 \x01(\x01H\aR\x12normalResidualNorm\x88\x01\x01\x12\x1a\n" +
+	"\x06x_norm\x18\x17 \x01(\x01H\bR\x05xNorm\x88\x01\x01\x12+\n" +
+	"\x0fa_norm_estimate\x18\x18 \x01(\x01H\tR\raNormEstimate\x88\x01\x01\x12\x1d\n" +
 	"\n" +
 	"stopped_by\x18\x19 \x01(\tR\tstoppedBy\x12!\n" +
-	"\fzero_columns\x18\x1a \x03(\x03R\vzeroColumns\"w\n" +
+	"\fzero_columns\x18\x1a \x03(\x03R\vzeroColumns\x12\x16\n" +
+	"\x06matrix\x18  \x01(\tR\x06matrix\x12\x1b\n" +
+	"\tmatrix_id\x18! \x01(\tR\bmatrixId\x12\x12\n" +
+	"\x04rows\x18\" \x01(\x03R\x04rows\x12\x12\n" +
+	"\x04cols\x18# \x01(\x03R\x04cols\x12\x1a\n" +
+	"\bnonzeros\x18$ \x01(\x03R\bnonzerosB\x10\n" +
+	"\x0e_residual_normB\x1a\n" +
+	"\x18_recursive_residual_normB\x1e\n" +
+	"\x1c_recursive_relative_residualB\b\n" +
+	"\x06_shiftB\x17\n" +
+	"\x15_preconditioner_bytesB\r\n" +
+	"\v_lambda_minB\r\n" +
+	"\v_lambda_maxB\x17\n" +
+	"\x15_normal_residual_normB\t\n" +
+	"\a_x_normB\x12\n" +
+	"\x10_a_norm_estimate\"\x8f\x01\n" +
 	"\vVectorChunk\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x16\n" +
 	"\x06length\x18\x02 \x01(\x03R\x06length\x12\x16\n" +
 	"\x06offset\x18\x03 \x01(\x03R\x06offset\x12\x12\n" +
 	"\x04data\x18\x04 \x01(\fR\x04data\x12\x12\n" +
-	"\x04last\x18\x05 \x01(\bR\x04last\"\xa0\x01\n" +
+	"\x04last\x18\x05 \x01(\bR\x04last\x12\x16\n" +
+	"\x06sha256\x18\x06 \x01(\tR\x06sha256\"\xba\x01\n" +
 	"\bFinished\x12*\n" +
-	"\x05state\x18\x01 \x01(\x0e2\x14.residua.v1.JobStateR\x05state\x12\x14\n" +
+	"\x05state\x18\x01 \x01(\x0e2\x14.residua.v1.JobStateR\x05state\x12\x18\n" +
+	"\aoutcome\x18\x05 \x01(\tR\aoutcome\x12\x14\n" +
 	"\x05error\x18\x02 \x01(\tR\x05error\x12)\n" +
 	"\x10dropped_progress\x18\x03 \x01(\x03R\x0fdroppedProgress\x12'\n" +
-	"\x0felapsed_seconds\x18\x04 \x01(\x01R\x0eelapsedSeconds\"\xbc\x05\n" +
+	"\x0felapsed_seconds\x18\x04 \x01(\x01R\x0eelapsedSeconds\"\xea\x05\n" +
 	"\x03Job\x12\x0e\n" +
 	"\x02id\x18\x01 \x01(\tR\x02id\x12*\n" +
-	"\x05state\x18\x02 \x01(\x0e2\x14.residua.v1.JobStateR\x05state\x12\x1b\n" +
+	"\x05state\x18\x02 \x01(\x0e2\x14.residua.v1.JobStateR\x05state\x12\x18\n" +
+	"\aoutcome\x18\x16 \x01(\tR\aoutcome\x12\x1b\n" +
 	"\tmatrix_id\x18\x03 \x01(\tR\bmatrixId\x12\x1f\n" +
 	"\vmatrix_name\x18\x04 \x01(\tR\n" +
 	"matrixName\x12\x12\n" +
-	"\x04rows\x18\x05 \x01(\x03R\x04rows\x12\x1a\n" +
+	"\x04rows\x18\x05 \x01(\x03R\x04rows\x12\x12\n" +
+	"\x04cols\x18\x17 \x01(\x03R\x04cols\x12\x1a\n" +
 	"\bnonzeros\x18\x06 \x01(\x03R\bnonzeros\x12\x16\n" +
 	"\x06method\x18\a \x01(\tR\x06method\x129\n" +
 	"\x18preconditioner_requested\x18\b \x01(\tR\x17preconditionerRequested\x12&\n" +
@@ -2851,7 +3205,19 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\fWatchRequest\x12\x15\n" +
 	"\x06job_id\x18\x01 \x01(\tR\x05jobId\"&\n" +
 	"\rGetJobRequest\x12\x15\n" +
-	"\x06job_id\x18\x01 \x01(\tR\x05jobId\"\x11\n" +
+	"\x06job_id\x18\x01 \x01(\tR\x05jobId\"\"\n" +
+	"\x10GetMatrixRequest\x12\x0e\n" +
+	"\x02id\x18\x01 \x01(\tR\x02id\"<\n" +
+	"\x11GetHistoryRequest\x12\x15\n" +
+	"\x06job_id\x18\x01 \x01(\tR\x05jobId\x12\x10\n" +
+	"\x03rhs\x18\x02 \x01(\x05R\x03rhs\"\xb7\x01\n" +
+	"\aHistory\x12\x15\n" +
+	"\x06job_id\x18\x01 \x01(\tR\x05jobId\x12\x10\n" +
+	"\x03rhs\x18\x02 \x01(\x05R\x03rhs\x12(\n" +
+	"\x04rows\x18\x03 \x03(\v2\x14.residua.v1.ProgressR\x04rows\x12\x18\n" +
+	"\athinned\x18\x04 \x01(\bR\athinned\x12\x1a\n" +
+	"\brecorded\x18\x05 \x01(\x03R\brecorded\x12#\n" +
+	"\rleast_squares\x18\x06 \x01(\bR\fleastSquares\"\x11\n" +
 	"\x0fListJobsRequest\"7\n" +
 	"\x10ListJobsResponse\x12#\n" +
 	"\x04jobs\x18\x01 \x03(\v2\x0f.residua.v1.JobR\x04jobs\")\n" +
@@ -2864,24 +3230,24 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x0eMatrixEncoding\x12\x1f\n" +
 	"\x1bMATRIX_ENCODING_UNSPECIFIED\x10\x00\x12\x11\n" +
 	"\rMATRIX_MARKET\x10\x01\x12\v\n" +
-	"\aCSR_RAW\x10\x02*g\n" +
+	"\aCSR_RAW\x10\x02*q\n" +
 	"\bJobState\x12\x19\n" +
 	"\x15JOB_STATE_UNSPECIFIED\x10\x00\x12\n" +
 	"\n" +
 	"\x06QUEUED\x10\x01\x12\v\n" +
-	"\aRUNNING\x10\x02\x12\f\n" +
-	"\bFINISHED\x10\x03\x12\n" +
-	"\n" +
-	"\x06FAILED\x10\x04\x12\r\n" +
-	"\tCANCELLED\x10\x052\xc3\x05\n" +
+	"\aRUNNING\x10\x02\x12\b\n" +
+	"\x04DONE\x10\x03\"\x04\b\x04\x10\x04\"\x04\b\x05\x10\x05*\bFINISHED*\x06FAILED*\tCANCELLED2\xc4\x06\n" +
 	"\x06Solver\x12E\n" +
 	"\fUploadMatrix\x12\x1f.residua.v1.UploadMatrixRequest\x1a\x12.residua.v1.Matrix(\x01\x12I\n" +
 	"\fUploadVector\x12\x1f.residua.v1.UploadVectorRequest\x1a\x16.residua.v1.VectorInfo(\x01\x12Q\n" +
-	"\fListMatrices\x12\x1f.residua.v1.ListMatricesRequest\x1a .residua.v1.ListMatricesResponse\x12Q\n" +
+	"\fListMatrices\x12\x1f.residua.v1.ListMatricesRequest\x1a .residua.v1.ListMatricesResponse\x12=\n" +
+	"\tGetMatrix\x12\x1c.residua.v1.GetMatrixRequest\x1a\x12.residua.v1.Matrix\x12Q\n" +
 	"\fDeleteMatrix\x12\x1f.residua.v1.DeleteMatrixRequest\x1a .residua.v1.DeleteMatrixResponse\x129\n" +
 	"\x05Solve\x12\x18.residua.v1.SolveRequest\x1a\x14.residua.v1.JobEvent0\x01\x129\n" +
 	"\x05Watch\x12\x18.residua.v1.WatchRequest\x1a\x14.residua.v1.JobEvent0\x01\x124\n" +
-	"\x06GetJob\x12\x19.residua.v1.GetJobRequest\x1a\x0f.residua.v1.Job\x12E\n" +
+	"\x06GetJob\x12\x19.residua.v1.GetJobRequest\x1a\x0f.residua.v1.Job\x12@\n" +
+	"\n" +
+	"GetHistory\x12\x1d.residua.v1.GetHistoryRequest\x1a\x13.residua.v1.History\x12E\n" +
 	"\bListJobs\x12\x1b.residua.v1.ListJobsRequest\x1a\x1c.residua.v1.ListJobsResponse\x12:\n" +
 	"\tCancelJob\x12\x1c.residua.v1.CancelJobRequest\x1a\x0f.residua.v1.Job\x12R\n" +
 	"\x10DownloadSolution\x12#.residua.v1.DownloadSolutionRequest\x1a\x17.residua.v1.VectorChunk0\x01B7Z5github.com/residua/residua/proto/residua/v1;residuav1b\x06proto3"
@@ -2899,7 +3265,7 @@ func file_residua_v1_residua_proto_rawDescGZIP() []byte {
 }
 
 var file_residua_v1_residua_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_residua_v1_residua_proto_msgTypes = make([]protoimpl.MessageInfo, 28)
+var file_residua_v1_residua_proto_msgTypes = make([]protoimpl.MessageInfo, 31)
 var file_residua_v1_residua_proto_goTypes = []any{
 	(MatrixEncoding)(0),             // 0: residua.v1.MatrixEncoding
 	(JobState)(0),                   // 1: residua.v1.JobState
@@ -2927,21 +3293,24 @@ var file_residua_v1_residua_proto_goTypes = []any{
 	(*Job)(nil),                     // 23: residua.v1.Job
 	(*WatchRequest)(nil),            // 24: residua.v1.WatchRequest
 	(*GetJobRequest)(nil),           // 25: residua.v1.GetJobRequest
-	(*ListJobsRequest)(nil),         // 26: residua.v1.ListJobsRequest
-	(*ListJobsResponse)(nil),        // 27: residua.v1.ListJobsResponse
-	(*CancelJobRequest)(nil),        // 28: residua.v1.CancelJobRequest
-	(*DownloadSolutionRequest)(nil), // 29: residua.v1.DownloadSolutionRequest
-	(*durationpb.Duration)(nil),     // 30: google.protobuf.Duration
+	(*GetMatrixRequest)(nil),        // 26: residua.v1.GetMatrixRequest
+	(*GetHistoryRequest)(nil),       // 27: residua.v1.GetHistoryRequest
+	(*History)(nil),                 // 28: residua.v1.History
+	(*ListJobsRequest)(nil),         // 29: residua.v1.ListJobsRequest
+	(*ListJobsResponse)(nil),        // 30: residua.v1.ListJobsResponse
+	(*CancelJobRequest)(nil),        // 31: residua.v1.CancelJobRequest
+	(*DownloadSolutionRequest)(nil), // 32: residua.v1.DownloadSolutionRequest
+	(*durationpb.Duration)(nil),     // 33: google.protobuf.Duration
 }
 var file_residua_v1_residua_proto_depIdxs = []int32{
 	3,  // 0: residua.v1.UploadMatrixRequest.metadata:type_name -> residua.v1.UploadMetadata
 	0,  // 1: residua.v1.UploadMetadata.encoding:type_name -> residua.v1.MatrixEncoding
 	6,  // 2: residua.v1.UploadVectorRequest.metadata:type_name -> residua.v1.VectorMetadata
 	4,  // 3: residua.v1.ListMatricesResponse.matrices:type_name -> residua.v1.Matrix
-	30, // 4: residua.v1.ProgressPolicy.interval:type_name -> google.protobuf.Duration
+	33, // 4: residua.v1.ProgressPolicy.interval:type_name -> google.protobuf.Duration
 	8,  // 5: residua.v1.SolveRequest.rhs:type_name -> residua.v1.VectorRef
 	8,  // 6: residua.v1.SolveRequest.x0:type_name -> residua.v1.VectorRef
-	30, // 7: residua.v1.SolveRequest.time_limit:type_name -> google.protobuf.Duration
+	33, // 7: residua.v1.SolveRequest.time_limit:type_name -> google.protobuf.Duration
 	13, // 8: residua.v1.SolveRequest.progress:type_name -> residua.v1.ProgressPolicy
 	16, // 9: residua.v1.JobEvent.queued:type_name -> residua.v1.Queued
 	17, // 10: residua.v1.JobEvent.accepted:type_name -> residua.v1.Accepted
@@ -2954,32 +3323,37 @@ var file_residua_v1_residua_proto_depIdxs = []int32{
 	1,  // 17: residua.v1.Job.state:type_name -> residua.v1.JobState
 	18, // 18: residua.v1.Job.last_progress:type_name -> residua.v1.Progress
 	20, // 19: residua.v1.Job.results:type_name -> residua.v1.SolveResult
-	23, // 20: residua.v1.ListJobsResponse.jobs:type_name -> residua.v1.Job
-	2,  // 21: residua.v1.Solver.UploadMatrix:input_type -> residua.v1.UploadMatrixRequest
-	5,  // 22: residua.v1.Solver.UploadVector:input_type -> residua.v1.UploadVectorRequest
-	9,  // 23: residua.v1.Solver.ListMatrices:input_type -> residua.v1.ListMatricesRequest
-	11, // 24: residua.v1.Solver.DeleteMatrix:input_type -> residua.v1.DeleteMatrixRequest
-	14, // 25: residua.v1.Solver.Solve:input_type -> residua.v1.SolveRequest
-	24, // 26: residua.v1.Solver.Watch:input_type -> residua.v1.WatchRequest
-	25, // 27: residua.v1.Solver.GetJob:input_type -> residua.v1.GetJobRequest
-	26, // 28: residua.v1.Solver.ListJobs:input_type -> residua.v1.ListJobsRequest
-	28, // 29: residua.v1.Solver.CancelJob:input_type -> residua.v1.CancelJobRequest
-	29, // 30: residua.v1.Solver.DownloadSolution:input_type -> residua.v1.DownloadSolutionRequest
-	4,  // 31: residua.v1.Solver.UploadMatrix:output_type -> residua.v1.Matrix
-	7,  // 32: residua.v1.Solver.UploadVector:output_type -> residua.v1.VectorInfo
-	10, // 33: residua.v1.Solver.ListMatrices:output_type -> residua.v1.ListMatricesResponse
-	12, // 34: residua.v1.Solver.DeleteMatrix:output_type -> residua.v1.DeleteMatrixResponse
-	15, // 35: residua.v1.Solver.Solve:output_type -> residua.v1.JobEvent
-	15, // 36: residua.v1.Solver.Watch:output_type -> residua.v1.JobEvent
-	23, // 37: residua.v1.Solver.GetJob:output_type -> residua.v1.Job
-	27, // 38: residua.v1.Solver.ListJobs:output_type -> residua.v1.ListJobsResponse
-	23, // 39: residua.v1.Solver.CancelJob:output_type -> residua.v1.Job
-	21, // 40: residua.v1.Solver.DownloadSolution:output_type -> residua.v1.VectorChunk
-	31, // [31:41] is the sub-list for method output_type
-	21, // [21:31] is the sub-list for method input_type
-	21, // [21:21] is the sub-list for extension type_name
-	21, // [21:21] is the sub-list for extension extendee
-	0,  // [0:21] is the sub-list for field type_name
+	18, // 20: residua.v1.History.rows:type_name -> residua.v1.Progress
+	23, // 21: residua.v1.ListJobsResponse.jobs:type_name -> residua.v1.Job
+	2,  // 22: residua.v1.Solver.UploadMatrix:input_type -> residua.v1.UploadMatrixRequest
+	5,  // 23: residua.v1.Solver.UploadVector:input_type -> residua.v1.UploadVectorRequest
+	9,  // 24: residua.v1.Solver.ListMatrices:input_type -> residua.v1.ListMatricesRequest
+	26, // 25: residua.v1.Solver.GetMatrix:input_type -> residua.v1.GetMatrixRequest
+	11, // 26: residua.v1.Solver.DeleteMatrix:input_type -> residua.v1.DeleteMatrixRequest
+	14, // 27: residua.v1.Solver.Solve:input_type -> residua.v1.SolveRequest
+	24, // 28: residua.v1.Solver.Watch:input_type -> residua.v1.WatchRequest
+	25, // 29: residua.v1.Solver.GetJob:input_type -> residua.v1.GetJobRequest
+	27, // 30: residua.v1.Solver.GetHistory:input_type -> residua.v1.GetHistoryRequest
+	29, // 31: residua.v1.Solver.ListJobs:input_type -> residua.v1.ListJobsRequest
+	31, // 32: residua.v1.Solver.CancelJob:input_type -> residua.v1.CancelJobRequest
+	32, // 33: residua.v1.Solver.DownloadSolution:input_type -> residua.v1.DownloadSolutionRequest
+	4,  // 34: residua.v1.Solver.UploadMatrix:output_type -> residua.v1.Matrix
+	7,  // 35: residua.v1.Solver.UploadVector:output_type -> residua.v1.VectorInfo
+	10, // 36: residua.v1.Solver.ListMatrices:output_type -> residua.v1.ListMatricesResponse
+	4,  // 37: residua.v1.Solver.GetMatrix:output_type -> residua.v1.Matrix
+	12, // 38: residua.v1.Solver.DeleteMatrix:output_type -> residua.v1.DeleteMatrixResponse
+	15, // 39: residua.v1.Solver.Solve:output_type -> residua.v1.JobEvent
+	15, // 40: residua.v1.Solver.Watch:output_type -> residua.v1.JobEvent
+	23, // 41: residua.v1.Solver.GetJob:output_type -> residua.v1.Job
+	28, // 42: residua.v1.Solver.GetHistory:output_type -> residua.v1.History
+	30, // 43: residua.v1.Solver.ListJobs:output_type -> residua.v1.ListJobsResponse
+	23, // 44: residua.v1.Solver.CancelJob:output_type -> residua.v1.Job
+	21, // 45: residua.v1.Solver.DownloadSolution:output_type -> residua.v1.VectorChunk
+	34, // [34:46] is the sub-list for method output_type
+	22, // [22:34] is the sub-list for method input_type
+	22, // [22:22] is the sub-list for extension type_name
+	22, // [22:22] is the sub-list for extension extendee
+	0,  // [0:22] is the sub-list for field type_name
 }
 
 func init() { file_residua_v1_residua_proto_init() }
@@ -3007,13 +3381,15 @@ func file_residua_v1_residua_proto_init() {
 		(*JobEvent_Solution)(nil),
 		(*JobEvent_Finished)(nil),
 	}
+	file_residua_v1_residua_proto_msgTypes[17].OneofWrappers = []any{}
+	file_residua_v1_residua_proto_msgTypes[18].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_residua_v1_residua_proto_rawDesc), len(file_residua_v1_residua_proto_rawDesc)),
 			NumEnums:      2,
-			NumMessages:   28,
+			NumMessages:   31,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

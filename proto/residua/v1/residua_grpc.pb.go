@@ -55,10 +55,12 @@ const (
 	Solver_UploadMatrix_FullMethodName     = "/residua.v1.Solver/UploadMatrix"
 	Solver_UploadVector_FullMethodName     = "/residua.v1.Solver/UploadVector"
 	Solver_ListMatrices_FullMethodName     = "/residua.v1.Solver/ListMatrices"
+	Solver_GetMatrix_FullMethodName        = "/residua.v1.Solver/GetMatrix"
 	Solver_DeleteMatrix_FullMethodName     = "/residua.v1.Solver/DeleteMatrix"
 	Solver_Solve_FullMethodName            = "/residua.v1.Solver/Solve"
 	Solver_Watch_FullMethodName            = "/residua.v1.Solver/Watch"
 	Solver_GetJob_FullMethodName           = "/residua.v1.Solver/GetJob"
+	Solver_GetHistory_FullMethodName       = "/residua.v1.Solver/GetHistory"
 	Solver_ListJobs_FullMethodName         = "/residua.v1.Solver/ListJobs"
 	Solver_CancelJob_FullMethodName        = "/residua.v1.Solver/CancelJob"
 	Solver_DownloadSolution_FullMethodName = "/residua.v1.Solver/DownloadSolution"
@@ -103,6 +105,10 @@ type SolverClient interface {
 	UploadVector(ctx context.Context, opts ...grpc.CallOption) (grpc.ClientStreamingClient[UploadVectorRequest, VectorInfo], error)
 	// ListMatrices lists the stored matrices, most recently used first.
 	ListMatrices(ctx context.Context, in *ListMatricesRequest, opts ...grpc.CallOption) (*ListMatricesResponse, error)
+	// GetMatrix describes one stored matrix: a cheap way for a client that
+	// computed a matrix's id itself (the content hash, see Matrix.id) to ask
+	// whether it must upload it. NOT_FOUND when the server does not hold it.
+	GetMatrix(ctx context.Context, in *GetMatrixRequest, opts ...grpc.CallOption) (*Matrix, error)
 	// DeleteMatrix removes a stored matrix and its cached preconditioners.
 	// A matrix that a queued or running job uses cannot be deleted
 	// (FAILED_PRECONDITION). NOT_FOUND if the id is unknown.
@@ -122,7 +128,8 @@ type SolverClient interface {
 	//     at iteration 0, at most one per iteration, the last at the final
 	//     iteration), then one `result`, then, unless keep_solution is set,
 	//     the solution as `solution` chunks (offsets increasing, the last
-	//     chunk flagged `last`);
+	//     chunk flagged `last` and carrying the SHA-256 of the whole vector,
+	//     which the client checks with the length);
 	//  3. exactly one `finished` event, the last message of the stream.
 	//
 	// Progress events may be dropped when the client reads more slowly than
@@ -152,17 +159,26 @@ type SolverClient interface {
 	//
 	// There is no server-side deadline: use time_limit for a time budget.
 	Solve(ctx context.Context, in *SolveRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[JobEvent], error)
-	// Watch replays a job's events so far (queued, accepted, the recorded
-	// progress history, results; a very long solve's progress history is
-	// thinned to at most 2048 events spread over the whole solve, so a
-	// replay may show gaps in seq) and then follows the job live until it
-	// finishes, under the same contract as Solve except that solutions are
-	// never sent (fetch them with DownloadSolution). Any number of clients
+	// Watch replays a job's events so far (queued, accepted, the progress
+	// events sent so far, results; a very long solve's progress events are
+	// thinned to at most 2048 spread over the whole solve, so a replay may
+	// show gaps in seq) and then follows the job live until it finishes,
+	// under the same contract as Solve except that solutions are never sent
+	// (fetch them with DownloadSolution). Progress events come at the rate
+	// the job's progress policy sets; the job's full history is GetHistory's. Any number of clients
 	// may watch a job; watching never affects the job. The stream ends with
 	// the same status as the job's Solve stream would.
 	Watch(ctx context.Context, in *WatchRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[JobEvent], error)
 	// GetJob describes one job.
 	GetJob(ctx context.Context, in *GetJobRequest, opts ...grpc.CallOption) (*Job, error)
+	// GetHistory returns the convergence history of one right-hand side of
+	// a job, as the server recorded it: every iteration, independent of how
+	// often progress events were sent, up to a budget of rows per
+	// right-hand side (4096); past it the rows are evenly spaced samples with
+	// the first and the last exact (History.thinned). It may be called while
+	// the job runs (the rows so far) and after it ended. NOT_FOUND for an
+	// unknown job or a right-hand side it does not have.
+	GetHistory(ctx context.Context, in *GetHistoryRequest, opts ...grpc.CallOption) (*History, error)
 	// ListJobs lists queued, running and recently finished jobs, newest
 	// first.
 	ListJobs(ctx context.Context, in *ListJobsRequest, opts ...grpc.CallOption) (*ListJobsResponse, error)
@@ -222,6 +238,16 @@ func (c *solverClient) ListMatrices(ctx context.Context, in *ListMatricesRequest
 	return out, nil
 }
 
+func (c *solverClient) GetMatrix(ctx context.Context, in *GetMatrixRequest, opts ...grpc.CallOption) (*Matrix, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(Matrix)
+	err := c.cc.Invoke(ctx, Solver_GetMatrix_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 func (c *solverClient) DeleteMatrix(ctx context.Context, in *DeleteMatrixRequest, opts ...grpc.CallOption) (*DeleteMatrixResponse, error) {
 	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
 	out := new(DeleteMatrixResponse)
@@ -274,6 +300,16 @@ func (c *solverClient) GetJob(ctx context.Context, in *GetJobRequest, opts ...gr
 	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
 	out := new(Job)
 	err := c.cc.Invoke(ctx, Solver_GetJob_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *solverClient) GetHistory(ctx context.Context, in *GetHistoryRequest, opts ...grpc.CallOption) (*History, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(History)
+	err := c.cc.Invoke(ctx, Solver_GetHistory_FullMethodName, in, out, cOpts...)
 	if err != nil {
 		return nil, err
 	}
@@ -358,6 +394,10 @@ type SolverServer interface {
 	UploadVector(grpc.ClientStreamingServer[UploadVectorRequest, VectorInfo]) error
 	// ListMatrices lists the stored matrices, most recently used first.
 	ListMatrices(context.Context, *ListMatricesRequest) (*ListMatricesResponse, error)
+	// GetMatrix describes one stored matrix: a cheap way for a client that
+	// computed a matrix's id itself (the content hash, see Matrix.id) to ask
+	// whether it must upload it. NOT_FOUND when the server does not hold it.
+	GetMatrix(context.Context, *GetMatrixRequest) (*Matrix, error)
 	// DeleteMatrix removes a stored matrix and its cached preconditioners.
 	// A matrix that a queued or running job uses cannot be deleted
 	// (FAILED_PRECONDITION). NOT_FOUND if the id is unknown.
@@ -377,7 +417,8 @@ type SolverServer interface {
 	//     at iteration 0, at most one per iteration, the last at the final
 	//     iteration), then one `result`, then, unless keep_solution is set,
 	//     the solution as `solution` chunks (offsets increasing, the last
-	//     chunk flagged `last`);
+	//     chunk flagged `last` and carrying the SHA-256 of the whole vector,
+	//     which the client checks with the length);
 	//  3. exactly one `finished` event, the last message of the stream.
 	//
 	// Progress events may be dropped when the client reads more slowly than
@@ -407,17 +448,26 @@ type SolverServer interface {
 	//
 	// There is no server-side deadline: use time_limit for a time budget.
 	Solve(*SolveRequest, grpc.ServerStreamingServer[JobEvent]) error
-	// Watch replays a job's events so far (queued, accepted, the recorded
-	// progress history, results; a very long solve's progress history is
-	// thinned to at most 2048 events spread over the whole solve, so a
-	// replay may show gaps in seq) and then follows the job live until it
-	// finishes, under the same contract as Solve except that solutions are
-	// never sent (fetch them with DownloadSolution). Any number of clients
+	// Watch replays a job's events so far (queued, accepted, the progress
+	// events sent so far, results; a very long solve's progress events are
+	// thinned to at most 2048 spread over the whole solve, so a replay may
+	// show gaps in seq) and then follows the job live until it finishes,
+	// under the same contract as Solve except that solutions are never sent
+	// (fetch them with DownloadSolution). Progress events come at the rate
+	// the job's progress policy sets; the job's full history is GetHistory's. Any number of clients
 	// may watch a job; watching never affects the job. The stream ends with
 	// the same status as the job's Solve stream would.
 	Watch(*WatchRequest, grpc.ServerStreamingServer[JobEvent]) error
 	// GetJob describes one job.
 	GetJob(context.Context, *GetJobRequest) (*Job, error)
+	// GetHistory returns the convergence history of one right-hand side of
+	// a job, as the server recorded it: every iteration, independent of how
+	// often progress events were sent, up to a budget of rows per
+	// right-hand side (4096); past it the rows are evenly spaced samples with
+	// the first and the last exact (History.thinned). It may be called while
+	// the job runs (the rows so far) and after it ended. NOT_FOUND for an
+	// unknown job or a right-hand side it does not have.
+	GetHistory(context.Context, *GetHistoryRequest) (*History, error)
 	// ListJobs lists queued, running and recently finished jobs, newest
 	// first.
 	ListJobs(context.Context, *ListJobsRequest) (*ListJobsResponse, error)
@@ -450,6 +500,9 @@ func (UnimplementedSolverServer) UploadVector(grpc.ClientStreamingServer[UploadV
 func (UnimplementedSolverServer) ListMatrices(context.Context, *ListMatricesRequest) (*ListMatricesResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method ListMatrices not implemented")
 }
+func (UnimplementedSolverServer) GetMatrix(context.Context, *GetMatrixRequest) (*Matrix, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetMatrix not implemented")
+}
 func (UnimplementedSolverServer) DeleteMatrix(context.Context, *DeleteMatrixRequest) (*DeleteMatrixResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method DeleteMatrix not implemented")
 }
@@ -461,6 +514,9 @@ func (UnimplementedSolverServer) Watch(*WatchRequest, grpc.ServerStreamingServer
 }
 func (UnimplementedSolverServer) GetJob(context.Context, *GetJobRequest) (*Job, error) {
 	return nil, status.Error(codes.Unimplemented, "method GetJob not implemented")
+}
+func (UnimplementedSolverServer) GetHistory(context.Context, *GetHistoryRequest) (*History, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetHistory not implemented")
 }
 func (UnimplementedSolverServer) ListJobs(context.Context, *ListJobsRequest) (*ListJobsResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method ListJobs not implemented")
@@ -524,6 +580,24 @@ func _Solver_ListMatrices_Handler(srv interface{}, ctx context.Context, dec func
 	return interceptor(ctx, in, info, handler)
 }
 
+func _Solver_GetMatrix_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetMatrixRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(SolverServer).GetMatrix(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: Solver_GetMatrix_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(SolverServer).GetMatrix(ctx, req.(*GetMatrixRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 func _Solver_DeleteMatrix_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
 	in := new(DeleteMatrixRequest)
 	if err := dec(in); err != nil {
@@ -578,6 +652,24 @@ func _Solver_GetJob_Handler(srv interface{}, ctx context.Context, dec func(inter
 	}
 	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
 		return srv.(SolverServer).GetJob(ctx, req.(*GetJobRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _Solver_GetHistory_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetHistoryRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(SolverServer).GetHistory(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: Solver_GetHistory_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(SolverServer).GetHistory(ctx, req.(*GetHistoryRequest))
 	}
 	return interceptor(ctx, in, info, handler)
 }
@@ -641,12 +733,20 @@ var Solver_ServiceDesc = grpc.ServiceDesc{
 			Handler:    _Solver_ListMatrices_Handler,
 		},
 		{
+			MethodName: "GetMatrix",
+			Handler:    _Solver_GetMatrix_Handler,
+		},
+		{
 			MethodName: "DeleteMatrix",
 			Handler:    _Solver_DeleteMatrix_Handler,
 		},
 		{
 			MethodName: "GetJob",
 			Handler:    _Solver_GetJob_Handler,
+		},
+		{
+			MethodName: "GetHistory",
+			Handler:    _Solver_GetHistory_Handler,
 		},
 		{
 			MethodName: "ListJobs",

@@ -1,0 +1,91 @@
+package api
+
+import (
+	"context"
+	"time"
+
+	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/solve"
+	"github.com/residua/residua/wire"
+)
+
+// runJob is the body of a job's goroutine once it has a solve slot: the
+// set-up (from the cache or built), then the method on each right-hand
+// side, through the solve layer, exactly as a local solve runs it.
+func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error) {
+	start := time.Now()
+	defer func() {
+		p.release()
+		// The work vectors are gone; the solutions stay accounted while
+		// kept (or until the attached stream has sent them).
+		s.store.shrink(j.mem, 8*int64(p.m.a.Cols)*int64(len(p.rhs)))
+		j.runnerPin.Release()
+		attrs := []any{"job", j.id, "matrix", p.matrixID, "state", string(solve.Done), "outcome", string(outcome),
+			"duration", time.Since(start).String()}
+		if err != nil {
+			attrs = append(attrs, "error", err.Error())
+		}
+		s.log.Info("job end", attrs...)
+	}()
+	setup, pn, fromCache, err := s.prepare(j.ctx, p)
+	if err != nil {
+		if j.ctx.Err() != nil {
+			return solve.Cancelled, context.Cause(j.ctx)
+		}
+		// The job's one result says what failed, in the summary's words.
+		sum := solve.Failure(p.m.solveMatrix(), p.req, err)
+		sum.MatrixID = p.matrixID
+		j.mu.Lock()
+		j.chosen = sum.Preconditioner
+		j.mu.Unlock()
+		j.deliver(0, nil, wire.Result(&sum))
+		return solve.Outcome(sum.Status), err
+	}
+	defer pn.Release()
+	base := setup.Summary()
+	j.mu.Lock()
+	j.chosen = base.Preconditioner
+	j.mu.Unlock()
+	acc := &pb.Accepted{
+		MatrixId: p.matrixID, Method: base.Method, Preconditioner: base.Preconditioner,
+		PreconditionerReason: base.PreconditionerReason, FromCache: fromCache,
+		SetupSeconds: float64(base.SetupSeconds), PreconditionerBytes: setup.Bytes(),
+		RhsCount: int32(len(p.rhs)), Detached: j.info.GetDetached(),
+	}
+	if c := setup.Choice; c != nil {
+		acc.Shift, acc.Tries = c.Shift, int32(c.Tries)
+	}
+	j.publish(&pb.JobEvent{Event: &pb.JobEvent_Accepted{Accepted: acc}})
+	s.log.Info("job start", "job", j.id, "matrix", p.matrixID, "rows", p.m.a.Rows, "cols", p.m.a.Cols, "nonzeros", p.m.a.NNZ(),
+		"rhs", len(p.rhs), "method", base.Method, "preconditioner", base.Preconditioner, "reason", base.PreconditionerReason,
+		"from_cache", fromCache, "setup", time.Duration(float64(base.SetupSeconds)*1e9).String(), "queued_for", start.Sub(j.created).String())
+
+	outcomes := make([]solve.Outcome, 0, len(p.rhs))
+	for i, b := range p.rhs {
+		x := make([]float64, p.m.a.Cols)
+		rec := &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
+		sum, solveErr := setup.Solve(j.ctx, b, p.x0[i], x, rec)
+		sum.RHSIndex, sum.MatrixID, sum.FromCache = i, p.matrixID, &fromCache
+		j.deliver(i, x, wire.Result(&sum))
+		if s.obs != nil {
+			s.obs.IterationsDone(sum.Iterations)
+		}
+		s.log.Info("solve", "job", j.id, "rhs", i, "outcome", sum.Status, "iterations", sum.Iterations,
+			"relative_residual", float64(sum.RelativeResidual), "solve", time.Duration(float64(sum.SolveSeconds)*1e9).String())
+		o := solve.Outcome(sum.Status)
+		switch {
+		case o == solve.Cancelled:
+			if cause := context.Cause(j.ctx); cause != nil {
+				return o, cause
+			}
+			if solveErr == nil {
+				solveErr = context.Canceled
+			}
+			return o, solveErr
+		case solveErr != nil:
+			return o, solveErr
+		}
+		outcomes = append(outcomes, o)
+	}
+	return solve.JobOutcome(outcomes, ""), nil
+}

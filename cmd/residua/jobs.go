@@ -1,0 +1,248 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"text/tabwriter"
+
+	pb "github.com/residua/residua/proto/residua/v1"
+	"github.com/residua/residua/solve"
+	"github.com/residua/residua/wire"
+)
+
+func init() {
+	register(&command{name: "jobs", summary: "list the jobs on a residua server", run: runJobs})
+	register(&command{name: "watch", summary: "follow a job on a residua server live, then print its summary", run: runWatch})
+	register(&command{name: "cancel", summary: "cancel a job on a residua server", run: runCancel})
+}
+
+// jobJSON is one job in 'residua jobs --json'.
+type jobJSON struct {
+	ID       string `json:"id"`
+	State    string `json:"state"`
+	Outcome  string `json:"outcome,omitempty"`
+	MatrixID string `json:"matrix_id"`
+	// MatrixName is the name given at upload.
+	MatrixName       string    `json:"matrix_name"`
+	Rows             int64     `json:"rows"`
+	Cols             int64     `json:"cols"`
+	Nonzeros         int64     `json:"nonzeros"`
+	Method           string    `json:"method"`
+	Preconditioner   string    `json:"preconditioner"`
+	RHSCount         int32     `json:"rhs_count"`
+	RHSDone          int32     `json:"rhs_done"`
+	Iteration        int64     `json:"iteration"`
+	RelativeResidual solve.Num `json:"relative_residual"`
+	ElapsedSeconds   solve.Num `json:"elapsed_seconds"`
+	Detached         bool      `json:"detached"`
+	Label            string    `json:"label,omitempty"`
+	Error            string    `json:"error,omitempty"`
+	CreatedUnix      float64   `json:"created_unix"`
+	SolutionKept     bool      `json:"solution_kept"`
+}
+
+func jobView(j *pb.Job) jobJSON {
+	pc := j.GetPreconditioner()
+	if pc == "" {
+		pc = j.GetPreconditionerRequested()
+	}
+	v := jobJSON{
+		ID: j.GetId(), State: string(wire.State(j.GetState())), Outcome: j.GetOutcome(),
+		MatrixID: j.GetMatrixId(), MatrixName: j.GetMatrixName(),
+		Rows: j.GetRows(), Cols: j.GetCols(), Nonzeros: j.GetNonzeros(), Method: j.GetMethod(), Preconditioner: pc,
+		RHSCount: j.GetRhsCount(), RHSDone: j.GetRhsDone(),
+		Iteration: j.GetLastProgress().GetIteration(), RelativeResidual: solve.Num(j.GetLastProgress().GetRelativeResidual()),
+		ElapsedSeconds: solve.Num(j.GetLastProgress().GetElapsedSeconds()), Detached: j.GetDetached(), Label: j.GetLabel(),
+		Error: j.GetError(), CreatedUnix: j.GetCreatedUnix(), SolutionKept: j.GetSolutionKept(),
+	}
+	// A finished right-hand side's figures are final: report the last one
+	// rather than the last progress event sent, which may lag behind it.
+	if rs := j.GetResults(); len(rs) > 0 && rs[len(rs)-1].GetRhs() == j.GetLastProgress().GetRhs() {
+		r := rs[len(rs)-1]
+		v.Iteration, v.RelativeResidual = r.GetIterations(), solve.Num(r.GetRelativeResidual())
+	}
+	return v
+}
+
+const jobsAbout = `
+Lists the jobs the server knows (queued, running and recently done),
+newest first: id, state, outcome, matrix, preconditioner, iteration,
+relative residual and elapsed time. With --json, prints {"jobs": [...]}
+with the keys listed in the README.`
+
+func runJobs(ctx context.Context, e *env, args []string) error {
+	so := &serverOpts{}
+	f := newFlags("jobs", "residua jobs [--server ADDR] [--json]", jobsAbout)
+	asJSON := f.Bool("json", false, "print the jobs as JSON")
+	addServerFlags(f, so)
+	pos, err := f.parse(e, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 0 {
+		return usageErrorf("jobs: takes no arguments, got %q", pos)
+	}
+	so.resolve()
+	c, err := so.dial(ctx, "jobs")
+	if err != nil {
+		return err
+	}
+	defer c.Close()
+	jobs, err := c.Jobs(ctx)
+	if err != nil {
+		return remoteError("jobs", so.addr, err)
+	}
+	views := make([]jobJSON, 0, len(jobs))
+	for _, j := range jobs {
+		views = append(views, jobView(j))
+	}
+	if *asJSON {
+		return writeJSON(e.stdout, map[string]any{"jobs": views})
+	}
+	if len(views) == 0 {
+		fmt.Fprintf(e.stdout, "no jobs on %s\n", so.addr)
+		return nil
+	}
+	tw := tabwriter.NewWriter(e.stdout, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "ID\tSTATE\tOUTCOME\tMATRIX\tSIZE\tPRECONDITIONER\tITERATION\tREL. RESIDUAL\tELAPSED")
+	for _, v := range views {
+		outcome := v.Outcome
+		if outcome == "" {
+			outcome = "-"
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d×%d\t%s\t%d\t%s\t%s\n", v.ID, v.State, outcome, v.MatrixName, v.Rows, v.Cols, v.Preconditioner,
+			v.Iteration, solve.Sci(float64(v.RelativeResidual)), fmtSec(v.ElapsedSeconds))
+	}
+	return tw.Flush()
+}
+
+const watchAbout = `
+Follows a job on the server: replays its progress so far, then shows it
+live (the same panel or plain lines as solve; --quiet silences them), and
+prints the same summary as solve when the job ends (with --json, one JSON
+object per right-hand side). Interrupting watch stops watching only: the job
+goes on. -o downloads the solution (for jobs that keep theirs, such as
+those started with solve --detach); --history and --plot write the job's
+full history as the server recorded it (every iteration, thinned evenly
+past 4096 rows).
+
+Exit statuses as for solve, from the job's outcome.`
+
+func runWatch(ctx context.Context, e *env, args []string) error {
+	so := &serverOpts{}
+	o := &solveOpts{}
+	f := newFlags("watch", "residua watch JOB [--server ADDR] [--json] [-o x.mtx] [--history h.csv] [--plot p.svg]", watchAbout)
+	addServerFlags(f, so)
+	f.StringVar(&o.out, "o", "", "download the solution to this Matrix Market `file` (only if converged)")
+	f.StringVar(&o.hist, "history", "", "write the job's history to this `file` (.csv or .json)")
+	f.StringVar(&o.plot, "plot", "", "draw the residual curve to this `file` (.svg or .png)")
+	f.BoolVar(&o.json, "json", false, "print the summary as JSON")
+	f.BoolVar(&o.quiet, "quiet", false, "no live progress on stderr")
+	pos, err := f.parse(e, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 1 {
+		return usageErrorf("watch: want one job id, got %d arguments", len(pos))
+	}
+	if err := checkOutputFlags("watch", o); err != nil {
+		return err
+	}
+	so.resolve()
+	c, err := so.dial(ctx, "watch")
+	if err != nil {
+		return err
+	}
+	defer c.Close()
+	id := pos[0]
+	job, err := c.Job(ctx, id)
+	if err != nil {
+		return remoteError("watch", so.addr, err)
+	}
+	mo := watchOptions(job)
+	disp := &remoteDisplay{e: e, o: o, mo: mo}
+	out, watchErr := c.Watch(ctx, id, disp.event)
+	disp.stop()
+	if watchErr != nil && ctx.Err() != nil {
+		return &exitError{code: exitNotConverged, err: fmt.Errorf("stopped watching job %s; it goes on on %s", id, so.addr)}
+	}
+	if out == nil || len(out.Results) == 0 {
+		if watchErr != nil {
+			return remoteError("watch", so.addr, watchErr)
+		}
+		code := exitFailure
+		if out.Outcome == solve.Cancelled {
+			code = exitNotConverged
+		}
+		return &exitError{code: code, err: fmt.Errorf("job %s ended (%s) without a result: %s", id, out.Outcome, out.Error)}
+	}
+	if job, err = c.Job(ctx, id); err != nil {
+		return remoteError("watch", so.addr, err)
+	}
+	mo.Preconditioner = out.Results[0].Preconditioner
+	var first error
+	for i := range out.Results {
+		sum := &out.Results[i]
+		sum.Matrix, sum.Server, sum.JobID = job.GetMatrixName(), so.addr, id
+		sum.RHS = fmt.Sprintf("right-hand side %d of %d, given by the job's submitter", i+1, len(out.Results))
+		var x []float64
+		oi := *o
+		finish := func(*solve.Summary) error { return nil }
+		if i == 0 {
+			finish = remoteOutputs(ctx, c, o, id, 0, mo)
+		} else {
+			oi.hist, oi.plot, oi.out = "", "", "" // the files are for the first right-hand side
+		}
+		if oi.out != "" && sum.Converged {
+			if !job.GetSolutionKept() {
+				return usageErrorf("watch: job %s did not keep its solution on the server (only detached jobs do); -o cannot download it", id)
+			}
+			if x, err = c.DownloadSolution(ctx, id, i); err != nil {
+				return remoteError("downloading the solution", so.addr, err)
+			}
+		}
+		if err := finishRun(e, &oi, sum, x, finish, plainStatus(watchErr)); err != nil && first == nil {
+			first = err
+		}
+	}
+	return first
+}
+
+const cancelAbout = `
+Asks the server to cancel a job. A running solve stops within one
+iteration and keeps its history; the job becomes done, with the outcome
+cancelled.`
+
+func runCancel(ctx context.Context, e *env, args []string) error {
+	so := &serverOpts{}
+	f := newFlags("cancel", "residua cancel JOB [--server ADDR] [--json]", cancelAbout)
+	asJSON := f.Bool("json", false, "print the job as JSON")
+	addServerFlags(f, so)
+	pos, err := f.parse(e, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) != 1 {
+		return usageErrorf("cancel: want one job id, got %d arguments", len(pos))
+	}
+	so.resolve()
+	c, err := so.dial(ctx, "cancel")
+	if err != nil {
+		return err
+	}
+	defer c.Close()
+	j, err := c.Cancel(ctx, pos[0])
+	if err != nil {
+		return remoteError("cancel", so.addr, err)
+	}
+	if *asJSON {
+		return writeJSON(e.stdout, jobView(j))
+	}
+	switch j.GetState() {
+	case pb.JobState_QUEUED, pb.JobState_RUNNING:
+		fmt.Fprintf(e.stdout, "job %s: cancel requested (it was %s; a running solve stops within one iteration)\n", j.GetId(), wire.State(j.GetState()))
+	default:
+		fmt.Fprintf(e.stdout, "job %s: already done (%s)\n", j.GetId(), j.GetOutcome())
+	}
+	return nil
+}
