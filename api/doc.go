@@ -1,8 +1,10 @@
 // Package api is the residua gRPC server: it stores uploaded matrices,
 // runs solve jobs on them (conjugate gradients for SPD matrices, LSQR or
-// CGLS for least squares) with the same krylov and precond code as a local
-// solve (so a remote solve gives bitwise the same x), and streams their
-// progress to any number of clients. The service is
+// CGLS for least squares) through the same solve layer as a local solve
+// (package solve: so a remote solve gives bitwise the same x and the same
+// summary), and streams their progress to any number of clients. What
+// crosses the wire (vectors, the CSR_RAW codec, the summary and progress
+// messages) is converted in package wire, shared with the client. The service is
 // defined, message by message, in proto/residua/v1/residua.proto; this
 // package implements it.
 //
@@ -15,25 +17,32 @@
 // (logging the stack and answering INTERNAL) and convert every handler
 // error to a gRPC status with Status, the one function that picks codes.
 //
-// Registry holds the jobs. A job is queued (the queue is bounded by
-// Config.MaxQueued; past it a request gets RESOURCE_EXHAUSTED), then runs
-// in its own goroutine when one of Config.MaxConcurrentSolves slots is
-// free. Its events (queued, accepted, progress, results, finished) go to a
-// history, kept for late watchers (progress thinned to at most 2048
-// events, covering the whole solve), and to each subscriber's own queue,
-// which drops its oldest progress events when its reader is slow and
-// counts them; nothing else is ever dropped, and the solver never waits on
-// a reader. Exactly one goroutine sends on each stream. Registry is
-// exported so that other front ends (a web page, metrics) can list and
-// follow jobs.
+// Registry (registry.go, job.go) holds the jobs. A job is queued (the
+// queue is bounded by Config.MaxQueued; past it a request gets
+// RESOURCE_EXHAUSTED), then runs in its own goroutine when one of
+// Config.MaxConcurrentSolves slots is free (run.go). Each right-hand side
+// records every iteration in a history.Log, bounded by thinning evenly past
+// 4096 rows (progress.go): that full history is what GetHistory and the
+// watch page read. Its events (queued, accepted, progress at the request's
+// rate, results, finished) go to a replay kept for late watchers (progress
+// thinned to at most 2048 events) and to each subscriber's own queue, which
+// drops its oldest progress events when its reader is slow and counts
+// them; nothing else is ever dropped, and the solver never waits on a
+// reader. Exactly one goroutine sends on each stream (handlers.go). A job's
+// state is queued, running or done, and its outcome one of package solve's
+// words; Config.Observer (the metrics) is told of every start, end and
+// iteration count. Registry is exported so that other front ends (the web
+// page) can list jobs and read their histories.
 //
 // The store accounts for matrices, stored vectors, cached preconditioners,
-// running jobs' vectors and kept solutions against Config.MemoryBudget.
-// Space is reserved before the allocation it stands for; idle items are
-// evicted least recently used first to make room, and an item a queued or
-// running job uses is pinned and never evicted. Preconditioners are cached
-// by (matrix id, preconditioner kind): the second solve on a matrix skips
-// the set-up and its accepted event says so.
+// running jobs' vectors and kept solutions against Config.MemoryBudget
+// (store.go). Items are keyed by kind and id; space is reserved before the
+// allocation it stands for; idle items are evicted least recently used
+// first to make room, and an item a queued or running job uses is pinned,
+// through a handle that releases its pin once, and never evicted.
+// Preconditioner set-ups are cached by (matrix id, preconditioner) in
+// precache.go: the second solve on a matrix skips the set-up and its
+// accepted event says so.
 //
 // # Uploads
 //

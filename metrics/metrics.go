@@ -7,11 +7,20 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
+
+	"github.com/residua/residua/solve"
 )
 
-// Outcomes are the values of the outcome label of
-// residua_solves_finished_total.
-var Outcomes = []string{"converged", "iteration-limit", "time-limit", "stagnated", "breakdown", "cancelled", "failed", "other"}
+// outcomes are the values of the outcome label of
+// residua_solves_finished_total: the outcome words of package solve, and
+// "other" for anything else.
+func outcomes() []string {
+	out := make([]string, 0, len(solve.Outcomes)+1)
+	for _, o := range solve.Outcomes {
+		out = append(out, string(o))
+	}
+	return append(out, "other")
+}
 
 // Metrics is the set of the service's metrics. Make one with New.
 type Metrics struct {
@@ -32,7 +41,7 @@ func New() *Metrics {
 		}),
 		finished: prometheus.NewCounterVec(prometheus.CounterOpts{
 			Name: "residua_solves_finished_total",
-			Help: "Solve jobs that ended, by outcome (a krylov status, or failed).",
+			Help: "Solve jobs that ended, by outcome (the outcome words of the README).",
 		}, []string{"outcome"}),
 		iterations: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "residua_iterations_total",
@@ -51,7 +60,7 @@ func New() *Metrics {
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	// Every outcome appears from the start, at zero, so that rates over
 	// them work before the first job of that outcome.
-	for _, o := range Outcomes {
+	for _, o := range outcomes() {
 		m.finished.WithLabelValues(o)
 	}
 	return m
@@ -74,17 +83,14 @@ func (m *Metrics) SolveStarted() {
 	m.started.Inc()
 }
 
-// SolveFinished counts a job that ended with the given outcome (one of
-// Outcomes), d after it was submitted.
+// SolveFinished counts a job that ended with the given outcome (a
+// solve.Outcome word; anything else counts as "other"), d after it was
+// submitted.
 func (m *Metrics) SolveFinished(outcome string, d time.Duration) {
 	if m == nil {
 		return
 	}
-	known := false
-	for _, o := range Outcomes {
-		known = known || o == outcome
-	}
-	if !known {
+	if _, err := solve.ParseOutcome(outcome); err != nil {
 		outcome = "other"
 	}
 	m.finished.WithLabelValues(outcome).Inc()

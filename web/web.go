@@ -160,6 +160,10 @@ type Job struct {
 	// right-hand sides); Version changes whenever the curve does.
 	HistoryRows int    `json:"history_rows"`
 	Version     uint64 `json:"version"`
+	// Results holds the summary of each finished right-hand side, with
+	// the keys of the CLI's --json summary (in the job's own list only:
+	// GET /api/jobs/{id}).
+	Results []solve.Summary `json:"results,omitempty"`
 }
 
 // JobList is the body of GET /api/jobs and of each "jobs" event. Total
@@ -266,10 +270,10 @@ func (s *Server) list(limit int) JobList {
 	return out
 }
 
+// find returns the job with the given id as the source has it now (the
+// tracker's list may be a poll interval old).
 func (s *Server) find(id string) (*pb.Job, bool) {
-	s.t.mu.Lock()
-	defer s.t.mu.Unlock()
-	for _, j := range s.t.list {
+	for _, j := range s.t.src.Jobs() {
 		if j.GetId() == id {
 			return j, true
 		}
@@ -297,7 +301,11 @@ func (s *Server) job(w http.ResponseWriter, r *http.Request) {
 		notFound(w, r.PathValue("id"))
 		return
 	}
-	writeJSON(w, s.view(j))
+	v := s.view(j)
+	for _, res := range j.GetResults() {
+		v.Results = append(v.Results, wire.Summary(res))
+	}
+	writeJSON(w, v)
 }
 
 // Row is one history row in the JSON history: the keys of the history file

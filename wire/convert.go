@@ -47,6 +47,9 @@ func Result(s *solve.Summary) *pb.SolveResult {
 // preconditioner_from_cache key is set (a remote solve knows it).
 func Summary(r *pb.SolveResult) solve.Summary {
 	st := r.GetSettings()
+	if st == nil {
+		st = &pb.Settings{}
+	}
 	cached := r.GetFromCache()
 	s := solve.Summary{
 		RHSIndex: int(r.GetRhs()), Converged: r.GetConverged(), Status: r.GetStatus(), Headline: r.GetHeadline(),

@@ -101,6 +101,8 @@ func TestSummaryRoundTrip(t *testing.T) {
 			t.Errorf("%s: sent %v, received %v", name, want, got)
 		}
 	}
+	// A result without settings (a peer may send one) converts.
+	_ = Summary(&pb.SolveResult{})
 	// A result without the optional figures leaves the keys out.
 	empty := Summary(&pb.SolveResult{Settings: &pb.Settings{}})
 	if empty.ResidualNorm != nil || empty.RelTol != nil || empty.LambdaMin != nil || empty.Shift != nil {

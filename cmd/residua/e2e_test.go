@@ -167,6 +167,7 @@ func TestEndToEnd(t *testing.T) {
 	bin := buildBinary(t)
 	t.Run("token", func(t *testing.T) { testToken(t, bin) })
 	srv := startServer(t, bin)
+	t.Run("one outcome", func(t *testing.T) { testOneOutcome(t, bin, srv) })
 	dir := t.TempDir()
 	xr, xl := filepath.Join(dir, "remote.mtx"), filepath.Join(dir, "local.mtx")
 
@@ -318,8 +319,8 @@ func TestEndToEnd(t *testing.T) {
 		}
 	}
 
-	// A malformed upload (the server parses it as it streams in) is
-	// refused with its line: exit 2.
+	// A malformed matrix (read here before anything is sent) is refused
+	// with its line: exit 2.
 	bad := filepath.Join(dir, "bad.mtx")
 	os.WriteFile(bad, []byte("%%MatrixMarket matrix coordinate real symmetric\n2 2 2\n1 1 4\n3 3 4\n"), 0o644)
 	rhs := filepath.Join(dir, "b.mtx")
