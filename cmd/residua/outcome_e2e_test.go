@@ -130,7 +130,9 @@ func testOneOutcome(t *testing.T, bin string, srv *server) {
 			sameSummaries(t, local, map[string]map[string]any{"remote": remote, "watch": watched, "page": paged})
 
 			stdout, _, code = cli(t, bin, "jobs", "--server", srv.grpc, "--json")
-			var list struct{ Jobs []struct{ ID, State, Outcome string } }
+			var list struct {
+				Jobs []struct{ ID, State, Outcome string }
+			}
 			if err := json.Unmarshal([]byte(stdout), &list); err != nil || code != 0 {
 				t.Fatalf("jobs --json: %v", err)
 			}
