@@ -97,29 +97,33 @@ func (c *chunkReader) drain(r io.Reader, what string) error {
 	}
 }
 
-// recvFirst receives an upload's first message, which must come before the
-// stream ends: the chunking contract puts the metadata there.
-func recvFirst[M any](recv func() (M, error)) (M, error) {
+// recvMetadata starts an upload: unless the server is shutting down, it
+// receives the first message, which must come before the stream ends and
+// carry the metadata (the chunking contract), and returns the metadata.
+func recvMetadata[M any, T any](s *Server, recv func() (M, error), meta func(M) *T, what string) (*T, error) {
+	if err := s.refuseIfClosing(); err != nil {
+		return nil, err
+	}
 	first, err := recv()
 	if err == io.EOF {
-		err = invalidf("the upload stream ended before its metadata")
+		return nil, invalidf("the %s stream ended before its metadata", what)
 	}
-	return first, err
+	if err != nil {
+		return nil, err
+	}
+	m := meta(first)
+	if m == nil {
+		return nil, invalidf("the first message of a %s must carry the metadata", what)
+	}
+	return m, nil
 }
 
 // UploadMatrix implements the UploadMatrix RPC (see the .proto).
 func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	start := time.Now()
-	if err := s.refuseIfClosing(); err != nil {
-		return err
-	}
-	first, err := recvFirst(stream.Recv)
+	meta, err := recvMetadata(s, stream.Recv, (*pb.UploadMatrixRequest).GetMetadata, "matrix upload")
 	if err != nil {
 		return err
-	}
-	meta := first.GetMetadata()
-	if meta == nil {
-		return invalidf("the first message of an upload must carry the metadata")
 	}
 	name := meta.GetName()
 	if name == "" {
@@ -291,16 +295,9 @@ func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (
 // UploadVector implements the UploadVector RPC (see the .proto).
 func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	start := time.Now()
-	if err := s.refuseIfClosing(); err != nil {
-		return err
-	}
-	first, err := recvFirst(stream.Recv)
+	meta, err := recvMetadata(s, stream.Recv, (*pb.UploadVectorRequest).GetMetadata, "vector upload")
 	if err != nil {
 		return err
-	}
-	meta := first.GetMetadata()
-	if meta == nil {
-		return invalidf("the first message of a vector upload must carry the metadata")
 	}
 	n := meta.GetLength()
 	if n < 0 {

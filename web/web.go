@@ -114,37 +114,18 @@ func Serve(ctx context.Context, lis net.Listener, h http.Handler, grace time.Dur
 	return nil
 }
 
-// Job is how the JSON endpoints describe a job. A number that does not
-// exist yet (no progress, no estimate) is null; a NaN or infinite one is
-// the string "NaN", "+Inf" or "-Inf", as in every JSON residua writes.
+// Job is how the JSON endpoints describe a job: the keys of wire.Job
+// (those of the CLI's jobs --json), and what the page shows besides.
+// A number that does not exist yet (no progress, no estimate) is null; a
+// NaN or infinite one is the string "NaN", "+Inf" or "-Inf", as in every
+// JSON residua writes.
 type Job struct {
-	ID    string `json:"id"`
-	Label string `json:"label,omitempty"`
-	// State is queued, running or done; Outcome, once done, how it ended
-	// (converged, iteration-limit, ..., setup-failed). StateText is what a
-	// person reads on the card: the state while it runs, the outcome once
-	// done. Headline is the last result's summary sentence.
-	State          string `json:"state"`
-	Outcome        string `json:"outcome,omitempty"`
-	StateText      string `json:"state_text"`
-	Headline       string `json:"headline,omitempty"`
-	Matrix         string `json:"matrix"`
-	MatrixID       string `json:"matrix_id"`
-	Rows           int64  `json:"rows"`
-	Cols           int64  `json:"cols"`
-	Nonzeros       int64  `json:"nonzeros"`
-	Method         string `json:"method"`
-	Preconditioner string `json:"preconditioner"`
-	RHSCount       int32  `json:"rhs_count"`
-	RHSDone        int32  `json:"rhs_done"`
-	RHS            int32  `json:"rhs"`
-	Iteration      int64  `json:"iteration"`
-	// RelResidual is the latest relative residual; NormalResidual the
-	// latest ‖Aᵀr‖ of a least-squares job (null for a system).
-	RelResidual    *solve.Num `json:"relative_residual"`
-	NormalResidual *solve.Num `json:"normal_residual_norm"`
-	Tolerance      float64    `json:"tolerance"`
-	ElapsedSeconds float64    `json:"elapsed_seconds"`
+	wire.Job
+	// StateText is what a person reads on the card: the state while the
+	// job runs, the outcome once done. Headline is the last result's
+	// summary sentence.
+	StateText string `json:"state_text"`
+	Headline  string `json:"headline,omitempty"`
 	// Reduction is the average reduction of the relative residual per
 	// iteration over the last 50 iterations (package monitor's Rate);
 	// IterationsLeft and SecondsLeft predict the rest of the current
@@ -152,16 +133,12 @@ type Job struct {
 	Reduction      *solve.Num `json:"reduction_per_iteration"`
 	IterationsLeft *int64     `json:"iterations_left"`
 	SecondsLeft    *solve.Num `json:"seconds_left"`
-	Error          string     `json:"error,omitempty"`
-	CreatedUnix    float64    `json:"created_unix"`
-	StartedUnix    float64    `json:"started_unix"`
-	FinishedUnix   float64    `json:"finished_unix"`
 	// HistoryRows counts the rows of the job's histories (over all
 	// right-hand sides); Version changes whenever the curve does.
 	HistoryRows int    `json:"history_rows"`
 	Version     uint64 `json:"version"`
 	// Results holds the summary of each finished right-hand side, with
-	// the keys of the CLI's --json summary (in the job's own list only:
+	// the keys of the CLI's --json summary (in the job's own record only:
 	// GET /api/jobs/{id}).
 	Results []solve.Summary `json:"results,omitempty"`
 }
@@ -181,20 +158,7 @@ const PageJobs = 50
 
 // view describes j, with the estimate from its current history.
 func (s *Server) view(j *pb.Job) Job {
-	v := Job{
-		ID: j.GetId(), Label: j.GetLabel(), State: string(wire.State(j.GetState())), Outcome: j.GetOutcome(),
-		Matrix: j.GetMatrixName(), MatrixID: j.GetMatrixId(), Rows: j.GetRows(), Cols: j.GetCols(), Nonzeros: j.GetNonzeros(),
-		Method: j.GetMethod(), Preconditioner: j.GetPreconditioner(),
-		RHSCount: j.GetRhsCount(), RHSDone: j.GetRhsDone(),
-		Tolerance: j.GetRtol(), Error: j.GetError(),
-		CreatedUnix: j.GetCreatedUnix(), StartedUnix: j.GetStartedUnix(), FinishedUnix: j.GetFinishedUnix(),
-	}
-	if v.Preconditioner == "" {
-		v.Preconditioner = j.GetPreconditionerRequested()
-	}
-	if v.Matrix == "" {
-		v.Matrix = v.MatrixID
-	}
+	v := Job{Job: wire.JobRecord(j, s.opt.Now())}
 	v.StateText = v.State
 	if v.Outcome != "" {
 		v.StateText = v.Outcome
@@ -203,19 +167,6 @@ func (s *Server) view(j *pb.Job) Job {
 		v.Headline = rs[len(rs)-1].GetHeadline()
 	}
 	leastSquares := solve.Method(v.Method).LeastSquares()
-	if lp := j.GetLastProgress(); lp != nil {
-		v.RHS, v.Iteration, v.RelResidual = lp.GetRhs(), lp.GetIteration(), solve.NumPtr(lp.GetRelativeResidual())
-		if leastSquares {
-			v.NormalResidual = solve.NumPtr(lp.GetNormalResidualNorm())
-		}
-	}
-	switch {
-	case v.StartedUnix == 0:
-	case v.FinishedUnix != 0:
-		v.ElapsedSeconds = v.FinishedUnix - v.StartedUnix
-	default:
-		v.ElapsedSeconds = max(0, float64(s.opt.Now().UnixNano())/1e9-v.StartedUnix)
-	}
 	hs, version, ok := s.t.histories(j.GetId())
 	if !ok {
 		return v

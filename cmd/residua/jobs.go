@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"text/tabwriter"
+	"time"
 
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/solve"
@@ -16,59 +17,11 @@ func init() {
 	register(&command{name: "cancel", summary: "cancel a job on a residua server", run: runCancel})
 }
 
-// jobJSON is one job in 'residua jobs --json'.
-type jobJSON struct {
-	ID       string `json:"id"`
-	State    string `json:"state"`
-	Outcome  string `json:"outcome,omitempty"`
-	MatrixID string `json:"matrix_id"`
-	// MatrixName is the name given at upload.
-	MatrixName       string    `json:"matrix_name"`
-	Rows             int64     `json:"rows"`
-	Cols             int64     `json:"cols"`
-	Nonzeros         int64     `json:"nonzeros"`
-	Method           string    `json:"method"`
-	Preconditioner   string    `json:"preconditioner"`
-	RHSCount         int32     `json:"rhs_count"`
-	RHSDone          int32     `json:"rhs_done"`
-	Iteration        int64     `json:"iteration"`
-	RelativeResidual solve.Num `json:"relative_residual"`
-	ElapsedSeconds   solve.Num `json:"elapsed_seconds"`
-	Detached         bool      `json:"detached"`
-	Label            string    `json:"label,omitempty"`
-	Error            string    `json:"error,omitempty"`
-	CreatedUnix      float64   `json:"created_unix"`
-	SolutionKept     bool      `json:"solution_kept"`
-}
-
-func jobView(j *pb.Job) jobJSON {
-	pc := j.GetPreconditioner()
-	if pc == "" {
-		pc = j.GetPreconditionerRequested()
-	}
-	v := jobJSON{
-		ID: j.GetId(), State: string(wire.State(j.GetState())), Outcome: j.GetOutcome(),
-		MatrixID: j.GetMatrixId(), MatrixName: j.GetMatrixName(),
-		Rows: j.GetRows(), Cols: j.GetCols(), Nonzeros: j.GetNonzeros(), Method: j.GetMethod(), Preconditioner: pc,
-		RHSCount: j.GetRhsCount(), RHSDone: j.GetRhsDone(),
-		Iteration: j.GetLastProgress().GetIteration(), RelativeResidual: solve.Num(j.GetLastProgress().GetRelativeResidual()),
-		ElapsedSeconds: solve.Num(j.GetLastProgress().GetElapsedSeconds()), Detached: j.GetDetached(), Label: j.GetLabel(),
-		Error: j.GetError(), CreatedUnix: j.GetCreatedUnix(), SolutionKept: j.GetSolutionKept(),
-	}
-	// A finished right-hand side's figures are final: report the last one
-	// rather than the last progress event sent, which may lag behind it.
-	if rs := j.GetResults(); len(rs) > 0 && rs[len(rs)-1].GetRhs() == j.GetLastProgress().GetRhs() {
-		r := rs[len(rs)-1]
-		v.Iteration, v.RelativeResidual = r.GetIterations(), solve.Num(r.GetRelativeResidual())
-	}
-	return v
-}
-
 const jobsAbout = `
 Lists the jobs the server knows (queued, running and recently done),
 newest first: id, state, outcome, matrix, preconditioner, iteration,
 relative residual and elapsed time. With --json, prints {"jobs": [...]}
-with the keys listed in the README.`
+with the keys listed in the README (those of the watch page's /api/jobs).`
 
 func runJobs(ctx context.Context, e *env, args []string) error {
 	so := &serverOpts{}
@@ -92,9 +45,10 @@ func runJobs(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return remoteError("jobs", so.addr, err)
 	}
-	views := make([]jobJSON, 0, len(jobs))
+	views := make([]wire.Job, 0, len(jobs))
+	now := time.Now()
 	for _, j := range jobs {
-		views = append(views, jobView(j))
+		views = append(views, wire.JobRecord(j, now))
 	}
 	if *asJSON {
 		return writeJSON(e.stdout, map[string]any{"jobs": views})
@@ -110,8 +64,8 @@ func runJobs(ctx context.Context, e *env, args []string) error {
 		if outcome == "" {
 			outcome = "-"
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d×%d\t%s\t%d\t%s\t%s\n", v.ID, v.State, outcome, v.MatrixName, v.Rows, v.Cols, v.Preconditioner,
-			v.Iteration, solve.Sci(float64(v.RelativeResidual)), fmtSec(v.ElapsedSeconds))
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d×%d\t%s\t%d\t%s\t%s\n", v.ID, v.State, outcome, v.Matrix, v.Rows, v.Cols, v.Preconditioner,
+			v.Iteration, solve.Sci(num(v.RelResidual)), fmtSec(solve.Num(v.ElapsedSeconds)))
 	}
 	return tw.Flush()
 }
@@ -236,7 +190,7 @@ func runCancel(ctx context.Context, e *env, args []string) error {
 		return remoteError("cancel", so.addr, err)
 	}
 	if *asJSON {
-		return writeJSON(e.stdout, jobView(j))
+		return writeJSON(e.stdout, wire.JobRecord(j, time.Now()))
 	}
 	switch j.GetState() {
 	case pb.JobState_QUEUED, pb.JobState_RUNNING:
