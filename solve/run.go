@@ -26,6 +26,8 @@ type Setup struct {
 	ScalingReason string
 	// Matrix is the matrix the set-up is for.
 	Matrix Matrix
+
+	zeroDiag int // a system's zero diagonal entries (see zeroDiagonal)
 }
 
 // SetupError is a preconditioner that could not be built. It wraps the
@@ -59,6 +61,7 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 		s.Scaling, s.ScalingReason = krylov.ChooseScaling(sc, m.A.Rows, m.A.Cols, true)
 		return s, nil
 	}
+	s.zeroDiag = zeroDiagonal(m.A)
 	kind, _ := precond.ParseKind(req.Preconditioner)
 	c, err := precond.New(m.A, kind)
 	if err != nil {
@@ -105,7 +108,7 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 			RefreshEvery: req.RefreshEvery, X0: x0, Recorder: rec,
 		})
 	}
-	fill(&sum, &res, err)
+	fill(&sum, &res, err, s.zeroDiag)
 	return sum, err
 }
 
@@ -129,8 +132,9 @@ func (s *Setup) Summary() Summary {
 	return sum
 }
 
-// fill copies a method's result into the summary.
-func fill(sum *Summary, r *krylov.Result, err error) {
+// fill copies a method's result into the summary and says how far x can be
+// trusted.
+func fill(sum *Summary, r *krylov.Result, err error, zeroDiag int) {
 	sum.Iterations = r.Iterations
 	sum.RelativeResidual, sum.TrueResidualNorm, sum.RHSNorm = Num(r.RelResidual), Num(r.TrueResidualNorm), Num(r.RHSNorm)
 	sum.SolveSeconds, sum.SecondsPerIteration = Seconds(r.Solve), Seconds(r.PerIteration)
@@ -155,6 +159,8 @@ func fill(sum *Summary, r *krylov.Result, err error) {
 	if err != nil && r.Status != krylov.Cancelled {
 		sum.Error = trimPackage(err).Error()
 	}
+	sum.Status = string(OutcomeOf(r.Status))
+	sum.assessTrust(zeroDiag)
 	sum.SetOutcome(OutcomeOf(r.Status))
 }
 

@@ -139,6 +139,17 @@ type Summary struct {
 	LambdaMax    *Num `json:"lambda_max_estimate,omitempty"`
 	CondEstimate Num  `json:"cond_estimate"`
 
+	// How far x can be trusted: ForwardErrorEstimate estimates the
+	// relative forward error ‖x − x*‖/‖x*‖ from the condition estimate and
+	// the residual, ForwardErrorNote says how and what it is (see
+	// assessTrust); Warning is a stable code ("inaccurate": the estimate
+	// exceeds TrustThreshold; "singular": the matrix is singular or
+	// numerically so) and WarningText says it in words with what helps.
+	ForwardErrorEstimate *Num  `json:"forward_error_estimate,omitempty"`
+	ForwardErrorNote     string `json:"forward_error_note,omitempty"`
+	Warning              string `json:"warning,omitempty"`
+	WarningText          string `json:"warning_text,omitempty"`
+
 	// ErrorVsOnes is max_i |x_i − 1| when b = A·1, so that the exact
 	// solution is all ones.
 	ErrorVsOnes *Num `json:"error_vs_ones,omitempty"`
@@ -188,20 +199,11 @@ func Headline(s *Summary) string {
 	}
 	switch Outcome(s.Status) {
 	case Converged:
-		switch {
-		case s.StoppedBy == "residual":
-			return fmt.Sprintf("converged in %s of %s: a consistent system, ‖b − A·x‖ ≤ btol·‖b‖ + atol·‖A‖·‖x‖ (%s)", its, method, res)
-		case s.StoppedBy == "normal-residual":
-			return fmt.Sprintf("converged in %s of %s: a least-squares solution, ‖Aᵀr‖ ≤ atol·‖A‖·‖r‖ (%s)", its, method, res)
-		case s.LeastSquares():
-			return fmt.Sprintf("converged in %s of %s: %s", its, method, res)
-		case s.RelTol != nil && float64(s.AbsTol) > float64(*s.RelTol)*float64(s.RHSNorm):
-			return fmt.Sprintf("converged in %s of %s: true residual ‖b − A·x‖ = %s ≤ atol %s (relative %s)",
-				its, method, Sci(float64(s.TrueResidualNorm)), Sci(float64(s.AbsTol)), Sci(rel))
-		case s.RelTol != nil:
-			return fmt.Sprintf("converged in %s of %s: %s ≤ tolerance %s", its, method, res, Sci(float64(*s.RelTol)))
+		h := converged(s, its, method, res)
+		if s.Warning != "" {
+			h += "; but x may not be accurate (" + s.Warning + ": see the warning)"
 		}
-		return fmt.Sprintf("converged in %s of %s: %s", its, method, res)
+		return h
 	case IterationLimit:
 		return fmt.Sprintf("stopped without converging at the iteration limit, %s of %s: %s%s", its, method, res, tolerance)
 	case TimeLimit:
@@ -221,6 +223,26 @@ func Headline(s *Summary) string {
 		return "failed: " + orUnknown(s.Error)
 	}
 	return fmt.Sprintf("%s after %s of %s", s.Status, its, method)
+}
+
+// converged is the headline of a converged solve: it names the test that
+// was met.
+func converged(s *Summary, its, method, res string) string {
+	rel := float64(s.RelativeResidual)
+	switch {
+	case s.StoppedBy == "residual":
+		return fmt.Sprintf("converged in %s of %s: a consistent system, ‖b − A·x‖ ≤ btol·‖b‖ + atol·‖A‖·‖x‖ (%s)", its, method, res)
+	case s.StoppedBy == "normal-residual":
+		return fmt.Sprintf("converged in %s of %s: a least-squares solution, ‖Aᵀr‖ ≤ atol·‖A‖·‖r‖ (%s)", its, method, res)
+	case s.LeastSquares():
+		return fmt.Sprintf("converged in %s of %s: %s", its, method, res)
+	case s.RelTol != nil && float64(s.AbsTol) > float64(*s.RelTol)*float64(s.RHSNorm):
+		return fmt.Sprintf("converged in %s of %s: true residual ‖b − A·x‖ = %s ≤ atol %s (relative %s)",
+			its, method, Sci(float64(s.TrueResidualNorm)), Sci(float64(s.AbsTol)), Sci(rel))
+	case s.RelTol != nil:
+		return fmt.Sprintf("converged in %s of %s: %s ≤ tolerance %s", its, method, res, Sci(float64(*s.RelTol)))
+	}
+	return fmt.Sprintf("converged in %s of %s: %s", its, method, res)
 }
 
 func orUnknown(s string) string {

@@ -34,8 +34,10 @@ func Result(s *solve.Summary) *pb.SolveResult {
 		},
 		FromCache: s.FromCache != nil && *s.FromCache, Error: s.Error,
 		NormalResidualNorm: f64(s.NormalResidualNorm), XNorm: f64(s.XNorm), ANormEstimate: f64(s.NormEstimate),
-		StoppedBy: s.StoppedBy,
-		Matrix:    s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
+		StoppedBy:            s.StoppedBy,
+		ForwardErrorEstimate: f64(s.ForwardErrorEstimate), ForwardErrorNote: s.ForwardErrorNote,
+		Warning: s.Warning, WarningText: s.WarningText,
+		Matrix: s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
 	}
 	for _, c := range s.ZeroColumns {
 		r.ZeroColumns = append(r.ZeroColumns, int64(c))
@@ -67,8 +69,10 @@ func Summary(r *pb.SolveResult) solve.Summary {
 		BTol: num(st.Btol), Damp: num(st.Damp),
 		FromCache: &cached, Error: r.GetError(),
 		NormalResidualNorm: num(r.NormalResidualNorm), XNorm: num(r.XNorm), NormEstimate: num(r.ANormEstimate),
-		StoppedBy: r.GetStoppedBy(),
-		Matrix:    r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
+		StoppedBy:            r.GetStoppedBy(),
+		ForwardErrorEstimate: num(r.ForwardErrorEstimate), ForwardErrorNote: r.GetForwardErrorNote(),
+		Warning: r.GetWarning(), WarningText: r.GetWarningText(),
+		Matrix: r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
 	}
 	for _, c := range r.GetZeroColumns() {
 		s.ZeroColumns = append(s.ZeroColumns, int(c))

@@ -22,6 +22,10 @@ func writeJSON(w io.Writer, v any) error {
 // where the time went. The JSON form (--json) is the summary itself.
 func writeSummary(w io.Writer, r *solve.Summary) {
 	fmt.Fprintln(w, r.Headline)
+	if r.Warning != "" {
+		// Not to be missed: right under the headline, before any figure.
+		fmt.Fprintf(w, "  WARNING (%s)  %s\n", r.Warning, r.WarningText)
+	}
 	if r.Error != "" && !strings.Contains(r.Headline, r.Error) {
 		fmt.Fprintf(w, "  problem           %s\n", r.Error)
 	}
@@ -68,15 +72,27 @@ func writeSummary(w io.Writer, r *solve.Summary) {
 		fmt.Fprintf(w, "  residual          true %s, recursive %s (relative; ‖b‖ = %s)\n",
 			solve.Sci(float64(r.RelativeResidual)), solve.Sci(num(r.RecursiveRelativeResidual)), solve.Sci(float64(r.RHSNorm)))
 	}
+	if r.ForwardErrorEstimate != nil {
+		fmt.Fprintf(w, "  forward error     ≈ %s estimated: %s\n", solve.Sci(float64(*r.ForwardErrorEstimate)), r.ForwardErrorNote)
+	}
 	if r.ErrorVsOnes != nil {
 		fmt.Fprintf(w, "  error             max |x_i − 1| = %s (the exact solution is all ones)\n", solve.Sci(float64(*r.ErrorVsOnes)))
 	}
 	switch {
 	case r.CondEstimate > 0 && r.LambdaMin != nil:
-		fmt.Fprintf(w, "  condition         ≈ %s (Lanczos estimate for the preconditioned operator, λ in [%s, %s])\n",
-			solve.Sci(float64(r.CondEstimate)), solve.Sci(float64(*r.LambdaMin)), solve.Sci(num(r.LambdaMax)))
+		of := "A"
+		if r.Preconditioner != "none" {
+			of = "the preconditioned operator"
+		}
+		fmt.Fprintf(w, "  condition         ≈ %s (Lanczos estimate for %s, from below; λ in [%s, %s])\n",
+			solve.Sci(float64(r.CondEstimate)), of, solve.Sci(float64(*r.LambdaMin)), solve.Sci(num(r.LambdaMax)))
 	case r.CondEstimate > 0:
-		fmt.Fprintf(w, "  condition         ≈ %s (estimate for the scaled operator, from below)\n", solve.Sci(float64(r.CondEstimate)))
+		of := "A"
+		if r.Preconditioner == "colscale" {
+			of = "the column-scaled A"
+		}
+		fmt.Fprintf(w, "  condition         ≈ %s (LSQR's estimate of the Frobenius-norm condition ‖A‖_F·‖A⁺‖_F of %s: at least the 2-norm condition number, and on ill-conditioned problems it can exceed its target, erring on the side of caution)\n",
+			solve.Sci(float64(r.CondEstimate)), of)
 	}
 	timeLine := fmt.Sprintf("set-up %s, solve %s", fmtSec(r.SetupSeconds), fmtSec(r.SolveSeconds))
 	if r.Iterations > 0 {

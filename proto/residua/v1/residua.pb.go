@@ -1820,6 +1820,14 @@ type SolveResult struct {
 	ANormEstimate      *float64 `protobuf:"fixed64,24,opt,name=a_norm_estimate,json=aNormEstimate,proto3,oneof" json:"a_norm_estimate,omitempty"`
 	StoppedBy          string   `protobuf:"bytes,25,opt,name=stopped_by,json=stoppedBy,proto3" json:"stopped_by,omitempty"`
 	ZeroColumns        []int64  `protobuf:"varint,26,rep,packed,name=zero_columns,json=zeroColumns,proto3" json:"zero_columns,omitempty"`
+	// How far x can be trusted: the estimated relative forward error
+	// (forward_error_estimate; absent without a condition estimate), how it
+	// was formed (forward_error_note), and a warning: "inaccurate" (the
+	// estimate exceeds 1e-3) or "singular", with its text (warning_text).
+	ForwardErrorEstimate *float64 `protobuf:"fixed64,37,opt,name=forward_error_estimate,json=forwardErrorEstimate,proto3,oneof" json:"forward_error_estimate,omitempty"`
+	ForwardErrorNote     string   `protobuf:"bytes,38,opt,name=forward_error_note,json=forwardErrorNote,proto3" json:"forward_error_note,omitempty"`
+	Warning              string   `protobuf:"bytes,39,opt,name=warning,proto3" json:"warning,omitempty"`
+	WarningText          string   `protobuf:"bytes,40,opt,name=warning_text,json=warningText,proto3" json:"warning_text,omitempty"`
 	// The matrix: its name, id and shape.
 	Matrix        string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
 	MatrixId      string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
@@ -2075,6 +2083,34 @@ func (x *SolveResult) GetZeroColumns() []int64 {
 		return x.ZeroColumns
 	}
 	return nil
+}
+
+func (x *SolveResult) GetForwardErrorEstimate() float64 {
+	if x != nil && x.ForwardErrorEstimate != nil {
+		return *x.ForwardErrorEstimate
+	}
+	return 0
+}
+
+func (x *SolveResult) GetForwardErrorNote() string {
+	if x != nil {
+		return x.ForwardErrorNote
+	}
+	return ""
+}
+
+func (x *SolveResult) GetWarning() string {
+	if x != nil {
+		return x.Warning
+	}
+	return ""
+}
+
+func (x *SolveResult) GetWarningText() string {
+	if x != nil {
+		return x.WarningText
+	}
+	return ""
 }
 
 func (x *SolveResult) GetMatrix() string {
@@ -3107,7 +3143,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
 	"\x05_rtolB\a\n" +
 	"\x05_btolB\a\n" +
-	"\x05_damp\"\xdf\v\n" +
+	"\x05_damp\"\xa0\r\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -3147,7 +3183,12 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x0fa_norm_estimate\x18\x18 \x01(\x01H\tR\raNormEstimate\x88\x01\x01\x12\x1d\n" +
 	"\n" +
 	"stopped_by\x18\x19 \x01(\tR\tstoppedBy\x12!\n" +
-	"\fzero_columns\x18\x1a \x03(\x03R\vzeroColumns\x12\x16\n" +
+	"\fzero_columns\x18\x1a \x03(\x03R\vzeroColumns\x129\n" +
+	"\x16forward_error_estimate\x18% \x01(\x01H\n" +
+	"R\x14forwardErrorEstimate\x88\x01\x01\x12,\n" +
+	"\x12forward_error_note\x18& \x01(\tR\x10forwardErrorNote\x12\x18\n" +
+	"\awarning\x18' \x01(\tR\awarning\x12!\n" +
+	"\fwarning_text\x18( \x01(\tR\vwarningText\x12\x16\n" +
 	"\x06matrix\x18  \x01(\tR\x06matrix\x12\x1b\n" +
 	"\tmatrix_id\x18! \x01(\tR\bmatrixId\x12\x12\n" +
 	"\x04rows\x18\" \x01(\x03R\x04rows\x12\x12\n" +
@@ -3162,7 +3203,8 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\v_lambda_maxB\x17\n" +
 	"\x15_normal_residual_normB\t\n" +
 	"\a_x_normB\x12\n" +
-	"\x10_a_norm_estimate\"\x8f\x01\n" +
+	"\x10_a_norm_estimateB\x19\n" +
+	"\x17_forward_error_estimate\"\x8f\x01\n" +
 	"\vVectorChunk\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x16\n" +
 	"\x06length\x18\x02 \x01(\x03R\x06length\x12\x16\n" +
