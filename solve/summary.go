@@ -145,7 +145,7 @@ type Summary struct {
 	// assessTrust); Warning is a stable code ("inaccurate": the estimate
 	// exceeds TrustThreshold; "singular": the matrix is singular or
 	// numerically so) and WarningText says it in words with what helps.
-	ForwardErrorEstimate *Num  `json:"forward_error_estimate,omitempty"`
+	ForwardErrorEstimate *Num   `json:"forward_error_estimate,omitempty"`
 	ForwardErrorNote     string `json:"forward_error_note,omitempty"`
 	Warning              string `json:"warning,omitempty"`
 	WarningText          string `json:"warning_text,omitempty"`
