@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"slices"
 	"strings"
 	"time"
 
@@ -55,6 +56,9 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 		return usageErrorf("generate: want one KIND (%s), got %d arguments", strings.Join(stencil.Names(), ", "), len(pos))
 	}
 	kind := pos[0]
+	if !slices.Contains(stencil.Names(), kind) {
+		return usageErrorf("generate: unknown kind %q: want one of %s", kind, strings.Join(stencil.Names(), ", "))
+	}
 	set := map[string]bool{}
 	f.Visit(func(fl *flag.Flag) { set[fl.Name] = true })
 	for _, name := range []string{"kx", "ky", "kz"} {

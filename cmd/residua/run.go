@@ -6,6 +6,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"slices"
 	"sort"
 	"strings"
 )
@@ -191,7 +192,7 @@ func (f *cmdFlags) parse(e *env, args []string) ([]string, error) {
 			return nil, errHelp
 		}
 		if err != nil {
-			return nil, usageErrorf("%s: %v (run 'residua %s --help')", f.Name(), err, f.Name())
+			return nil, usageErrorf("%s: %s (run 'residua %s --help')", f.Name(), f.explain(err), f.Name())
 		}
 		rest := f.Args()
 		used := len(args) - len(rest)
@@ -242,4 +243,68 @@ func (f *cmdFlags) printHelp(w io.Writer) {
 		fmt.Fprintf(w, "  %-*s  %s\n\n", width, "-h, --help", "this text")
 	}
 	fmt.Fprint(w, exitStatusText)
+}
+
+// explain turns the flag package's message into one that says what to do:
+// a duration without a unit, an unknown flag close to a known one.
+func (f *cmdFlags) explain(err error) string {
+	msg := err.Error()
+	if name, ok := strings.CutPrefix(msg, "flag provided but not defined: "); ok {
+		name = strings.TrimLeft(name, "-")
+		if near := f.nearest(name); near != "" {
+			return fmt.Sprintf("unknown flag --%s; did you mean --%s?", name, near)
+		}
+		return fmt.Sprintf("unknown flag --%s", name)
+	}
+	for _, fl := range []string{"time-limit", "shutdown-grace", "stop-timeout"} {
+		if strings.Contains(msg, "for flag -"+fl+":") {
+			return fmt.Sprintf("--%s: a duration needs a unit, e.g. 10s, 5m or 1h30m (%v)", fl, strings.TrimPrefix(msg, "invalid value "))
+		}
+	}
+	return strings.Replace(msg, "flag -", "flag --", 1)
+}
+
+// preferred breaks ties between equally close flags: a bare "tol" most
+// likely means the relative tolerance.
+var preferred = []string{"rtol", "precond", "max-iter", "history"}
+
+// nearest returns the defined flag closest to name by edit distance, when
+// it is close enough to be a likely slip (at most a third of the name's
+// letters off), or "".
+func (f *cmdFlags) nearest(name string) string {
+	best, bestD := "", len(name)/3+1
+	f.VisitAll(func(fl *flag.Flag) {
+		d := editDistance(name, fl.Name)
+		if d < bestD || (d == bestD && best != "" && slices.Contains(preferred, fl.Name) && !slices.Contains(preferred, best)) {
+			best, bestD = fl.Name, d
+		}
+	})
+	return best
+}
+
+// editDistance is the optimal-string-alignment distance between a and b:
+// insertions, deletions, substitutions and swaps of adjacent bytes (the
+// slips a typist makes) count one each.
+func editDistance(a, b string) int {
+	d := make([][]int, len(a)+1)
+	for i := range d {
+		d[i] = make([]int, len(b)+1)
+		d[i][0] = i
+	}
+	for j := range d[0] {
+		d[0][j] = j
+	}
+	for i := 1; i <= len(a); i++ {
+		for j := 1; j <= len(b); j++ {
+			cost := 1
+			if a[i-1] == b[j-1] {
+				cost = 0
+			}
+			d[i][j] = min(d[i-1][j]+1, d[i][j-1]+1, d[i-1][j-1]+cost)
+			if i > 1 && j > 1 && a[i-1] == b[j-2] && a[i-2] == b[j-1] {
+				d[i][j] = min(d[i][j], d[i-2][j-2]+1)
+			}
+		}
+	}
+	return d[len(a)][len(b)]
 }
