@@ -65,6 +65,10 @@ type solveOpts struct {
 	timeLimit       time.Duration
 	out, hist, plot string
 	json, quiet     bool
+
+	// printed: the command has written its answer on stdout (a summary,
+	// or a detached job's id), so a later error adds nothing there.
+	printed bool
 }
 
 // addRunFlags registers the tolerance flags of the conjugate-gradient
@@ -126,7 +130,7 @@ func checkOutputFlags(cmd string, o *solveOpts) error {
 	return nil
 }
 
-func runSolve(ctx context.Context, e *env, args []string) error {
+func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	o := &solveOpts{}
 	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--precond auto|none|jacobi|ic0] [flags]", solveAbout)
 	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
@@ -140,6 +144,7 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	defer func() { err = o.answerFailure(e, pos, err) }()
 	if len(pos) != 1 {
 		return usageErrorf("solve: want one matrix file, got %d arguments (run 'residua solve --help')", len(pos))
 	}
@@ -268,6 +273,7 @@ func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *s
 	if err != nil {
 		sum := solve.Failure(m, req, err)
 		sum.RHS, sum.ReadSeconds = rhs, solve.Seconds(p.read)
+		sum.Unstarted(p.a, p.b, x0)
 		return printOnly(e, o, &sum, err)
 	}
 	mo := monitor.Options{Target: target(req, p.b), Matrix: filepath.Base(p.name), Preconditioner: setup.Summary().Preconditioner}
@@ -300,9 +306,56 @@ func target(req solve.Request, b []float64) float64 {
 	return t
 }
 
+// failureAnswer is the JSON object a solving command prints with --json
+// when it ends before a summary exists (a file that cannot be read, a
+// right-hand side of the wrong length, a server that does not answer):
+// the summary's keys that are known, and no figure that is not, with the
+// gRPC code of a server's error for scripts.
+type failureAnswer struct {
+	Matrix    string `json:"matrix,omitempty"`
+	Converged bool   `json:"converged"`
+	Status    string `json:"status"`
+	Headline  string `json:"headline"`
+	Error     string `json:"error"`
+	Advice    string `json:"advice,omitempty"`
+	GRPCCode  string `json:"grpc_code,omitempty"`
+}
+
+// answerFailure prints, with --json, the one JSON object every outcome
+// owes its caller when err ended the command before anything was printed,
+// and returns err with its exit status unchanged (the message still goes
+// to stderr). The status is refused for bad input (exit 2), cancelled for
+// a stop (3), else failed.
+func (o *solveOpts) answerFailure(e *env, pos []string, err error) error {
+	if err == nil || !o.json || o.printed {
+		return err
+	}
+	a := failureAnswer{Error: err.Error(), Advice: solve.Advice(err), GRPCCode: grpcCodeOf(err), Status: string(solve.Failed)}
+	if len(pos) > 0 {
+		a.Matrix = pos[0]
+	}
+	var ee *exitError
+	if errors.As(err, &ee) {
+		switch ee.code {
+		case exitUsage:
+			a.Status = string(solve.Refused)
+		case exitNotConverged:
+			a.Status = string(solve.Cancelled)
+		}
+	}
+	sum := solve.Summary{Error: a.Error}
+	sum.SetOutcome(solve.Outcome(a.Status))
+	a.Headline = sum.Headline
+	if werr := writeJSON(e.stdout, a); werr != nil {
+		return errors.Join(err, werr)
+	}
+	return err
+}
+
 // printOnly prints the summary of a solve that ended before its method ran
 // and returns the error with its exit status.
 func printOnly(e *env, o *solveOpts, sum *solve.Summary, err error) error {
+	o.printed = true
 	if o.json {
 		if werr := writeJSON(e.stdout, sum); werr != nil {
 			return werr
@@ -397,6 +450,7 @@ func finishRun(e *env, o *solveOpts, sum *solve.Summary, x []float64, finish fun
 			sum.SolutionNote = "not written to " + o.out + " (the solve did not converge)"
 		}
 	}
+	o.printed = true
 	if o.json {
 		if err := writeJSON(e.stdout, sum); err != nil {
 			return err
