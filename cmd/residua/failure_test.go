@@ -1,11 +1,18 @@
 package main
 
 import (
+	"context"
 	"encoding/json"
+	"math"
 	"net"
+	"os"
 	"path/filepath"
+	"runtime"
 	"strings"
 	"testing"
+	"time"
+
+	"github.com/residua/residua/matrixio"
 )
 
 // TestJSONOnEveryFailure: with --json, every way solve and lsq end prints
@@ -73,5 +80,83 @@ func TestJSONOnEveryFailure(t *testing.T) {
 				t.Errorf("stderr shows the gRPC code to a person: %s", stderr)
 			}
 		})
+	}
+}
+
+// TestAlwaysWrite: a solve stopped by its iteration cap keeps its last
+// iterate with --always-write, and that file is the iterate the summary
+// describes: its true residual, recomputed here, is the summary's.
+func TestAlwaysWrite(t *testing.T) {
+	path := sharedMatrix(t, "nos4.mtx")
+	out := filepath.Join(t.TempDir(), "x.mtx")
+	rep, stderr, code := runJSON(t, "solve", path, "--max-iter", "3", "-o", out, "--always-write", "--precond", "none")
+	if code != exitNotConverged || rep.Status != "iteration-limit" {
+		t.Fatalf("exit %d, status %s: %s", code, rep.Status, stderr)
+	}
+	if rep.SolutionFile != out || rep.SolutionNote == "" {
+		t.Errorf("solution_file %q, note %q", rep.SolutionFile, rep.SolutionNote)
+	}
+	a, _, err := matrixio.ReadMatrixFile(path, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	x, _, err := matrixio.ReadVectorFile(out, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// b = A·1 (no -b given); r = b − A·x.
+	b, ax := make([]float64, a.Rows), make([]float64, a.Rows)
+	a.MulVec(b, onesVec(a.Cols))
+	a.MulVec(ax, x)
+	for i := range ax {
+		ax[i] = b[i] - ax[i]
+	}
+	if got, want := norm2(ax)/norm2(b), float64(rep.RelativeResidual); math.Abs(got-want) > 1e-12*want {
+		t.Errorf("the written x has relative residual %.17g, the summary says %.17g", got, want)
+	}
+	// Without the flag, nothing is written.
+	out2 := filepath.Join(t.TempDir(), "y.mtx")
+	rep, _, _ = runJSON(t, "solve", path, "--max-iter", "3", "-o", out2, "--precond", "none")
+	if _, err := os.Stat(out2); err == nil || rep.SolutionFile != "" {
+		t.Errorf("a stopped solve wrote %s without --always-write", out2)
+	}
+}
+
+// TestServeAnnouncements: a busy --http port is refused before anything
+// says "serving"; listening beyond loopback without a token warns.
+func TestServeAnnouncements(t *testing.T) {
+	busy, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer busy.Close()
+	_, stderr, code := runCLI(t, "serve", "--listen", "127.0.0.1:0", "--http", busy.Addr().String())
+	if code != exitFailure || !strings.Contains(stderr, "--http "+busy.Addr().String()) {
+		t.Errorf("busy --http port: exit %d, stderr %q", code, stderr)
+	}
+	if strings.Contains(stderr, "serving") {
+		t.Errorf("announced serving before failing on the busy port: %q", stderr)
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), time.Second)
+	defer cancel()
+	_, stderr, _ = runCLIContext(ctx, t, "serve", "--listen", "0.0.0.0:0")
+	if !strings.Contains(stderr, "without --token-file: anyone who can reach this port") {
+		t.Errorf("no warning for an open port without a token: %q", stderr)
+	}
+	ctx, cancel = context.WithTimeout(context.Background(), time.Second)
+	defer cancel()
+	if _, stderr, _ = runCLIContext(ctx, t, "serve", "--listen", "127.0.0.1:0"); strings.Contains(stderr, "warning") {
+		t.Errorf("warned on loopback: %q", stderr)
+	}
+}
+
+// TestVersion: --version names the program and the Go release that built
+// it (runtime.Version, which the build information records too).
+func TestVersion(t *testing.T) {
+	for _, arg := range []string{"--version", "version"} {
+		stdout, _, code := runCLI(t, arg)
+		if code != 0 || !strings.HasPrefix(stdout, "residua ") || !strings.Contains(stdout, runtime.Version()) {
+			t.Errorf("%s: exit %d, %q", arg, code, stdout)
+		}
 	}
 }

@@ -65,6 +65,7 @@ type solveOpts struct {
 	timeLimit       time.Duration
 	out, hist, plot string
 	json, quiet     bool
+	alwaysWrite     bool // write -o whatever the outcome
 
 	// printed: the command has written its answer on stdout (a summary,
 	// or a detached job's id), so a later error adds nothing there.
@@ -83,7 +84,8 @@ func addRunFlags(f *cmdFlags, o *solveOpts) {
 func addOutputFlags(f *cmdFlags, o *solveOpts) {
 	f.IntVar(&o.maxIter, "max-iter", 0, "iteration cap `N`; 0 means the default, 10·n")
 	f.DurationVar(&o.timeLimit, "time-limit", 0, "wall-time budget for the iterations, e.g. 30s or 5m (default none)")
-	f.StringVar(&o.out, "o", "", "write the solution x to this Matrix Market `file` (only if converged)")
+	f.StringVar(&o.out, "o", "", "write the solution x to this Matrix Market `file` (only if converged, unless --always-write)")
+	f.BoolVar(&o.alwaysWrite, "always-write", false, "write -o's file whatever the outcome: the last iterate of a solve that stopped early, for restarting it yourself")
 	f.StringVar(&o.hist, "history", "", "write the convergence history to this `file` (.csv, or .json for JSON lines)")
 	f.StringVar(&o.plot, "plot", "", "draw the residual curve to this `file` (.svg or .png)")
 	f.BoolVar(&o.json, "json", false, "print the summary as one JSON object")
@@ -440,11 +442,14 @@ func drawPlot(path string, mo monitor.Options, h history.History) error {
 func finishRun(e *env, o *solveOpts, sum *solve.Summary, x []float64, finish func(*solve.Summary) error, solveErr error) error {
 	outErr := finish(sum)
 	if o.out != "" {
-		if sum.Converged && x != nil {
+		if (sum.Converged || o.alwaysWrite) && x != nil {
 			if err := matrixio.WriteVectorFile(o.out, x); err != nil {
 				outErr = errors.Join(outErr, fmt.Errorf("writing the solution %s: %w", o.out, err))
 			} else {
 				sum.SolutionFile = o.out
+				if !sum.Converged {
+					sum.SolutionNote = "the last iterate, written although the solve did not converge (--always-write)"
+				}
 			}
 		} else {
 			sum.SolutionNote = "not written to " + o.out + " (the solve did not converge)"
