@@ -53,6 +53,10 @@ func fields(e Estimate, target float64, elapsedTotal time.Duration) []string {
 	case target <= 0:
 	case e.Reached:
 		f = append(f, "tolerance reached")
+	case e.Predicted && e.Unsteady:
+		f = append(f, "left: unknown (rate unsteady)")
+	case e.Predicted && !e.Steady:
+		f = append(f, fmt.Sprintf("left ≈ %d–%d it, %s–%s", e.Low, e.High, fmtDuration(e.TimeLow), fmtDuration(e.TimeHigh)))
 	case e.Predicted:
 		f = append(f, fmt.Sprintf("left ≈ %d it, %s", e.IterationsLeft, fmtDuration(e.TimeLeft)))
 	case e.Span > 0 && !e.Decreasing:

@@ -69,6 +69,11 @@ type Options struct {
 	// line has been erased, to write the summary in its place. When nil,
 	// Finish leaves one last status line instead.
 	Summary func(w io.Writer, r *krylov.Result)
+	// KeepCurve, in Panel mode, leaves a compact copy of the final curve
+	// (the chart, keptChartRows high, without the live facts) where the
+	// panel was when the solve ends, so that the run's shape stays above
+	// whatever is printed next.
+	KeepCurve bool
 }
 
 // Monitor is a krylov.Recorder that shows a running solve to a person.
@@ -300,6 +305,14 @@ func (m *Monitor) finish(r *krylov.Result) {
 				cols = c
 			}
 			m.out = m.erase(m.out, cols)
+			if rows := 0; m.mode == Panel && m.opt.KeepCurve && recorded {
+				if _, rows, _ = m.opt.Size(); panelFits(cols, rows) {
+					for _, l := range renderCurve(&m.v, cols, keptChartRows) {
+						m.out = append(m.out, l...)
+						m.out = append(m.out, '\n')
+					}
+				}
+			}
 		}
 		if (r == nil || m.opt.Summary == nil) && recorded {
 			// The last status line stays; on a terminal it is packed into

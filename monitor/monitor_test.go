@@ -187,6 +187,37 @@ func TestPanelOnFakeTerminal(t *testing.T) {
 	}
 }
 
+// TestPanelKeepsCurve: with KeepCurve the finished panel leaves its
+// final curve (header, chart, axis; no live facts) above the summary, and
+// nothing else of the live panel (issue 11 §4: the final curve was lost).
+func TestPanelKeepsCurve(t *testing.T) {
+	scr := newScreen(t, 80, 24)
+	scr.Write([]byte("$ residua solve heat.mtx\n"))
+	m := New(scr, Options{
+		Mode: Panel, Size: scr.size, Target: 1e-8, Matrix: "heat-sink block", Redraw: 2 * time.Millisecond, KeepCurve: true,
+		Summary: func(w io.Writer, r *krylov.Result) { fmt.Fprintf(w, "summary: %s\n", r.Status) },
+	})
+	for k := 0; k <= 175; k++ {
+		m.Record(geometric(k, 0.9))
+	}
+	waitFor(t, scr, "iteration 175")
+	m.Finish(&krylov.Result{Status: krylov.Converged, Iterations: 175})
+	got := scr.text()
+	lines := strings.Split(got, "\n")
+	if lines[0] != "$ residua solve heat.mtx" || lines[len(lines)-1] != "summary: converged" {
+		t.Fatalf("screen after Finish:\n%s", got)
+	}
+	if !hasBraille(got) || strings.Count(got, "relative residual ·") != 1 || !strings.Contains(got, "╌") {
+		t.Errorf("the final curve was not kept:\n%s", got)
+	}
+	if strings.Contains(got, "iteration 175") || strings.Contains(got, "left") {
+		t.Errorf("the live facts were kept:\n%s", got)
+	}
+	if n := len(lines); n != 1+keptChartRows+3+1 {
+		t.Errorf("%d lines on screen, want the prompt, the %d-row chart with header and axis, and the summary:\n%s", n, keptChartRows, got)
+	}
+}
+
 // On a terminal too small for the panel, and in StatusLine mode, one line
 // is redrawn in place; without a Summary hook, Finish leaves it as a plain
 // last line.

@@ -46,6 +46,18 @@ func renderPanel(v *view, cols, rows int) []string {
 	infoLines := pack(info, "   ", width)
 	chartRows := min(maxChartRows, rows-1-len(infoLines)-3)
 	chartRows = max(chartRows, 2)
+	return append(renderCurve(v, cols, chartRows), infoLines...)
+}
+
+// keptChartRows is the height of the chart a finished panel leaves behind
+// (Options.KeepCurve): enough for the curve's shape, small enough that the
+// summary below it stays on the screen.
+const keptChartRows = 6
+
+// renderCurve lays out the panel's header, its chart of chartRows rows and
+// the x axis, without the live facts.
+func renderCurve(v *view, cols, chartRows int) []string {
+	width := cols - 1
 	plotCols := width - labelWidth - 1
 
 	head := []string{"relative residual"}
@@ -58,8 +70,7 @@ func renderPanel(v *view, cols, rows int) []string {
 	lines := []string{cut(strings.Join(head, " · "), width)}
 	lines = append(lines, chartLines(v, plotCols, chartRows)...)
 	lines = append(lines, strings.Repeat(" ", labelWidth)+"└"+strings.Repeat("─", plotCols))
-	lines = append(lines, xLabels(v, plotCols))
-	return append(lines, infoLines...)
+	return append(lines, xLabels(v, plotCols))
 }
 
 // chartLines draws the curve into rows lines of cols braille cells with the

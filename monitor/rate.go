@@ -27,6 +27,15 @@ const DefaultWindow = 50
 // prediction while the residual is not decreasing over the window (ρ ≥ 1),
 // has not spanned two rows yet, or the oldest residual is zero.
 //
+// CG's rate is not constant: its residual is not monotone, and it speeds
+// up as the extreme eigenvalues are resolved (superlinear convergence:
+// Saad, Iterative Methods for Sparse Linear Systems, 2nd ed., §6.11.3, and
+// van der Sluis and van der Vorst, Numer. Math. 48, 1986), so one window's
+// rate can be far from the rest of the run's. Rate therefore also makes
+// the prediction from each half of the window: when the three disagree by
+// more than a factor of two, the estimate is a range (Low to High), and
+// when a half of the window did not decrease at all, it is unknown.
+//
 // The zero Rate is not usable; make one with NewRate. Add allocates
 // nothing. A Rate has no lock.
 type Rate struct {
@@ -97,11 +106,24 @@ type Estimate struct {
 	// Reached says the latest relative residual is at or below the target.
 	Reached bool
 	// IterationsLeft and TimeLeft predict what it takes to reach the
-	// target; valid when Predicted is true.
+	// target from the whole window's rate; valid when Predicted is true.
 	IterationsLeft int
 	TimeLeft       time.Duration
 	Predicted      bool
+	// Low and High bound the predictions of the whole window and of each
+	// of its halves (iterations, and time at PerIteration); Steady says
+	// they agree within a factor of two (High ≤ 2·Low), so that one
+	// figure is worth showing. Unsteady says a half of the window did not
+	// decrease although the whole did: the rate is too uneven to predict.
+	Low, High         int
+	TimeLow, TimeHigh time.Duration
+	Steady, Unsteady  bool
 }
+
+// steadyRatio is how far the half-window predictions may spread (High over
+// Low) for one figure to be shown rather than a range: common practice, a
+// factor of two being the usual limit of a figure a person plans by.
+const steadyRatio = 2
 
 // maxPrediction caps IterationsLeft: beyond it the estimate is noise and
 // the arithmetic of TimeLeft could overflow.
@@ -134,12 +156,39 @@ func (r *Rate) Estimate(target float64) Estimate {
 		return e
 	}
 	// Iterations n with r_k·ρⁿ ≤ t: n ≥ log(t/r_k)/log ρ.
-	n := math.Ceil(math.Log(target/last.rel) / math.Log(e.Factor))
-	if !(n <= maxPrediction) {
+	left := func(factor float64) (float64, bool) {
+		n := math.Ceil(math.Log(target/last.rel) / math.Log(factor))
+		return n, factor < 1 && n <= maxPrediction
+	}
+	n, ok := left(e.Factor)
+	if !ok {
 		return e
 	}
 	e.IterationsLeft = int(n)
 	e.TimeLeft = time.Duration(n * float64(e.PerIteration))
 	e.Predicted = true
+	e.Low, e.High = e.IterationsLeft, e.IterationsLeft
+	e.Steady = true
+	if r.count >= 5 { // each half spans at least two iterations
+		mid := r.ring[(r.head+r.count/2)%len(r.ring)]
+		for _, h := range [2][2]sample{{first, mid}, {mid, last}} {
+			span := h[1].it - h[0].it
+			if span < 1 || !(h[0].rel > 0) {
+				continue
+			}
+			f := math.Pow(h[1].rel/h[0].rel, 1/float64(span))
+			nh, ok := left(f)
+			if !ok {
+				e.Unsteady, e.Steady = true, false
+				continue
+			}
+			e.Low, e.High = min(e.Low, int(nh)), max(e.High, int(nh))
+		}
+		if !e.Unsteady {
+			e.Steady = float64(e.High) <= steadyRatio*float64(max(e.Low, 1))
+		}
+	}
+	e.TimeLow = time.Duration(float64(e.Low) * float64(e.PerIteration))
+	e.TimeHigh = time.Duration(float64(e.High) * float64(e.PerIteration))
 	return e
 }

@@ -2,6 +2,7 @@ package monitor
 
 import (
 	"math"
+	"strings"
 	"testing"
 	"time"
 
@@ -104,5 +105,47 @@ func TestRateNoEstimate(t *testing.T) {
 	r.Add(row(1, 0.25))
 	if e := r.Estimate(0); e.Span != 1 || e.Factor != 0.25 {
 		t.Errorf("repeated iteration: %+v", e)
+	}
+}
+
+// TestRateSpread: a geometric residual (constant rate) gives one figure,
+// the exact count ⌈log(t/r_k)/log ρ⌉; a rate that doubles its speed
+// halfway through the window gives a range holding both halves'
+// predictions; a window whose newer half rises gives no figure at all.
+func TestRateSpread(t *testing.T) {
+	feed := func(rel func(k int) float64) Estimate {
+		r := NewRate(50)
+		for k := 0; k <= 100; k++ {
+			r.Add(krylov.Progress{Iteration: k, RelResidual: rel(k), Elapsed: time.Duration(k) * time.Millisecond})
+		}
+		return r.Estimate(1e-12)
+	}
+	e := feed(func(k int) float64 { return math.Pow(0.9, float64(k)) })
+	want := int(math.Ceil(math.Log(1e-12/math.Pow(0.9, 100)) / math.Log(0.9)))
+	if !e.Predicted || !e.Steady || e.IterationsLeft != want || e.Low != want || e.High != want {
+		t.Errorf("geometric: %+v, want %d steady", e, want)
+	}
+	// ρ = 0.99 up to iteration 75, then 0.9: the halves predict very
+	// differently.
+	e = feed(func(k int) float64 {
+		if k <= 75 {
+			return math.Pow(0.99, float64(k))
+		}
+		return math.Pow(0.99, 75) * math.Pow(0.9, float64(k-75))
+	})
+	if !e.Predicted || e.Steady || e.Unsteady || !(e.Low < e.IterationsLeft && e.IterationsLeft < e.High) {
+		t.Errorf("changing rate: %+v, want a range around the whole window's figure", e)
+	}
+	if got := fields(e, 1e-12, time.Second)[3]; !strings.Contains(got, "–") {
+		t.Errorf("changing rate shown as %q, want a range", got)
+	}
+	e = feed(func(k int) float64 {
+		if k <= 75 {
+			return math.Pow(0.8, float64(k))
+		}
+		return math.Pow(0.8, 75) * math.Pow(1.01, float64(k-75))
+	})
+	if !e.Unsteady || fields(e, 1e-12, time.Second)[3] != "left: unknown (rate unsteady)" {
+		t.Errorf("rising newer half: %+v, shown %q", e, fields(e, 1e-12, time.Second)[3])
 	}
 }

@@ -41,14 +41,6 @@ func (o *solveOpts) forColumn(j, k int) *solveOpts {
 	return &oj
 }
 
-// finishRun is finishRuns for a single right-hand side.
-func finishRun(e *env, o *solveOpts, sum *solve.Summary, x []float64, finish func(*solve.Summary) error, solveErr error) error {
-	runs := []columnRun{{sum: *sum, x: x, finish: finish, err: solveErr}}
-	err := finishRuns(e, o, runs, nil)
-	*sum = runs[0].sum
-	return err
-}
-
 // finishRuns writes the outputs of finished solves of b's columns (each
 // column's history and plot; the solution x, an n×k array for k columns,
 // written only when every column converged unless --always-write), prints

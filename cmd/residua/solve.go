@@ -450,10 +450,12 @@ func recorders(e *env, o *solveOpts, leastSquares bool, mo monitor.Options) (kry
 }
 
 // newMonitor makes the live display. On a terminal the summary printed
-// after the solve replaces the panel, so the panel leaves nothing behind.
+// after the solve replaces the panel's live facts, and the panel leaves
+// its final curve above it.
 func newMonitor(e *env, mo monitor.Options) *monitor.Monitor {
 	if f, ok := e.stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		mo.Summary = func(io.Writer, *krylov.Result) {}
+		mo.KeepCurve = true
 	}
 	return monitor.New(e.stderr, mo)
 }
