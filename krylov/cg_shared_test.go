@@ -147,13 +147,23 @@ const cgRaceWorkBudget = 2e7
 //   - convergence, where the reference says both of its implementations
 //     converged (always for IC(0), which has no reference: we expect it on
 //     every matrix; it is the strongest of the three);
-//   - iteration counts for none and Jacobi within 5% (at least 3
-//     iterations) of SciPy's, where SciPy's count and the textbook
-//     implementation's agree to 0.5% (at least 2 iterations): there the
-//     count is a property of the matrix and the method
-//     (../shared/reference/README.md). Where they differ by more, rounding
-//     decides the count (plat362 without a preconditioner: 1457 and 1444,
-//     we take 1355) and only convergence and the residual are checked.
+//   - iteration counts for none and Jacobi within one of SciPy's where
+//     SciPy's count and the textbook implementation's are equal: two
+//     implementations whose dot products are summed in different orders
+//     (../shared/reference/README.md) landing on the same count show that
+//     rounding does not decide it there, so the count is a property of the
+//     matrix, the method and the stopping rule. One iteration is left for
+//     where the rule is read: our CG tests the updated residual and confirms
+//     it with a true residual, and on 6 of the 24 such rows of this
+//     collection it stops one iteration before or after SciPy (both signs
+//     occur, so a count that is one too many or one too few fails
+//     somewhere). Where the two reference counts differ by at most 0.5%
+//     (at least 2 iterations), within 5% (at least 3); where they differ by
+//     more, rounding decides the count (plat362 without a preconditioner:
+//     1457 and 1444, we take 1355) and only convergence and the residual
+//     are checked.
+//   - the residual is recomputed by a plain loop over the CSR arrays, not by
+//     the worker-pool product the solver itself uses.
 func TestCGSharedSPD(t *testing.T) {
 	dir := shared.Matrices(t)
 	refs := cgReadReference(t)
@@ -203,7 +213,7 @@ func TestCGSharedSPD(t *testing.T) {
 					t.Errorf("%s: %v (status %v)", kind, err, res.Status)
 					continue
 				}
-				rel := cgTrueRel(a, b, x)
+				rel := cgPlainRel(a, b, x)
 				switch res.Status {
 				case krylov.Converged:
 					// The stopping test itself is the bound; the recomputation
@@ -224,6 +234,9 @@ func TestCGSharedSPD(t *testing.T) {
 				}
 				agree := math.Abs(float64(ref.iterations-ref.altIterations)) <= math.Max(2, 0.005*float64(ref.iterations))
 				slack := math.Max(3, 0.05*float64(ref.iterations))
+				if ref.iterations == ref.altIterations {
+					slack = 1
+				}
 				if agree && math.Abs(float64(res.Iterations-ref.iterations)) > slack {
 					t.Errorf("%s: %d iterations, SciPy %d (alt %d): off by more than %.0f", kind, res.Iterations, ref.iterations, ref.altIterations, slack)
 				}
@@ -233,17 +246,49 @@ func TestCGSharedSPD(t *testing.T) {
 	t.Logf("CG on the shared SPD matrices, b = A·1, rtol 1e-8:\n%s", report.String())
 }
 
+// cgPlainRel returns ‖b − A·x‖/‖b‖ computed by the plain sequential loop
+// over a's CSR arrays (the definition of the product), independent of the
+// sparse package's kernels.
+func cgPlainRel(a *sparse.CSR, b, x []float64) float64 {
+	var rr, bb float64
+	for i := range a.Rows {
+		s := b[i]
+		for k := a.RowPtr[i]; k < a.RowPtr[i+1]; k++ {
+			s -= a.Val[k] * x[a.ColIdx[k]]
+		}
+		rr += s * s
+		bb += b[i] * b[i]
+	}
+	return math.Sqrt(rr / bb)
+}
+
 // TestCGAgainstCholesky compares CG's solution on small shared SPD matrices
-// with gonum's dense Cholesky solution x* (mat.Cholesky.SolveVecTo). The
-// residual bound on the forward error,
+// with gonum's dense Cholesky solution x_c (mat.Cholesky.SolveVecTo), using
+// nothing the solver reports: the residual is recomputed here in dense
+// arithmetic, and the tolerance comes from what CG promises, not from what
+// it achieved.
 //
-//	‖x − x*‖/‖x*‖ ≤ κ₂(A)·‖b − A·x‖/‖b‖
+// Converged promises ‖b − A·x‖ ≤ rtol·‖b‖. The residual computed in
+// floating point differs from the exact one by at most γ_{n+1}·(|A|·|x| +
+// |b|) componentwise (Higham, Accuracy and Stability of Numerical
+// Algorithms, 2nd ed., §3.5 and §12.1), so the recomputed relative residual
+// may exceed rtol by that much over ‖b‖. The forward error then obeys
 //
-// (Golub and Van Loan, Matrix Computations, 4th ed., §2.6.2 and §3.5.1,
-// from memory), with κ₂ from gonum's dense eigenvalues (mat.EigenSym), and
-// Cholesky's own forward error of about κ₂·n·ε (Golub and Van Loan §4.2.6,
-// from memory), give the tolerance κ₂·(relres + n·ε), with a factor 2 of
-// slack for the rounding in forming b and the norms.
+//	‖x − x*‖ = ‖A⁻¹·(b − A·x)‖ ≤ rtol·‖b‖/λ_min + ‖|A⁻¹|·γ_{n+1}(|A|·|x| + |b|)‖
+//
+// (Golub and Van Loan, Matrix Computations, 4th ed., §2.6.2: the residual
+// bound with ‖A⁻¹‖₂ = 1/λ_min from gonum's mat.EigenSym; the componentwise
+// term is the Oettli–Prager form of the rounding, Higham §7.2), and the
+// reference's own error ‖x_c − x*‖ is bounded the same way from its
+// recomputed residual r_c, as ‖A⁻¹·r_c‖ (solved with the same factor;
+// backward stable, Higham §10.1) plus its rounding term. The tolerance is
+// the sum of the two, with 1% for the rounding in these estimates. It is
+// the tightest bound we can state without knowing how the residual lies on
+// the eigenvectors; on these matrices it is 10 to 10⁴ times the error (the
+// log shows the ratio), where the old bound from the solver's own relative
+// residual and κ was 10⁴ to 10⁸ times. The sharp check is the recomputed
+// residual against the promise; the forward error catches a solution of
+// another system (a product that drops entries, a matrix read wrongly).
 func TestCGAgainstCholesky(t *testing.T) {
 	dir := shared.Matrices(t)
 	for _, name := range []string{"bcsstk01.mtx", "bcsstk02.mtx", "nos4.mtx", "bcsstk03.mtx", "bcsstk04.mtx", "bcsstk05.mtx", "bcsstm05.mtx"} {
@@ -268,14 +313,55 @@ func TestCGAgainstCholesky(t *testing.T) {
 			if !chol.Factorize(dense) {
 				t.Fatal("dense Cholesky failed on an SPD matrix")
 			}
+			var inv mat.SymDense
+			if err := chol.InverseTo(&inv); err != nil {
+				t.Fatal(err)
+			}
+			absInv := mat.NewDense(n, n, nil)
+			absA := mat.NewDense(n, n, nil)
+			for i := range n {
+				for j := range n {
+					absInv.Set(i, j, math.Abs(inv.At(i, j)))
+					absA.Set(i, j, math.Abs(dense.At(i, j)))
+				}
+			}
 			b := make([]float64, n)
 			for i := range b {
 				b[i] = math.Sin(float64(i + 1)) // fixed, smooth-free data
 			}
-			var xs mat.VecDense
-			if err := chol.SolveVecTo(&xs, mat.NewVecDense(n, b)); err != nil {
+			bv := mat.NewVecDense(n, b)
+			gamma := float64(n+1) * 0x1p-53 / (1 - float64(n+1)*0x1p-53)
+			// errorTerms returns the dense residual b − A·y, the componentwise
+			// rounding bound of computing it, and ‖|A⁻¹|·that bound‖.
+			errorTerms := func(y []float64) (r *mat.VecDense, round *mat.VecDense, roundErr float64) {
+				yv := mat.NewVecDense(n, y)
+				r = mat.NewVecDense(n, nil)
+				r.MulVec(dense, yv)
+				r.SubVec(bv, r)
+				ay := mat.NewVecDense(n, nil)
+				absY := mat.NewVecDense(n, nil)
+				for i := range n {
+					absY.SetVec(i, math.Abs(y[i]))
+				}
+				ay.MulVec(absA, absY)
+				round = mat.NewVecDense(n, nil)
+				for i := range n {
+					round.SetVec(i, gamma*(ay.AtVec(i)+math.Abs(b[i])))
+				}
+				var g mat.VecDense
+				g.MulVec(absInv, round)
+				return r, round, g.Norm(2)
+			}
+			var xc mat.VecDense
+			if err := chol.SolveVecTo(&xc, bv); err != nil {
 				t.Fatal(err)
 			}
+			rc, _, rcRound := errorTerms(xc.RawVector().Data)
+			var ec mat.VecDense
+			if err := chol.SolveVecTo(&ec, rc); err != nil {
+				t.Fatal(err)
+			}
+			refErr := ec.Norm(2) + rcRound
 			for _, rtol := range []float64{1e-8, 1e-11} {
 				x := make([]float64, n)
 				res, err := krylov.CG(context.Background(), a, b, x, nil, krylov.Settings{RelTol: rtol})
@@ -292,12 +378,17 @@ func TestCGAgainstCholesky(t *testing.T) {
 					}
 					continue
 				}
+				r, round, roundErr := errorTerms(x)
+				if rel, slack := r.Norm(2)/bv.Norm(2), round.Norm(2)/bv.Norm(2); rel > rtol+slack {
+					t.Errorf("rtol %g: converged, but the recomputed ‖b − A·x‖/‖b‖ = %.3g > rtol + rounding %.2g", rtol, rel, slack)
+				}
 				diff := mat.NewVecDense(n, nil)
-				diff.SubVec(mat.NewVecDense(n, x), &xs)
-				fwd := diff.Norm(2) / xs.Norm(2)
-				bound := 2 * kappa * (res.RelResidual + float64(n)*0x1p-52)
+				diff.SubVec(mat.NewVecDense(n, x), &xc)
+				fwd := diff.Norm(2)
+				bound := 1.01 * (rtol*bv.Norm(2)/vals[0] + roundErr + refErr)
+				t.Logf("rtol %g: ‖x − x_c‖ = %.3g, bound %.3g (ratio %.2g; reference's own error ≤ %.2g)", rtol, fwd, bound, bound/fwd, refErr)
 				if fwd > bound {
-					t.Errorf("rtol %g: ‖x − x*‖/‖x*‖ = %.3g > κ·(relres + nε)·2 = %.3g (κ = %.3g)", rtol, fwd, bound, kappa)
+					t.Errorf("rtol %g: ‖x − x_c‖ = %.3g > rtol·‖b‖/λ_min + rounding + ‖x_c − x*‖ = %.3g (κ = %.3g)", rtol, fwd, bound, kappa)
 				}
 				// The Lanczos estimates lie inside the spectrum (Ritz values
 				// of a symmetric matrix: Golub and Van Loan §10.1.4), up to

@@ -108,7 +108,11 @@ func rhsOnes(a *sparse.CSR) []float64 {
 	return b
 }
 
-func solve(t *testing.T, a *sparse.CSR, b []float64, kind precond.Kind) (krylov.Result, *precond.Choice) {
+// solve runs PCG with the preconditioner kind and returns the result, the
+// choice, and the true relative residual ‖b − A·x‖/‖b‖ of the returned x,
+// recomputed by a plain loop over the CSR arrays (the definition of the
+// product; nothing the solver reports, and none of the sparse kernels).
+func solve(t *testing.T, a *sparse.CSR, b []float64, kind precond.Kind) (krylov.Result, *precond.Choice, float64) {
 	t.Helper()
 	c, err := precond.New(a, kind)
 	if err != nil {
@@ -119,7 +123,16 @@ func solve(t *testing.T, a *sparse.CSR, b []float64, kind precond.Kind) (krylov.
 	if err != nil {
 		t.Fatalf("%s: CG: %v", kind, err)
 	}
-	return res, c
+	var rr, bb float64
+	for i := range a.Rows {
+		s := b[i]
+		for k := a.RowPtr[i]; k < a.RowPtr[i+1]; k++ {
+			s -= a.Val[k] * x[a.ColIdx[k]]
+		}
+		rr += s * s
+		bb += b[i] * b[i]
+	}
+	return res, c, math.Sqrt(rr / bb)
 }
 
 // slow lists the shared matrices whose two solves take over 0.1 s (over a
@@ -142,13 +155,18 @@ func TestIC0FewerIterationsThanJacobi(t *testing.T) {
 			if !ok {
 				t.Fatalf("no SciPy Jacobi count for %s", e.File)
 			}
-			ic, c := solve(t, a, rhsOnes(a), precond.KindIC0)
-			jac, _ := solve(t, a, rhsOnes(a), precond.KindJacobi)
-			// IC(0)-PCG must converge with the true relative residual
-			// within the tolerance (krylov checks the true residual before
-			// it reports convergence).
-			if ic.Status != krylov.Converged || ic.RelResidual > 1e-8 {
-				t.Fatalf("ic0 (shift %g): %v after %d iterations, true relative residual %.3g", c.Shift, ic.Status, ic.Iterations, ic.RelResidual)
+			ic, c, icRel := solve(t, a, rhsOnes(a), precond.KindIC0)
+			jac, _, jacRel := solve(t, a, rhsOnes(a), precond.KindJacobi)
+			// IC(0)-PCG must converge with the true relative residual,
+			// recomputed here, within the tolerance (the stopping test of
+			// krylov.Settings is on the true residual); 1e-6 relative
+			// allows for the order of this sum against the solver's. The
+			// same for Jacobi where it says it converged.
+			if ic.Status != krylov.Converged || icRel > 1e-8*(1+1e-6) {
+				t.Fatalf("ic0 (shift %g): %v after %d iterations, true relative residual %.3g", c.Shift, ic.Status, ic.Iterations, icRel)
+			}
+			if jac.Status == krylov.Converged && jacRel > 1e-8*(1+1e-6) {
+				t.Errorf("jacobi: converged after %d iterations with true relative residual %.3g", jac.Iterations, jacRel)
 			}
 			// Where SciPy's Jacobi-PCG converged, IC(0) takes fewer
 			// iterations than its count (reference: cg-scipy.tsv) and than

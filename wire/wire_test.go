@@ -190,12 +190,18 @@ func TestChunksAndAssembler(t *testing.T) {
 	// The last chunk flagged early, after the first one: entries missing.
 	early := []chunk{chunks[0]}
 	early[0].last, early[0].sum = true, chunks[len(chunks)-1].sum
+	// The same, with a checksum that matches what was sent: a sender that
+	// lost the tail before checksumming (issue 17's first survivor). Only
+	// the announced length can tell, so the receiver must count.
+	consistent := []chunk{chunks[0]}
+	consistent[0].last, consistent[0].sum = true, VectorSum(x[:len(chunks[0].data)/8])
 	tampered := append([]chunk(nil), chunks...)
 	data := append([]byte(nil), tampered[2].data...)
 	data[5] ^= 1
 	tampered[2].data = data
 	for name, cs := range map[string][]chunk{
 		"truncated":  early,
+		"short":      consistent,
 		"reordered":  append([]chunk{chunks[1], chunks[0]}, chunks[2:]...),
 		"dropped":    append(append([]chunk(nil), chunks[:3]...), chunks[4:]...),
 		"unfinished": chunks[:len(chunks)-1],
