@@ -5,11 +5,14 @@ import (
 	"os/exec"
 	"path/filepath"
 	"reflect"
+	"strconv"
 	"strings"
 	"testing"
 
 	"github.com/residua/residua/internal/shared"
 	"github.com/residua/residua/solve"
+	"github.com/residua/residua/sparse/stencil"
+	"github.com/residua/residua/wire"
 )
 
 // The system python3, named by path: another python3 earlier on PATH (a
@@ -74,4 +77,57 @@ func TestPythonPackage(t *testing.T) {
 		t.Errorf("Python tests skipped:\n%s", out)
 	}
 	t.Logf("python tests:\n%s", out)
+}
+
+// TestCppExample runs the C++ example (clients/cpp/heat_plate, built by
+// its Makefile) against the real binary. Building it with gRPC takes a
+// minute or more, too long for `go test ./...`, so .ci/run builds it and
+// runs this test with RESIDUA_HEAT_PLATE set to the program's path;
+// without that variable the test skips, saying how to run it.
+func TestCppExample(t *testing.T) {
+	prog := os.Getenv("RESIDUA_HEAT_PLATE")
+	if prog == "" {
+		t.Skip("RESIDUA_HEAT_PLATE is not set: make -C clients/cpp BUILD=/tmp/hp, then " +
+			"RESIDUA_HEAT_PLATE=/tmp/hp/heat_plate go test -run TestCppExample ./cmd/residua (.ci/run does)")
+	}
+	srv := startServer(t, buildBinary(t))
+	const n = 64
+	cmd := exec.Command(prog, srv.grpc, strconv.Itoa(n))
+	out, err := cmd.CombinedOutput()
+	if err != nil {
+		t.Fatalf("heat_plate: %v\n%s\nserver log:\n%s", err, out, srv.log())
+	}
+	text := string(out)
+	// The example's matrix is the 5-point Laplacian that stencil.Poisson2D
+	// builds (4 on the diagonal, −1 per neighbour, row-major grid order):
+	// the same content hash shows that its CSR_RAW encoding is right.
+	if id := wire.MatrixID(stencil.Poisson2D(n)); !strings.Contains(text, "as matrix "+id+" (symmetric)") {
+		t.Errorf("heat_plate did not upload the matrix %s:\n%s", id, text)
+	}
+	for _, want := range []string{"job finished: converged",
+		"load case 0: residual check passed", "load case 1: residual check passed"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("heat_plate printed no %q:\n%s", want, text)
+		}
+	}
+	// Progress was printed for both load cases, iterations increasing
+	// within each (the Solve stream contract).
+	last := map[string]int{}
+	for _, line := range strings.Split(text, "\n") {
+		f := strings.Fields(line)
+		if len(f) >= 4 && f[0] == "load" && f[1] == "case" && f[3] == "iteration" {
+			it, err := strconv.Atoi(f[4])
+			if err != nil {
+				t.Fatalf("progress line %q", line)
+			}
+			if prev, ok := last[f[2]]; ok && it <= prev {
+				t.Errorf("load case %s: iteration %d after %d", f[2], it, prev)
+			}
+			last[f[2]] = it
+		}
+	}
+	if len(last) != 2 {
+		t.Errorf("progress for %d load cases, want 2:\n%s", len(last), text)
+	}
+	t.Logf("heat_plate:\n%s", text)
 }
