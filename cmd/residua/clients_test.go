@@ -61,12 +61,22 @@ func TestPythonPackage(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	srv := startServer(t, buildBinary(t))
+	bin := buildBinary(t)
+	srv := startServer(t, bin)
+	// A second server that wants a bearer token, for the client's token
+	// and UNAUTHENTICATED checks.
+	const token = "python-client-test-token"
+	tokenFile := filepath.Join(t.TempDir(), "token")
+	if err := os.WriteFile(tokenFile, []byte(token+"\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	guarded := startServer(t, bin, "--token-file", tokenFile)
 
 	cmd := exec.Command(systemPython, "-m", "unittest", "discover", "-v", "-s", filepath.Join(pkg, "tests"))
 	cmd.Dir = pkg
 	cmd.Env = append(os.Environ(), "PYTHONPATH="+pkg, "PYTHONDONTWRITEBYTECODE=1",
-		"RESIDUA_ADDRESS="+srv.grpc, "RESIDUA_SHARED="+dir, "RESIDUA_SUMMARY_KEYS="+strings.Join(summaryJSONKeys(), ","))
+		"RESIDUA_ADDRESS="+srv.grpc, "RESIDUA_SHARED="+dir,
+		"RESIDUA_TOKEN_ADDRESS="+guarded.grpc, "RESIDUA_TOKEN="+token, "RESIDUA_SUMMARY_KEYS="+strings.Join(summaryJSONKeys(), ","))
 	out, err := cmd.CombinedOutput()
 	if err != nil {
 		t.Fatalf("the Python client's tests failed: %v\n%s\nserver log:\n%s", err, out, srv.log())

@@ -322,6 +322,35 @@ class ClientTest(unittest.TestCase):
         sol = self.client.solve(a, b, precond="none", max_iter=3, check=False)
         self.assertEqual((sol.outcome, sol.summary.status, sol.summary.converged), ("iteration-limit",) * 2 + (False,))
 
+    def test_breakdown_and_setup_failed(self) -> None:
+        # diag(1, −1) is symmetric but indefinite: with b = (1, 1) the first
+        # direction has pᵀAp = 0, a breakdown of CG (Saad §6.7: CG needs
+        # pᵀAp > 0). A zero diagonal entry leaves Jacobi undefined: the
+        # set-up fails before any iteration.
+        with self.assertRaises(residua.SolveError) as cm:
+            self.client.solve(sp.diags([1.0, -1.0]).tocsr(), np.ones(2), precond="none")
+        self.assertEqual((cm.exception.outcome, cm.exception.code), ("breakdown", "FAILED_PRECONDITION"))
+        self.assertEqual(cm.exception.summaries[0].status, "breakdown")
+        zero = sp.csr_matrix(np.array([[0.0, 1.0], [1.0, 2.0]]))
+        with self.assertRaises(residua.SolveError) as cm:
+            self.client.solve(zero, np.ones(2), precond="jacobi")
+        self.assertEqual(cm.exception.outcome, "setup-failed")
+        self.assertEqual(cm.exception.summaries[0].iterations, 0)
+
+    def test_token(self) -> None:
+        address, token = os.environ.get("RESIDUA_TOKEN_ADDRESS", ""), os.environ.get("RESIDUA_TOKEN", "")
+        if not address:
+            self.skipTest("RESIDUA_TOKEN_ADDRESS is not set")
+        with residua.Client(address) as c:
+            # The standard health check needs no token (the .proto).
+            self.assertEqual(c.health(), "SERVING")
+            with self.assertRaises(residua.AuthError) as cm:
+                c.matrices()
+            self.assertEqual((cm.exception.outcome, cm.exception.code), ("failed", "UNAUTHENTICATED"))
+        with residua.Client(address, token=token) as c:
+            _, a = shared_matrix("bcsstk01.mtx")
+            self.assertTrue(c.solve(a, np.ones(a.shape[0])).converged)
+
     def test_least_squares(self) -> None:
         # well1033: 1033×320, full column rank (MANIFEST.tsv).
         _, a = shared_matrix("well1033.mtx")
