@@ -15,7 +15,7 @@ import datetime
 import hashlib
 import os
 import time
-from typing import Any, Callable, Iterator, Optional, Sequence, Union
+from typing import Any, Callable, Iterator, NamedTuple, Optional, Union
 
 import grpc
 import numpy as np
@@ -243,13 +243,13 @@ class Client:
         job ran to. A refused request raises RequestError (InputError,
         NotFoundError, LimitError).
         """
-        req, shape, uploaded = self._request(matrix_or_id, b, x0, method=method, precond=precond, rtol=rtol,
+        req, shape, stored = self._request(matrix_or_id, b, x0, method=method, precond=precond, rtol=rtol,
                                              atol=atol, max_iter=max_iter, time_limit=time_limit,
                                              least_squares=least_squares, btol=btol, damp=damp,
                                              progress_every=progress_every, progress_interval=progress_interval,
                                              label=label)
         call = self._stub.Solve(req, metadata=self._metadata)
-        return self._follow(call, progress, shape=shape, check=check, uploaded=uploaded)
+        return self._follow(call, progress, shape=shape, check=check, stored=stored)
 
     def submit(self, matrix_or_id: MatrixLike, b: Any, x0: Any = None, *, method: str = "auto",
                precond: str = "auto", rtol: float = 0.0, atol: float = 0.0, max_iter: int = 0,
@@ -283,7 +283,7 @@ class Client:
         detached job keeps them) are downloaded into x: a vector for a job
         of one right-hand side, n×k for k. check is as for solve."""
         call = self._stub.Watch(pb.WatchRequest(job_id=job_id), metadata=self._metadata)
-        sol = self._follow(call, progress, shape=None, check=False, uploaded=None)
+        sol = self._follow(call, progress, shape=None, check=False, stored=None)
         if fetch and self.job(job_id).solution_kept:
             cols = []
             for s in sol.summaries:
@@ -359,7 +359,7 @@ class Client:
                  atol: float, max_iter: int, time_limit: Union[None, float, datetime.timedelta],
                  least_squares: bool, btol: float, damp: float, progress_every: int,
                  progress_interval: Optional[float], label: str
-                 ) -> tuple[pb.SolveRequest, tuple[int, ...], Optional[bool]]:
+                 ) -> tuple[pb.SolveRequest, tuple[int, ...], "_Uploaded"]:
         m, uploaded = self._resolve(matrix_or_id)
         lsq = least_squares or method in _LEAST_SQUARES_METHODS
         bs, single = _columns("b", b, m.rows)
@@ -386,10 +386,10 @@ class Client:
                 else:
                     dst.append(pb.VectorRef(vector_id=self._upload_vector(v, "%s %d" % (what, i))))
         shape = (x_len,) if single else (x_len, len(bs))
-        return req, shape, uploaded
+        return req, shape, _Uploaded(uploaded, m.upload_seconds if uploaded else None)
 
     def _follow(self, call: Any, progress: Optional[ProgressCallback], *, shape: Optional[tuple[int, ...]],
-                check: bool, uploaded: Optional[bool]) -> Solution:
+                check: bool, stored: Optional["_Uploaded"]) -> Solution:
         """Reads a job's event stream to its end (the .proto's Solve
         contract) and returns what it brought."""
         job_id, accepted, finished = "", None, None
@@ -424,8 +424,10 @@ class Client:
                 raise errors.from_rpc(rpc_error) from None
             raise errors.ResiduaError("residua: job %s: the stream ended before the job finished" % job_id)
         single = shape is not None and len(shape) == 1
+        up = stored or _Uploaded(None, None)
         summaries = [Summary.from_pb(r, rhs="b" if single else "b[:, %d]" % r.rhs, server=self.address,
-                                     job_id=job_id, matrix_uploaded=uploaded) for r in results]
+                                     job_id=job_id, matrix_uploaded=up.uploaded, upload_seconds=up.seconds)
+                     for r in results]
         x = None
         if shape is not None:
             k = 1 if single else shape[1]
@@ -446,6 +448,15 @@ class Client:
             code = rpc_error.code().name if rpc_error is not None else ""
             raise _solve_error(sol, code)
         return sol
+
+
+class _Uploaded(NamedTuple):
+    """Whether a solve uploaded its matrix (None when it was given by id)
+    and the server's receive and parse time if it did: the summary's
+    matrix_uploaded and upload_seconds."""
+
+    uploaded: Optional[bool]
+    seconds: Optional[float]
 
 
 class _Assembler:

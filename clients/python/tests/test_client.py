@@ -120,6 +120,21 @@ class ClientTest(unittest.TestCase):
             # The default stopping test, rtol 1e-8, rechecked here.
             self.assertLessEqual(rel, 1.01e-8, "column %d" % j)
 
+    def test_solve_uploads_once(self) -> None:
+        # A matrix no other test uses (diagonally dominant, so SPD by
+        # Gershgorin's theorem: Golub & Van Loan §7.2.1): the first solve
+        # uploads it, the second finds it by its id.
+        r = sp.random(300, 300, density=0.01, random_state=11)
+        off = r + r.T
+        a = sp.csr_matrix(off + sp.diags(1.0 + np.asarray(abs(off).sum(axis=1)).ravel()))
+        first = self.client.solve(a, np.ones(300)).summary
+        self.assertEqual(first.matrix_uploaded, True)
+        self.assertIsNotNone(first.upload_seconds)
+        second = self.client.solve(a, np.ones(300)).summary
+        self.assertEqual((second.matrix_uploaded, second.upload_seconds), (False, None))
+        self.assertEqual(second.matrix_id, first.matrix_id)
+        self.assertIsNone(self.client.solve(first.matrix_id, np.ones(300)).summary.matrix_uploaded)
+
     def test_solve_against_spsolve(self) -> None:
         _, a = shared_matrix("gr_30_30.mtx")
         b = np.random.default_rng(1).standard_normal(a.shape[0])
