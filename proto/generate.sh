@@ -49,13 +49,13 @@ generate() { # $1: output root (the module path is stripped from go_package)
 	protoc \
 		--plugin=protoc-gen-grpc_python="$gen_py_grpc" \
 		--proto_path=proto \
-		--python_out="$1/$py_out" --grpc_python_out="$1/$py_out" \
+		--python_out="$1/$py_out" --pyi_out="$1/$py_out" --grpc_python_out="$1/$py_out" \
 		proto/residua/v1/*.proto
 }
 
 # generated lists the committed generated files, one a line.
 generated() {
-	ls proto/residua/v1/*.pb.go "$py_out"/residua/v1/*_pb2*.py 2>/dev/null
+	ls proto/residua/v1/*.pb.go "$py_out"/residua/v1/*_pb2*.py "$py_out"/residua/v1/*_pb2*.pyi 2>/dev/null
 }
 
 case "${1:-}" in
@@ -67,7 +67,7 @@ case "${1:-}" in
 	trap 'rm -rf "$tmp"' EXIT
 	generate "$tmp"
 	stale=0
-	for f in "$tmp"/proto/residua/v1/*.go "$tmp/$py_out"/residua/v1/*.py; do
+	for f in "$tmp"/proto/residua/v1/*.go "$tmp/$py_out"/residua/v1/*.py "$tmp/$py_out"/residua/v1/*.pyi; do
 		name=${f#"$tmp"/}
 		if [ ! -e "$name" ]; then
 			echo "generate.sh: $name is missing; run proto/generate.sh and commit it" >&2

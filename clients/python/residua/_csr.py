@@ -46,8 +46,7 @@ class RawCSR:
 
     def arrays(self) -> tuple[memoryview, memoryview, memoryview]:
         """The three arrays' bytes, in the order they travel."""
-        return (memoryview(self.indptr).cast("B"), memoryview(self.indices).cast("B"),
-                memoryview(self.data).cast("B"))
+        return (self.indptr.data.cast("B"), self.indices.data.cast("B"), self.data.data.cast("B"))
 
     def chunks(self, size: int) -> Iterator[bytes]:
         """Yields the encoding in pieces of exactly size bytes (the last may

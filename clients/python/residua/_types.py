@@ -18,7 +18,7 @@ import numpy as np
 from .v1 import residua_pb2 as pb
 
 
-def _opt(msg: Any, name: str) -> Optional[float]:
+def _opt(msg: Any, name: str) -> Any:
     """An optional proto3 field: its value, or None when it is absent."""
     return getattr(msg, name) if msg.HasField(name) else None
 

@@ -195,7 +195,7 @@ class Client:
         return Matrix.from_pb(self._call(self._stub.UploadMatrix, requests()))
 
     def _upload_vector(self, x: np.ndarray, name: str) -> str:
-        data = memoryview(np.ascontiguousarray(x, dtype="<f8")).cast("B")
+        data = np.ascontiguousarray(x, dtype="<f8").data.cast("B")
 
         def requests() -> Iterator[pb.UploadVectorRequest]:
             yield pb.UploadVectorRequest(metadata=pb.VectorMetadata(length=x.shape[0], name=name))

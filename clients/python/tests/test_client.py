@@ -127,6 +127,10 @@ class ClientTest(unittest.TestCase):
         r = sp.random(300, 300, density=0.01, random_state=11)
         off = r + r.T
         a = sp.csr_matrix(off + sp.diags(1.0 + np.asarray(abs(off).sum(axis=1)).ravel()))
+        try:
+            self.client.delete(residua.matrix_id(a))  # left by an earlier run on this server
+        except residua.NotFoundError:
+            pass
         first = self.client.solve(a, np.ones(300)).summary
         self.assertEqual(first.matrix_uploaded, True)
         self.assertIsNotNone(first.upload_seconds)
