@@ -1,6 +1,14 @@
 package main
 
 import (
+	"crypto/ecdsa"
+	"crypto/elliptic"
+	"crypto/rand"
+	"crypto/x509"
+	"crypto/x509/pkix"
+	"encoding/pem"
+	"math/big"
+	"net"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -8,6 +16,7 @@ import (
 	"strconv"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/residua/residua/internal/shared"
 	"github.com/residua/residua/solve"
@@ -42,6 +51,38 @@ func summaryJSONKeys() []string {
 	return keys
 }
 
+// writeLoopbackCert writes a self-signed certificate for 127.0.0.1 and
+// localhost, and its key, as PEM files in dir.
+func writeLoopbackCert(t *testing.T, dir string) (certFile, keyFile string) {
+	t.Helper()
+	key, err := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tmpl := &x509.Certificate{
+		SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: "residua client test"},
+		DNSNames: []string{"localhost"}, IPAddresses: []net.IP{net.IPv4(127, 0, 0, 1)},
+		NotBefore: time.Now().Add(-time.Hour), NotAfter: time.Now().Add(time.Hour),
+		KeyUsage:    x509.KeyUsageDigitalSignature | x509.KeyUsageCertSign,
+		ExtKeyUsage: []x509.ExtKeyUsage{x509.ExtKeyUsageServerAuth}, IsCA: true, BasicConstraintsValid: true,
+	}
+	der, err := x509.CreateCertificate(rand.Reader, tmpl, tmpl, &key.PublicKey, key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	kder, err := x509.MarshalPKCS8PrivateKey(key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	certFile, keyFile = filepath.Join(dir, "cert.pem"), filepath.Join(dir, "key.pem")
+	for f, b := range map[string]*pem.Block{certFile: {Type: "CERTIFICATE", Bytes: der}, keyFile: {Type: "PRIVATE KEY", Bytes: kder}} {
+		if err := os.WriteFile(f, pem.EncodeToMemory(b), 0o600); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return certFile, keyFile
+}
+
 // TestPythonPackage runs the Python client's unittest suite
 // (clients/python/tests) against the real binary serving on a loopback
 // port, with Debian's python3-grpcio, python3-protobuf, python3-numpy and
@@ -63,20 +104,22 @@ func TestPythonPackage(t *testing.T) {
 	}
 	bin := buildBinary(t)
 	srv := startServer(t, bin)
-	// A second server that wants a bearer token, for the client's token
-	// and UNAUTHENTICATED checks.
+	// A second server on TLS that wants a bearer token, for the client's
+	// tls and token options and the UNAUTHENTICATED and UNAVAILABLE checks.
 	const token = "python-client-test-token"
-	tokenFile := filepath.Join(t.TempDir(), "token")
+	keys := t.TempDir()
+	tokenFile := filepath.Join(keys, "token")
 	if err := os.WriteFile(tokenFile, []byte(token+"\n"), 0o600); err != nil {
 		t.Fatal(err)
 	}
-	guarded := startServer(t, bin, "--token-file", tokenFile)
+	cert, key := writeLoopbackCert(t, keys)
+	guarded := startServer(t, bin, "--token-file", tokenFile, "--tls-cert", cert, "--tls-key", key)
 
 	cmd := exec.Command(systemPython, "-m", "unittest", "discover", "-v", "-s", filepath.Join(pkg, "tests"))
 	cmd.Dir = pkg
 	cmd.Env = append(os.Environ(), "PYTHONPATH="+pkg, "PYTHONDONTWRITEBYTECODE=1",
 		"RESIDUA_ADDRESS="+srv.grpc, "RESIDUA_SHARED="+dir,
-		"RESIDUA_TOKEN_ADDRESS="+guarded.grpc, "RESIDUA_TOKEN="+token, "RESIDUA_SUMMARY_KEYS="+strings.Join(summaryJSONKeys(), ","))
+		"RESIDUA_TLS_ADDRESS="+guarded.grpc, "RESIDUA_TLS_CA="+cert, "RESIDUA_TOKEN="+token, "RESIDUA_SUMMARY_KEYS="+strings.Join(summaryJSONKeys(), ","))
 	out, err := cmd.CombinedOutput()
 	if err != nil {
 		t.Fatalf("the Python client's tests failed: %v\n%s\nserver log:\n%s", err, out, srv.log())

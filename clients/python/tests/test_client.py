@@ -356,19 +356,23 @@ class ClientTest(unittest.TestCase):
         self.assertEqual(cm.exception.outcome, "setup-failed")
         self.assertEqual(cm.exception.summaries[0].iterations, 0)
 
-    def test_token(self) -> None:
-        address, token = os.environ.get("RESIDUA_TOKEN_ADDRESS", ""), os.environ.get("RESIDUA_TOKEN", "")
+    def test_tls_and_token(self) -> None:
+        address, ca, token = (os.environ.get(k, "") for k in ("RESIDUA_TLS_ADDRESS", "RESIDUA_TLS_CA", "RESIDUA_TOKEN"))
         if not address:
-            self.skipTest("RESIDUA_TOKEN_ADDRESS is not set")
-        with residua.Client(address) as c:
+            self.skipTest("RESIDUA_TLS_ADDRESS is not set")
+        with residua.Client(address, tls=ca) as c:
             # The standard health check needs no token (the .proto).
             self.assertEqual(c.health(), "SERVING")
             with self.assertRaises(residua.AuthError) as cm:
                 c.matrices()
             self.assertEqual((cm.exception.outcome, cm.exception.code), ("failed", "UNAUTHENTICATED"))
-        with residua.Client(address, token=token) as c:
+        with residua.Client(address, token=token, tls=ca) as c:
             _, a = shared_matrix("bcsstk01.mtx")
             self.assertTrue(c.solve(a, np.ones(a.shape[0])).converged)
+        # Plain text to a TLS server: no connection.
+        with residua.Client(address, token=token) as c:
+            with self.assertRaises(residua.UnavailableError):
+                c.matrices()
 
     def test_least_squares(self) -> None:
         # well1033: 1033×320, full column rank (MANIFEST.tsv).
