@@ -11,6 +11,7 @@ whose order, length and SHA-256 are checked before x is returned.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime
 import hashlib
 import os
@@ -281,22 +282,23 @@ class Client:
         live, calling progress as solve does (interrupting stops watching
         only, the job goes on). With fetch, the solutions the job kept (a
         detached job keeps them) are downloaded into x: a vector for a job
-        of one right-hand side, n×k for k. check is as for solve."""
+        of one right-hand side, n×k for k, NaN where a solution is missing
+        (a right-hand side not reached, a set-up that failed). check is as
+        for solve."""
         call = self._stub.Watch(pb.WatchRequest(job_id=job_id), metadata=self._metadata)
         sol = self._follow(call, progress, shape=None, check=False, stored=None)
-        if fetch and self.job(job_id).solution_kept:
-            cols = []
+        job = self.job(job_id) if fetch else None
+        if job is not None and job.solution_kept:
+            # x has as many entries as A has columns (for a system, rows).
+            x = np.full((job.cols, job.rhs_count), np.nan)
             for s in sol.summaries:
                 if s.status == "setup-failed":
                     continue
-                cols.append((s.rhs_index, self.download(job_id, s.rhs_index)))
-            if cols:
-                n = cols[0][1].shape[0]
-                k = max(i for i, _ in cols) + 1
-                x = np.full((n, k), np.nan)
-                for i, v in cols:
-                    x[:, i] = v
-                sol = _replace_x(sol, x[:, 0] if k == 1 else x)
+                try:
+                    x[:, s.rhs_index] = self.download(job_id, s.rhs_index)
+                except errors.NotFoundError:
+                    pass  # evicted under memory pressure: left NaN
+            sol = dataclasses.replace(sol, x=x[:, 0] if job.rhs_count == 1 else x)
         if check and not sol.converged:
             raise _solve_error(sol, "")
         return sol
@@ -533,12 +535,6 @@ def _duration(v: Union[float, datetime.timedelta]) -> duration_pb2.Duration:
             raise ValueError("residua: a negative duration %r" % v)
         d.FromNanoseconds(int(round(v * 1e9)))
     return d
-
-
-def _replace_x(sol: Solution, x: np.ndarray) -> Solution:
-    import dataclasses
-
-    return dataclasses.replace(sol, x=x)
 
 
 def _solve_error(sol: Solution, code: str) -> errors.SolveError:

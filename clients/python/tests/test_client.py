@@ -246,7 +246,8 @@ class ClientTest(unittest.TestCase):
 
     def test_detached_cancel_and_watch(self) -> None:
         a = laplacian(400)
-        job_id = self.client.submit(a, np.ones(a.shape[0]), precond="none", rtol=1e-14, label="python detached")
+        n = a.shape[0]
+        job_id = self.client.submit(a, np.ones((n, 2)), precond="none", rtol=1e-14, label="python detached")
         watched: list[residua.Progress] = []
         result: dict[str, BaseException] = {}
 
@@ -267,6 +268,12 @@ class ClientTest(unittest.TestCase):
         self.assertFalse(t.is_alive())
         self.assertIsInstance(result.get("err"), residua.SolveError)
         self.assertEqual(result["err"].outcome, "cancelled")
+        # The kept solution of the cancelled column arrived; the second
+        # column was never reached.
+        x = result["err"].x
+        self.assertEqual(x.shape, (n, 2))
+        self.assertTrue(np.isfinite(x[:, 0]).all())
+        self.assertTrue(np.isnan(x[:, 1]).all())
         listed = {j.id: j for j in self.client.jobs()}
         self.assertEqual((listed[job_id].state, listed[job_id].outcome, listed[job_id].detached),
                          ("done", "cancelled", True))
