@@ -348,6 +348,16 @@ class ClientTest(unittest.TestCase):
         sol = self.client.solve(a, b, precond="none", max_iter=3, check=False)
         self.assertEqual((sol.outcome, sol.summary.status, sol.summary.converged), ("iteration-limit",) * 2 + (False,))
 
+    def test_time_limit(self) -> None:
+        # Hundreds of unpreconditioned iterations (see test_cancel_from_progress)
+        # cannot fit 50 ms: the outcome is time-limit, not an error of the call.
+        a = laplacian(400)
+        with self.assertRaises(residua.SolveError) as cm:
+            self.client.solve(a, np.ones(a.shape[0]), precond="none", rtol=1e-14, time_limit=0.05)
+        s = cm.exception.summaries[0]
+        self.assertEqual((cm.exception.outcome, cm.exception.code, s.status), ("time-limit", "", "time-limit"))
+        self.assertEqual(s.time_limit_seconds, 0.05)
+
     def test_breakdown_and_setup_failed(self) -> None:
         # diag(1, −1) is symmetric but indefinite: with b = (1, 1) the first
         # direction has pᵀAp = 0, a breakdown of CG (Saad §6.7: CG needs
