@@ -26,6 +26,7 @@
 #include <vector>
 
 #include <grpcpp/grpcpp.h>
+#include <openssl/evp.h>
 
 #include "residua/v1/residua.grpc.pb.h"
 
@@ -83,6 +84,23 @@ static double norm(const std::vector<double>& v) {
     return std::sqrt(s);
 }
 
+// SHA-256 as lowercase hex, fed piece by piece: the upload declares the sum of
+// what it sends, and the last chunk of each solution carries the sum of the
+// whole vector, which we check (OpenSSL's libcrypto, which gRPC links anyway).
+struct Sha256 {
+    EVP_MD_CTX* ctx = EVP_MD_CTX_new();
+    Sha256() { EVP_DigestInit_ex(ctx, EVP_sha256(), nullptr); }
+    ~Sha256() { EVP_MD_CTX_free(ctx); }
+    void add(const void* p, size_t n) { EVP_DigestUpdate(ctx, p, n); }
+    std::string hex() {
+        unsigned char d[32];
+        EVP_DigestFinal_ex(ctx, d, nullptr);
+        char out[65];
+        for (int i = 0; i < 32; i++) std::snprintf(out + 2 * i, 3, "%02x", d[i]);
+        return std::string(out, 64);
+    }
+};
+
 // Vectors travel as packed little-endian float64 bytes (Conventions).
 static std::string pack(const std::vector<double>& v) {
     return std::string(reinterpret_cast<const char*>(v.data()), v.size() * sizeof(double));
@@ -102,6 +120,11 @@ static std::string upload(pb::Solver::Stub& stub, grpc::ClientContext& ctx, cons
     meta->set_cols(a.cols);
     meta->set_nonzeros(int64_t(a.val.size()));
     meta->set_total_bytes(8 * (a.rows + 1) + 12 * int64_t(a.val.size()));
+    Sha256 sum;  // the server refuses the upload if what arrives differs
+    sum.add(a.rowptr.data(), a.rowptr.size() * sizeof(int64_t));
+    sum.add(a.colidx.data(), a.colidx.size() * sizeof(int32_t));
+    sum.add(a.val.data(), a.val.size() * sizeof(double));
+    meta->set_expected_sha256(sum.hex());
     bool ok = stream->Write(msg);
     const size_t chunk = 1 << 20;
     std::string pending;
@@ -214,6 +237,14 @@ int main(int argc, char** argv) {
             size_t k = c.data().size() / sizeof(double);
             xs.resize(xs.size() + k);
             std::memcpy(xs.data() + c.offset(), c.data().data(), k * sizeof(double));
+            if (c.last()) {
+                Sha256 got;
+                got.add(xs.data(), xs.size() * sizeof(double));
+                if (int64_t(xs.size()) != c.length() || got.hex() != c.sha256()) {
+                    std::fprintf(stderr, "heat_plate: solution %d arrived altered or short\n", c.rhs());
+                    return 1;
+                }
+            }
             break;
         }
         case pb::JobEvent::kFinished:
@@ -230,7 +261,6 @@ int main(int argc, char** argv) {
     }
 
     // Trust, but verify: the true residual ‖b − A·x‖/‖b‖ from our own matrix.
-    // A transfer that lost or altered entries fails this check too.
     bool all_ok = true;
     for (size_t r = 0; r < b.size(); r++) {
         if (x[r].size() != size_t(a.rows)) {
