@@ -45,6 +45,48 @@ func ReadVectorFile(path string, opt *Options) ([]float64, Info, error) {
 	return x, info, err
 }
 
+// ReadColumnsFile reads right-hand sides from a plain or gzip-compressed
+// Matrix Market file: a vector (one column, as ReadVectorFile reads it),
+// or an n×k matrix in array or coordinate format, whose k columns it
+// returns (entries absent from a coordinate file are zero). For a bundle
+// NAME.tar.gz it reads NAME/NAME_b.mtx.
+func ReadColumnsFile(path string, opt *Options) ([][]float64, Info, error) {
+	var cols [][]float64
+	var info Info
+	err := openText(path, "_b", func(r io.Reader, name string) error {
+		a, inf, err := readMatrix(r, name, opt)
+		info = inf
+		if err != nil {
+			return err
+		}
+		k, n := a.Cols, a.Rows
+		if n == 1 && k > 1 { // a row vector is one right-hand side
+			k, n = 1, a.Cols
+		}
+		cols = make([][]float64, k)
+		for j := range cols {
+			cols[j] = make([]float64, n)
+		}
+		for i := 0; i < a.Rows; i++ {
+			for p := a.RowPtr[i]; p < a.RowPtr[i+1]; p++ {
+				if k == 1 && a.Rows == 1 {
+					cols[0][a.ColIdx[p]] = a.Val[p]
+				} else {
+					cols[a.ColIdx[p]][i] = a.Val[p]
+				}
+			}
+		}
+		return nil
+	})
+	return cols, info, err
+}
+
+// WriteColumnsFile writes cols as WriteColumns does, atomically:
+// gzip-compressed if path ends in ".gz".
+func WriteColumnsFile(path string, cols [][]float64) error {
+	return writeFileAtomic(path, func(w io.Writer) error { return WriteColumns(w, cols) })
+}
+
 // ReadBundleRHS reads the right-hand side NAME/NAME_b.mtx of a collection
 // bundle NAME.tar.gz. If the bundle holds none, the error wraps ErrNoRHS.
 func ReadBundleRHS(path string, opt *Options) ([]float64, Info, error) {

@@ -149,31 +149,60 @@ func checkSymmetric(a *sparse.CSR, sym sparse.Symmetry) (int, error) {
 // shortest form that reads back exactly.
 // It returns an error, having written nothing, if x holds NaN or an infinity.
 func WriteVector(w io.Writer, x []float64) error {
-	for i, v := range x {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("matrixio: cannot write x(%d) = %v: %w", i+1, v, ErrNotFinite)
+	return WriteColumns(w, [][]float64{x})
+}
+
+// WriteColumns writes the k columns cols, of n entries each, as one
+// Matrix Market array general file of n×k: column after column, as the
+// array format orders its values (Boisvert, Pozo and Remington, The Matrix
+// Market Exchange Formats, NIST, 1996, §2), one value per line, field
+// "integer" when every value is one and "real" otherwise, each value in
+// the shortest form that reads back exactly. It returns an error, having
+// written nothing, if a value is NaN or an infinity. It panics if the
+// columns differ in length or there are none.
+func WriteColumns(w io.Writer, cols [][]float64) error {
+	if len(cols) == 0 {
+		panic("matrixio: WriteColumns with no columns")
+	}
+	n, integral := len(cols[0]), true
+	for j, c := range cols {
+		if len(c) != n {
+			panic(fmt.Sprintf("matrixio: WriteColumns: column %d has %d entries, column 1 has %d", j+1, len(c), n))
 		}
+		for i, v := range c {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				if len(cols) == 1 {
+					return fmt.Errorf("matrixio: cannot write x(%d) = %v: %w", i+1, v, ErrNotFinite)
+				}
+				return fmt.Errorf("matrixio: cannot write x(%d,%d) = %v: %w", i+1, j+1, v, ErrNotFinite)
+			}
+		}
+		integral = integral && allIntegral(c)
 	}
 	bw, ok := w.(*bufio.Writer)
 	if !ok {
 		bw = bufio.NewWriterSize(w, 1<<16)
 	}
 	buf := make([]byte, 0, 64)
-	if allIntegral(x) {
+	if integral {
 		buf = append(buf, "%%MatrixMarket matrix array integer general\n"...)
 	} else {
 		buf = append(buf, "%%MatrixMarket matrix array real general\n"...)
 	}
-	buf = strconv.AppendInt(buf, int64(len(x)), 10)
-	buf = append(buf, " 1\n"...)
+	buf = strconv.AppendInt(buf, int64(n), 10)
+	buf = append(buf, ' ')
+	buf = strconv.AppendInt(buf, int64(len(cols)), 10)
+	buf = append(buf, '\n')
 	if _, err := bw.Write(buf); err != nil {
 		return err
 	}
-	for _, v := range x {
-		buf = appendValue(buf[:0], v)
-		buf = append(buf, '\n')
-		if _, err := bw.Write(buf); err != nil {
-			return err
+	for _, c := range cols {
+		for _, v := range c {
+			buf = appendValue(buf[:0], v)
+			buf = append(buf, '\n')
+			if _, err := bw.Write(buf); err != nil {
+				return err
+			}
 		}
 	}
 	return bw.Flush()

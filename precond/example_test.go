@@ -29,7 +29,7 @@ func ExampleNew() {
 	fmt.Println(c.Reason)
 	fmt.Println(res.Status, res.Iterations < 40)
 	// Output:
-	// ic0: factorization succeeded with shift 0
+	// ic0: factorization succeeded with shift 0; preferred over Jacobi because the rows are not diagonally dominant (max off-diagonal sum 1 × diagonal > 0.5), where IC(0) took 1.5 to 40 times fewer iterations on the shared SPD matrices, more than paying for its costlier iterations (precond/doc.go, rule 4)
 	// converged true
 }
 

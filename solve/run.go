@@ -4,10 +4,12 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 	"time"
 
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/precond"
+	"github.com/residua/residua/sparse"
 )
 
 // Setup is what a solve needs before it iterates: the validated request,
@@ -38,7 +40,7 @@ type SetupError struct {
 }
 
 func (e *SetupError) Error() string {
-	return fmt.Sprintf("the %s preconditioner: %v", e.Preconditioner, trimPackage(e.Err))
+	return fmt.Sprintf("%v (preconditioner %s)", trimPackage(e.Err), e.Preconditioner)
 }
 func (e *SetupError) Unwrap() error { return e.Err }
 
@@ -169,6 +171,7 @@ func fill(sum *Summary, r *krylov.Result, err error, zeroDiag int) {
 	}
 	if err != nil && r.Status != krylov.Cancelled {
 		sum.Error = trimPackage(err).Error()
+		sum.Advice = Advice(err)
 	}
 	sum.Status = string(OutcomeOf(r.Status))
 	sum.assessTrust(zeroDiag)
@@ -180,7 +183,7 @@ func fill(sum *Summary, r *krylov.Result, err error, zeroDiag int) {
 // SetupFailed) — whatever is known, so that every way a solve
 // ends has a summary.
 func Failure(m Matrix, req Request, err error) Summary {
-	sum := Summary{Matrix: m.Name, Method: string(req.Method), Preconditioner: req.Preconditioner, Error: trimPackage(err).Error()}
+	sum := Summary{Matrix: m.Name, Method: string(req.Method), Preconditioner: req.Preconditioner, Error: trimPackage(err).Error(), Advice: Advice(err)}
 	if m.A != nil {
 		sum.Rows, sum.Cols, sum.Nonzeros = m.A.Rows, m.A.Cols, m.A.NNZ()
 	}
@@ -211,8 +214,35 @@ func Run(ctx context.Context, m Matrix, req Request, b, x0, x []float64, rec kry
 	if err != nil {
 		sum := Failure(m, req, err)
 		sum.SetupSeconds = Seconds(time.Since(start))
+		sum.Unstarted(m.A, b, x0)
 		return sum, nil, err
 	}
 	sum, err := s.Solve(ctx, b, x0, x, rec)
 	return sum, s, err
+}
+
+// Unstarted fills the residual figures of a summary whose solve ended
+// before its method ran (Failure's): x is still the starting guess x0
+// (nil: zero), so its true residual is ‖b − A·x0‖, relative to ‖b‖ (1 for
+// a zero start). Vectors of the wrong length leave the figures unset.
+func (s *Summary) Unstarted(a *sparse.CSR, b, x0 []float64) {
+	if a == nil || len(b) != a.Rows || (x0 != nil && len(x0) != a.Cols) {
+		return
+	}
+	r := make([]float64, a.Rows)
+	if x0 != nil {
+		a.MulVec(r, x0)
+	}
+	rn, bn := 0.0, 0.0
+	for i, bi := range b {
+		d := bi - r[i]
+		rn += d * d
+		bn += bi * bi
+	}
+	rn, bn = math.Sqrt(rn), math.Sqrt(bn)
+	s.TrueResidualNorm, s.RHSNorm = Num(rn), Num(bn)
+	s.RelativeResidual = Num(rn)
+	if bn > 0 {
+		s.RelativeResidual = Num(rn / bn)
+	}
 }

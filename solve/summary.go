@@ -89,11 +89,14 @@ type Summary struct {
 
 	// Outcome. Status is an Outcome word; Converged is Status ==
 	// "converged"; Headline says it all in one sentence.
-	Method     string `json:"method"`
-	Converged  bool   `json:"converged"`
-	Status     string `json:"status"`
-	Headline   string `json:"headline"`
-	Error      string `json:"error,omitempty"` // what broke down or failed, in words
+	Method    string `json:"method"`
+	Converged bool   `json:"converged"`
+	Status    string `json:"status"`
+	Headline  string `json:"headline"`
+	Error     string `json:"error,omitempty"` // what broke down or failed, in words
+	// Advice says what can be done about a failure or a breakdown, in
+	// words (see Advice); absent when there is nothing to add.
+	Advice     string `json:"advice,omitempty"`
 	Iterations int    `json:"iterations"`
 
 	// RelativeResidual is the true ‖b − A·x‖/‖b‖ recomputed from x;

@@ -36,7 +36,7 @@ func Result(s *solve.Summary) *pb.SolveResult {
 		NormalResidualNorm: f64(s.NormalResidualNorm), XNorm: f64(s.XNorm), ANormEstimate: f64(s.NormEstimate),
 		StoppedBy:            s.StoppedBy,
 		ForwardErrorEstimate: f64(s.ForwardErrorEstimate), ForwardErrorNote: s.ForwardErrorNote,
-		Warning: s.Warning, WarningText: s.WarningText,
+		Warning: s.Warning, WarningText: s.WarningText, Advice: s.Advice,
 		Matrix: s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
 	}
 	for _, c := range s.ZeroColumns {
@@ -71,7 +71,7 @@ func Summary(r *pb.SolveResult) solve.Summary {
 		NormalResidualNorm: num(r.NormalResidualNorm), XNorm: num(r.XNorm), NormEstimate: num(r.ANormEstimate),
 		StoppedBy:            r.GetStoppedBy(),
 		ForwardErrorEstimate: num(r.ForwardErrorEstimate), ForwardErrorNote: r.GetForwardErrorNote(),
-		Warning: r.GetWarning(), WarningText: r.GetWarningText(),
+		Warning: r.GetWarning(), WarningText: r.GetWarningText(), Advice: r.GetAdvice(),
 		Matrix: r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
 	}
 	for _, c := range r.GetZeroColumns() {

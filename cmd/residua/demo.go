@@ -78,7 +78,7 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 		name:      fmt.Sprintf("heat-spreader block (jump3d, %d³ grid, contrast %g)", size, contrast),
 		a:         a,
 		symmetric: true, // Jump3D is symmetric by construction (see its doc)
-		b:         stencil.Ones(a),
+		bs:        [][]float64{stencil.Ones(a)},
 		rhs:       "heat sources for a uniform 1 K temperature rise (b = A·1), so the exact solution is all ones",
 		ones:      true,
 	}

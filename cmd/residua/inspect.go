@@ -36,6 +36,8 @@ The symmetry test accepts |a(i,j) − a(j,i)| ≤ tol·max|a| (--sym-tol), so a
 matrix such as AᵀA formed in floating point counts as symmetric.
 
 With --json, prints one JSON object per file (keys listed in the README).
+Row and column indices are 1-based in the text, as in the file, and
+0-based in the JSON (worst_pair's row and col), as in a program's arrays.
 A file that cannot be read is reported on stderr, naming the file and line,
 and the exit status is 2; the other files are still inspected.`
 
@@ -148,12 +150,14 @@ func verdict(r *sparse.Report) string {
 		_, why := solve.Symmetry(*r)
 		return strings.TrimPrefix(why, "is ") + "; CG needs a symmetric positive definite matrix, 'residua lsq' solves the normal equations"
 	case !r.Diagonal.Positive:
-		return fmt.Sprintf("symmetric, but %d diagonal entries are zero and %d negative: not positive definite, CG cannot be used",
-			r.Diagonal.Zero, r.Diagonal.Negative)
+		return fmt.Sprintf("symmetric, but the diagonal has %s: not positive definite, CG cannot be used", diagonalFaults(r.Diagonal))
 	case r.GershgorinLow > 0:
 		return "symmetric with positive diagonal: CG can be tried (the Gershgorin interval proves it positive definite)"
 	}
-	return "symmetric with positive diagonal: CG can be tried"
+	// A positive diagonal is necessary for positive definiteness, not
+	// sufficient (bcsstm10 and blckhole have one and CG breaks down on
+	// both).
+	return "symmetric with positive diagonal: CG can be tried, though a positive diagonal does not prove A positive definite (CG breaks down if it is not)"
 }
 
 func (in *inspection) writeText(w io.Writer) {
@@ -180,9 +184,17 @@ func (in *inspection) writeText(w io.Writer) {
 	default:
 		line("symmetry", "not symmetric")
 	}
-	d := r.Diagonal
-	line("diagonal", "min %s, max %s; %d zero (%d not stored), %d negative", solve.Sci(d.Min), solve.Sci(d.Max), d.Zero, d.Missing, d.Negative)
-	line("dominance", "%.1f%% of rows weakly, %.1f%% strictly diagonally dominant", 100*r.WeaklyDominant, 100*r.StrictlyDominant)
+	if r.Square {
+		// A diagonal and its dominance mean something for square
+		// matrices only.
+		d := r.Diagonal
+		faults := "all positive"
+		if !d.Positive {
+			faults = diagonalFaults(d)
+		}
+		line("diagonal", "min %s, max %s; %s", solve.Sci(d.Min), solve.Sci(d.Max), faults)
+		line("dominance", "%.1f%% of rows weakly, %.1f%% strictly diagonally dominant", 100*r.WeaklyDominant, 100*r.StrictlyDominant)
+	}
 	line("bandwidth", "%d (lower %d, upper %d), profile %d", r.Bandwidth, r.LowerBandwidth, r.UpperBandwidth, r.Profile)
 	line("row lengths", "min %d, max %d, mean %.1f, std %.1f, %d empty", r.RowLength.Min, r.RowLength.Max, r.RowLength.Mean, r.RowLength.Std, r.RowLength.Empty)
 	if r.Square {
@@ -201,4 +213,28 @@ func yesNo(b bool, yes, no string) string {
 		return yes
 	}
 	return no
+}
+
+// diagonalFaults says which diagonal entries are not positive, naming
+// only the kinds that occur: "1000 negative entries", "3 zero (2 not
+// stored) and 1 negative entries".
+func diagonalFaults(d sparse.DiagonalStats) string {
+	var parts []string
+	if d.Zero > 0 {
+		z := fmt.Sprintf("%d zero", d.Zero)
+		switch {
+		case d.Missing == d.Zero:
+			z += " (not stored)"
+		case d.Missing > 0:
+			z += fmt.Sprintf(" (%d not stored)", d.Missing)
+		}
+		parts = append(parts, z)
+	}
+	if d.Negative > 0 {
+		parts = append(parts, fmt.Sprintf("%d negative", d.Negative))
+	}
+	if len(parts) == 0 {
+		return "entries that are not positive"
+	}
+	return strings.Join(parts, " and ") + plural(d.Zero+d.Negative, " entry", " entries")
 }

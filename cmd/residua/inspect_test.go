@@ -140,3 +140,25 @@ func TestInspectWorstPair(t *testing.T) {
 		t.Errorf("report lacks %q:\n%s", want, out.String())
 	}
 }
+
+// TestInspectWords: inspect speaks only of what applies. A rectangular
+// matrix has no diagonal or dominance lines; a diagonal's faults name only
+// the kinds that occur (saylr3: all 1000 diagonal entries negative, from
+// the collection's file); a positive diagonal is said not to prove
+// positive definiteness, since an SPD matrix needs one but the converse
+// fails (Golub and Van Loan, 4th ed., §4.2; bcsstm10 has a positive
+// diagonal and CG breaks down on it).
+func TestInspectWords(t *testing.T) {
+	out, _, code := runCLI(t, "inspect", sharedMatrix(t, "illc1033.mtx"))
+	if code != 0 || strings.Contains(out, "diagonal ") || strings.Contains(out, "dominance") {
+		t.Errorf("rectangular: exit %d, diagonal or dominance shown:\n%s", code, out)
+	}
+	out, _, _ = runCLI(t, "inspect", sharedMatrix(t, "saylr3.mtx"))
+	if !strings.Contains(out, "1000 negative entries") || strings.Contains(out, "0 zero") {
+		t.Errorf("saylr3: faults not named as they occur:\n%s", out)
+	}
+	out, _, _ = runCLI(t, "inspect", sharedMatrix(t, "bcsstm10.mtx"))
+	if !strings.Contains(out, "does not prove A positive definite") {
+		t.Errorf("bcsstm10: the verdict claims more than a positive diagonal shows:\n%s", out)
+	}
+}

@@ -133,33 +133,30 @@ func runWatch(ctx context.Context, e *env, args []string) error {
 	if job, err = c.Job(ctx, id); err != nil {
 		return remoteError("watch", so.addr, err)
 	}
-	mo.Preconditioner = out.Results[0].Preconditioner
-	var first error
-	for i := range out.Results {
-		sum := &out.Results[i]
+	k := len(out.Results)
+	converged := true
+	for _, s := range out.Results {
+		converged = converged && s.Converged
+	}
+	if o.out != "" && converged && !job.GetSolutionKept() {
+		return usageErrorf("watch: job %s did not keep its solution on the server (only detached jobs do); -o cannot download it", id)
+	}
+	runs := make([]columnRun, k)
+	for i := range runs {
+		sum := out.Results[i]
 		sum.Matrix, sum.Server, sum.JobID = job.GetMatrixName(), so.addr, id
-		sum.RHS = fmt.Sprintf("right-hand side %d of %d, given by the job's submitter", i+1, len(out.Results))
+		sum.RHS = fmt.Sprintf("right-hand side %d of %d, given by the job's submitter", i+1, k)
 		var x []float64
-		oi := *o
-		finish := func(*solve.Summary) error { return nil }
-		if i == 0 {
-			finish = remoteOutputs(ctx, c, o, id, 0, mo)
-		} else {
-			oi.hist, oi.plot, oi.out = "", "", "" // the files are for the first right-hand side
-		}
-		if oi.out != "" && sum.Converged {
-			if !job.GetSolutionKept() {
-				return usageErrorf("watch: job %s did not keep its solution on the server (only detached jobs do); -o cannot download it", id)
-			}
+		if o.out != "" && converged {
 			if x, err = c.DownloadSolution(ctx, id, i); err != nil {
 				return remoteError("downloading the solution", so.addr, err)
 			}
 		}
-		if err := finishRun(e, &oi, sum, x, finish, plainStatus(watchErr)); err != nil && first == nil {
-			first = err
-		}
+		moi := mo
+		moi.Preconditioner = sum.Preconditioner
+		runs[i] = columnRun{sum: sum, x: x, finish: remoteOutputs(ctx, c, o.forColumn(i, k), id, i, moi), err: plainStatus(watchErr)}
 	}
-	return first
+	return finishRuns(e, o, runs, nil)
 }
 
 const cancelAbout = `

@@ -35,7 +35,7 @@ Display, summary, --json, --history, --plot, -o and --server (with
 --detach) behave as for solve; the JSON summary adds residual_norm
 (‖b − A·x‖) and normal_residual_norm (‖Aᵀ(b − A·x) − damp²·x‖).`
 
-func runLSQ(ctx context.Context, e *env, args []string) error {
+func runLSQ(ctx context.Context, e *env, args []string) (err error) {
 	o := &solveOpts{}
 	var damp, atol, btol float64
 	var method string
@@ -55,6 +55,7 @@ func runLSQ(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	defer func() { err = o.answerFailure(e, pos, err) }()
 	if len(pos) != 1 {
 		return usageErrorf("lsq: want one matrix file, got %d arguments (run 'residua lsq --help')", len(pos))
 	}

@@ -67,26 +67,53 @@ func (s *serverOpts) dial(ctx context.Context, cmd string) (*client.Client, erro
 // matching local failure, in a sentence rather than a status code:
 // malformed input or an unknown id 2, not positive definite or breakdown
 // 4, cancelled or past a deadline 3, anything else (unreachable, refused,
-// unauthenticated) 1.
+// unauthenticated) 1. The gRPC code stays on the error (grpcCodeOf) for
+// --json, where scripts read it.
 func remoteError(what, addr string, err error) error {
 	st, ok := status.FromError(err)
 	if !ok {
 		return fmt.Errorf("%s: %w", what, err)
 	}
-	msg := fmt.Errorf("%s: %s", what, st.Message())
+	text := strings.TrimSuffix(st.Message(), ": context canceled")
+	code := exitFailure
 	switch st.Code() {
 	case codes.InvalidArgument, codes.NotFound:
-		return &exitError{code: exitUsage, err: msg}
+		code = exitUsage
 	case codes.FailedPrecondition:
-		return &exitError{code: exitBreakdown, err: msg}
-	case codes.Canceled, codes.DeadlineExceeded:
-		return &exitError{code: exitNotConverged, err: msg}
+		code = exitBreakdown
+	case codes.Canceled:
+		code, text = exitNotConverged, "cancelled on request"
+	case codes.DeadlineExceeded:
+		code, text = exitNotConverged, "the deadline passed before the server answered"
 	case codes.Unavailable:
-		return fmt.Errorf("%s: no residua server answers at %s (is 'residua serve' running there, and is the address right?)", what, addr)
+		text = fmt.Sprintf("no residua server answers at %s (is 'residua serve' running there, and is the address right?)", addr)
 	case codes.Unauthenticated:
-		return fmt.Errorf("%s: the server at %s wants a valid bearer token (--token-file or $%s)", what, addr, envTokenFile)
+		text = fmt.Sprintf("the server at %s wants a valid bearer token (--token-file or $%s)", addr, envTokenFile)
+	case codes.PermissionDenied:
+		text = fmt.Sprintf("the server at %s refused the bearer token: %s", addr, text)
+	case codes.ResourceExhausted:
+		text = "the server is out of room: " + text
 	}
-	return msg
+	return &exitError{code: code, err: &remoteFailure{code: st.Code(), err: fmt.Errorf("%s: %s", what, text)}}
+}
+
+// remoteFailure is an error from a server, in words, with its gRPC code.
+type remoteFailure struct {
+	code codes.Code
+	err  error
+}
+
+func (e *remoteFailure) Error() string { return e.err.Error() }
+func (e *remoteFailure) Unwrap() error { return e.err }
+
+// grpcCodeOf returns the gRPC code name of a server's error ("" for a
+// local one).
+func grpcCodeOf(err error) string {
+	var rf *remoteFailure
+	if errors.As(err, &rf) {
+		return rf.code.String()
+	}
+	return ""
 }
 
 // plainStatus returns a gRPC error as its message alone, for a summary

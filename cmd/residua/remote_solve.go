@@ -113,7 +113,8 @@ func remoteSolve(ctx context.Context, e *env, path string, req solve.Request, o 
 		sum.RHS, sum.ReadSeconds, sum.Server = rhs, solve.Seconds(p.read), so.addr
 		return printOnly(e, o, &sum, err)
 	}
-	x0, err := readX0(o.x0, p.a.Cols)
+	k := len(p.bs)
+	x0, err := readX0(o.x0, p.a.Cols, k)
 	if err != nil {
 		return err
 	}
@@ -127,10 +128,10 @@ func remoteSolve(ctx context.Context, e *env, path string, req solve.Request, o 
 	if err != nil {
 		return remoteError("uploading "+path, so.addr, err)
 	}
-	creq := client.SolveRequest{MatrixID: info.GetId(), B: [][]float64{p.b}, Request: req,
+	creq := client.SolveRequest{MatrixID: info.GetId(), B: p.bs, Request: req,
 		Detach: detach, KeepSolution: detach, Label: name}
-	if x0 != nil {
-		creq.X0 = [][]float64{x0}
+	if o.x0 != "" {
+		creq.X0 = x0
 	}
 	if detach {
 		out, err := c.Solve(ctx, creq, nil)
@@ -144,31 +145,38 @@ func remoteSolve(ctx context.Context, e *env, path string, req solve.Request, o 
 		fmt.Fprintf(e.stderr, "residua: job %s started on %s; follow it with 'residua watch %s'\n", out.JobID, so.addr, out.JobID)
 		return nil
 	}
-	mo := monitor.Options{Target: target(req, p.b), Matrix: name}
+	// The live display follows the first right-hand side; every one gets
+	// its summary and its history.
+	mo := monitor.Options{Target: target(req, p.bs[0]), Matrix: name}
 	disp := &remoteDisplay{e: e, o: o, mo: mo}
 	out, solveErr := c.Solve(ctx, creq, disp.event)
 	disp.stop()
-	if out == nil || len(out.Results) == 0 {
+	if out == nil || len(out.Results) != k {
 		if solveErr == nil {
-			solveErr = fmt.Errorf("job %s ended (%s) without a result: %s", out.JobID, out.Outcome, out.Error)
+			solveErr = fmt.Errorf("job %s ended (%s) with %d results for %d right-hand sides: %s", out.JobID, out.Outcome, len(out.Results), k, out.Error)
 		}
 		return remoteError(cmd+" on "+so.addr, so.addr, solveErr)
 	}
-	sum := out.Results[0]
-	sum.Matrix, sum.RHS, sum.ReadSeconds, sum.Server, sum.JobID = path, rhs, solve.Seconds(p.read), so.addr, out.JobID
-	sum.MatrixUploaded = &uploaded
-	if uploaded {
-		sum.UploadSeconds = solve.NumPtr(info.GetUploadSeconds())
+	runs := make([]columnRun, k)
+	for j := range runs {
+		sum := out.Results[j]
+		sum.Matrix, sum.RHS, sum.ReadSeconds, sum.Server, sum.JobID = path, p.rhsOf(j, rhs), solve.Seconds(p.read), so.addr, out.JobID
+		sum.MatrixUploaded = &uploaded
+		if uploaded {
+			sum.UploadSeconds = solve.NumPtr(info.GetUploadSeconds())
+		}
+		var x []float64
+		if j < len(out.X) {
+			x = out.X[j]
+		}
+		if ones && x != nil {
+			sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))
+		}
+		moj := mo
+		moj.Preconditioner, moj.Target = sum.Preconditioner, target(req, p.bs[j])
+		runs[j] = columnRun{sum: sum, x: x, finish: remoteOutputs(ctx, c, o.forColumn(j, k), out.JobID, j, moj), err: plainStatus(solveErr)}
 	}
-	var x []float64
-	if len(out.X) > 0 {
-		x = out.X[0]
-	}
-	if ones && x != nil {
-		sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))
-	}
-	mo.Preconditioner = sum.Preconditioner
-	return finishRun(e, o, &sum, x, remoteOutputs(ctx, c, o, out.JobID, 0, mo), plainStatus(solveErr))
+	return finishRuns(e, o, runs, nil)
 }
 
 // watchOptions is the live display's options for watching a job: its matrix

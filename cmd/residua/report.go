@@ -4,8 +4,12 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"os"
 	"strings"
 	"time"
+	"unicode/utf8"
+
+	"golang.org/x/term"
 
 	"github.com/residua/residua/solve"
 )
@@ -20,7 +24,22 @@ func writeJSON(w io.Writer, v any) error {
 // writeSummary prints the summary a person reads at a glance: the outcome
 // in a sentence first, then the numbers that say how far to trust it, then
 // where the time went. The JSON form (--json) is the summary itself.
-func writeSummary(w io.Writer, r *solve.Summary) {
+//
+// On a terminal the lines are wrapped at its width, between words, each
+// continuation indented under its value (see wrapSummary); elsewhere (a
+// file, a pipe) every item stays on one line for tools that read lines.
+func writeSummary(out io.Writer, r *solve.Summary) {
+	var buf strings.Builder
+	summaryLines(&buf, r)
+	text := buf.String()
+	if width := terminalWidth(out); width > 0 {
+		text = wrapSummary(text, width)
+	}
+	io.WriteString(out, text)
+}
+
+// summaryLines writes the summary, one item per line.
+func summaryLines(w io.Writer, r *solve.Summary) {
 	fmt.Fprintln(w, r.Headline)
 	if r.Warning != "" {
 		// Not to be missed: right under the headline, before any figure.
@@ -28,6 +47,9 @@ func writeSummary(w io.Writer, r *solve.Summary) {
 	}
 	if r.Error != "" && !strings.Contains(r.Headline, r.Error) {
 		fmt.Fprintf(w, "  problem           %s\n", r.Error)
+	}
+	if r.Advice != "" {
+		fmt.Fprintf(w, "  what to do        %s\n", r.Advice)
 	}
 	if r.Rows > 0 || r.Cols > 0 {
 		fmt.Fprintf(w, "  matrix            %s: %d×%d, %d nonzeros\n", r.Matrix, r.Rows, r.Cols, r.Nonzeros)
@@ -125,4 +147,59 @@ func num(v *solve.Num) float64 {
 
 func fmtSec(s solve.Num) string {
 	return formatDuration(time.Duration(float64(s) * float64(time.Second)))
+}
+
+// summaryIndent is where a summary line's value starts: two spaces, the
+// label, padding to 20 columns.
+const summaryIndent = 20
+
+// terminalWidth returns the width of w when it is a terminal, else 0.
+func terminalWidth(w io.Writer) int {
+	f, ok := w.(*os.File)
+	if !ok || !term.IsTerminal(int(f.Fd())) {
+		return 0
+	}
+	width, _, err := term.GetSize(int(f.Fd()))
+	if err != nil {
+		return 0
+	}
+	return width
+}
+
+// wrapSummary wraps each line of a summary longer than width between
+// words: a headline's continuations are indented by two spaces, an item's
+// by summaryIndent, so the values read as a column. A single word longer
+// than the room left (a long path) stays whole rather than being cut.
+func wrapSummary(text string, width int) string {
+	var b strings.Builder
+	for _, line := range strings.SplitAfter(text, "\n") {
+		nl := strings.HasSuffix(line, "\n")
+		line = strings.TrimSuffix(line, "\n")
+		indent := 2
+		if strings.HasPrefix(line, "  ") && utf8.RuneCountInString(line) > summaryIndent {
+			indent = summaryIndent
+		}
+		col := 0
+		for i, word := range strings.Split(line, " ") {
+			n := utf8.RuneCountInString(word)
+			switch {
+			case i == 0:
+			case col > indent && col+1+n > width:
+				b.WriteString("\n" + strings.Repeat(" ", indent))
+				col = indent
+				if word == "" {
+					continue
+				}
+			default:
+				b.WriteByte(' ')
+				col++
+			}
+			b.WriteString(word)
+			col += n
+		}
+		if nl {
+			b.WriteByte('\n')
+		}
+	}
+	return b.String()
 }

@@ -6,6 +6,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"runtime/debug"
 	"slices"
 	"sort"
 	"strings"
@@ -103,6 +104,9 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 	}
 	name := args[0]
 	switch name {
+	case "version", "--version", "-version":
+		fmt.Fprintln(stdout, versionLine())
+		return nil
 	case "help", "-h", "-help", "--help":
 		if len(args) > 1 && name == "help" {
 			c := lookup(args[1])
@@ -152,15 +156,48 @@ func printOverview(w io.Writer) {
 	fmt.Fprintf(w, "\n%s", exitStatusText)
 }
 
-// exitStatusText is appended to every command's help.
-const exitStatusText = `Exit status:
-  0  success (solve, lsq: the answer met the tolerance)
-  1  anything else (I/O failure, server unreachable, internal error)
-  2  bad usage, or an unreadable or malformed input file (the message names file and line)
-  3  the solve stopped without converging: iteration cap, time limit, stagnation,
-     or cancelled (SIGINT/SIGTERM)
-  4  breakdown: the matrix or preconditioner is not positive definite, or NaN/Inf appeared
-`
+// exitStatusText is the overview's table of exit statuses.
+var exitStatusText = exitStatusHelp("0", "1", "2", "3", "4")
+
+// exitMeanings says what each exit status means.
+var exitMeanings = map[string]string{
+	"0": "success (solve, lsq, watch: the answer met the tolerance)",
+	"1": "anything else (I/O failure, server unreachable, internal error)",
+	"2": "bad usage, or an unreadable or malformed input file (the message names file and line)",
+	"3": "the solve stopped without converging: iteration cap, time limit, stagnation,\n     or cancelled (SIGINT/SIGTERM)",
+	"4": "breakdown: the matrix or preconditioner is not positive definite, or NaN/Inf appeared",
+}
+
+// commandExits lists the exit statuses each command can return: only the
+// solving ones report a solve's outcome (3 and 4).
+var commandExits = map[string][]string{
+	"solve": {"0", "1", "2", "3", "4"}, "lsq": {"0", "1", "2", "3", "4"}, "demo": {"0", "1", "2", "3", "4"},
+	"watch": {"0", "1", "2", "3", "4"},
+	// A server's refusal maps to the local failure's status (remoteError).
+	"jobs": {"0", "1", "2", "3", "4"}, "cancel": {"0", "1", "2", "3", "4"},
+}
+
+// exitStatusHelp is the exit-status table of a command's help.
+func exitStatusHelp(codes ...string) string {
+	var b strings.Builder
+	b.WriteString("Exit status:\n")
+	for _, c := range codes {
+		m := exitMeanings[c]
+		if c == "0" && len(codes) == 3 {
+			m = "success"
+		}
+		fmt.Fprintf(&b, "  %s  %s\n", c, m)
+	}
+	return b.String()
+}
+
+// exitsOf returns the exit statuses command name can return.
+func exitsOf(name string) []string {
+	if c, ok := commandExits[name]; ok {
+		return c
+	}
+	return []string{"0", "1", "2"}
+}
 
 // cmdFlags is a subcommand's flag set with its help text.
 type cmdFlags struct {
@@ -242,7 +279,7 @@ func (f *cmdFlags) printHelp(w io.Writer) {
 		}
 		fmt.Fprintf(w, "  %-*s  %s\n\n", width, "-h, --help", "this text")
 	}
-	fmt.Fprint(w, exitStatusText)
+	fmt.Fprint(w, exitStatusHelp(exitsOf(f.Name())...))
 }
 
 // explain turns the flag package's message into one that says what to do:
@@ -307,4 +344,30 @@ func editDistance(a, b string) int {
 		}
 	}
 	return d[len(a)][len(b)]
+}
+
+// versionLine says which residua this is: the module version and, for a
+// build from a git checkout, the revision, its time and whether the tree
+// had uncommitted changes (from the build information the go command
+// records, runtime/debug.ReadBuildInfo).
+func versionLine() string {
+	bi, ok := debug.ReadBuildInfo()
+	if !ok {
+		return "residua (no build information)"
+	}
+	line := "residua " + bi.Main.Version
+	settings := map[string]string{}
+	for _, s := range bi.Settings {
+		settings[s.Key] = s.Value
+	}
+	if rev := settings["vcs.revision"]; rev != "" {
+		line += ", revision " + rev
+		if t := settings["vcs.time"]; t != "" {
+			line += " (" + t + ")"
+		}
+		if settings["vcs.modified"] == "true" {
+			line += " with uncommitted changes"
+		}
+	}
+	return line + ", " + bi.GoVersion
 }

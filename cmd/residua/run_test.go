@@ -93,10 +93,16 @@ func TestHelp(t *testing.T) {
 			if code != 0 || errOut != "" {
 				t.Errorf("%q: exit %d, stderr %q", args, code, errOut)
 			}
-			for _, want := range []string{"Usage: residua " + c.name, "Exit status", "  4  breakdown"} {
+			for _, want := range []string{"Usage: residua " + c.name, "Exit status", "  2  bad usage"} {
 				if !strings.Contains(out, want) {
 					t.Errorf("%q: help lacks %q:\n%s", args, want, out)
 				}
+			}
+			// Only the commands that report a solve's outcome list 3 and 4
+			// (issue 11 §4: each help lists the statuses it can return).
+			solving := len(exitsOf(c.name)) == 5
+			if got := strings.Contains(out, "  4  breakdown"); got != solving {
+				t.Errorf("%q: lists status 4: %v, want %v", args, got, solving)
 			}
 		}
 	}

@@ -96,9 +96,21 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return usageErrorf("serve: %v", err)
 	}
+	// Both ports are taken before either is announced, so a busy --http
+	// port is an error before anything says "serving".
 	lis, err := net.Listen("tcp", cfg.Listen)
 	if err != nil {
-		return fmt.Errorf("serve: %w", err)
+		return fmt.Errorf("serve: --listen %s: %w", cfg.Listen, err)
+	}
+	var hl net.Listener
+	if httpAddr != "" {
+		if hl, err = net.Listen("tcp", httpAddr); err != nil {
+			lis.Close()
+			return fmt.Errorf("serve: --http %s: %w", httpAddr, err)
+		}
+	}
+	if cfg.TokenFile == "" && !loopback(lis.Addr()) {
+		fmt.Fprintf(e.stderr, "residua: warning: listening on %s without --token-file: anyone who can reach this port can upload matrices and run solves\n", lis.Addr())
 	}
 	fmt.Fprintf(e.stderr, "residua: serving gRPC on %s\n", lis.Addr())
 
@@ -106,12 +118,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	var httpErr error
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	if httpAddr != "" {
-		hl, err := net.Listen("tcp", httpAddr)
-		if err != nil {
-			lis.Close()
-			return fmt.Errorf("serve: --http: %w", err)
-		}
+	if hl != nil {
 		m.ObserveQueue(srv.Registry().Counts)
 		m.ObserveUploads(srv.UploadBytes)
 		m.ObserveStore(srv.StoredBytes)
@@ -176,4 +183,11 @@ func (b *byteSize) Set(s string) error {
 	}
 	*b = byteSize(n * factor)
 	return nil
+}
+
+// loopback reports whether a listener's address is reachable from this
+// machine only.
+func loopback(a net.Addr) bool {
+	t, ok := a.(*net.TCPAddr)
+	return ok && t.IP.IsLoopback()
 }

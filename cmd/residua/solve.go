@@ -65,6 +65,11 @@ type solveOpts struct {
 	timeLimit       time.Duration
 	out, hist, plot string
 	json, quiet     bool
+	alwaysWrite     bool // write -o whatever the outcome
+
+	// printed: the command has written its answer on stdout (a summary,
+	// or a detached job's id), so a later error adds nothing there.
+	printed bool
 }
 
 // addRunFlags registers the tolerance flags of the conjugate-gradient
@@ -79,7 +84,8 @@ func addRunFlags(f *cmdFlags, o *solveOpts) {
 func addOutputFlags(f *cmdFlags, o *solveOpts) {
 	f.IntVar(&o.maxIter, "max-iter", 0, "iteration cap `N`; 0 means the default, 10·n")
 	f.DurationVar(&o.timeLimit, "time-limit", 0, "wall-time budget for the iterations, e.g. 30s or 5m (default none)")
-	f.StringVar(&o.out, "o", "", "write the solution x to this Matrix Market `file` (only if converged)")
+	f.StringVar(&o.out, "o", "", "write the solution x to this Matrix Market `file` (only if converged, unless --always-write)")
+	f.BoolVar(&o.alwaysWrite, "always-write", false, "write -o's file whatever the outcome: the last iterate of a solve that stopped early, for restarting it yourself")
 	f.StringVar(&o.hist, "history", "", "write the convergence history to this `file` (.csv, or .json for JSON lines)")
 	f.StringVar(&o.plot, "plot", "", "draw the residual curve to this `file` (.svg or .png)")
 	f.BoolVar(&o.json, "json", false, "print the summary as one JSON object")
@@ -126,7 +132,7 @@ func checkOutputFlags(cmd string, o *solveOpts) error {
 	return nil
 }
 
-func runSolve(ctx context.Context, e *env, args []string) error {
+func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	o := &solveOpts{}
 	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--precond auto|none|jacobi|ic0] [flags]", solveAbout)
 	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
@@ -140,6 +146,7 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	defer func() { err = o.answerFailure(e, pos, err) }()
 	if len(pos) != 1 {
 		return usageErrorf("solve: want one matrix file, got %d arguments (run 'residua solve --help')", len(pos))
 	}
@@ -168,10 +175,10 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 type problem struct {
 	name      string // file name or scenario, for messages and titles
 	a         *sparse.CSR
-	symmetric bool // known symmetric from the file's header or construction
-	b         []float64
-	rhs       string // where b came from, in words
-	ones      bool   // b = A·1: the exact solution is all ones
+	symmetric bool        // known symmetric from the file's header or construction
+	bs        [][]float64 // the right-hand sides: b's columns, one or more
+	rhs       string      // where b came from, in words
+	ones      bool        // b = A·1: the exact solution is all ones
 	read      time.Duration
 }
 
@@ -187,15 +194,15 @@ func loadProblem(path, bPath string) (*problem, error) {
 	p := &problem{name: path, a: a, symmetric: info.Header.Symmetry == "symmetric", read: time.Since(start)}
 	switch {
 	case bPath != "":
-		b, _, err := matrixio.ReadVectorFile(bPath, nil)
+		bs, _, err := matrixio.ReadColumnsFile(bPath, nil)
 		if err != nil {
 			return nil, inputError(err)
 		}
-		p.b, p.rhs = b, "from "+bPath
+		p.bs, p.rhs = bs, "from "+bPath
 	case matrixio.IsBundle(path):
-		b, _, err := matrixio.ReadBundleRHS(path, nil)
+		bs, _, err := matrixio.ReadColumnsFile(path, nil)
 		if err == nil {
-			p.b, p.rhs = b, "the bundle's own right-hand side"
+			p.bs, p.rhs = bs, "the bundle's own right-hand side"
 			break
 		}
 		if !errors.Is(err, matrixio.ErrNoRHS) {
@@ -203,15 +210,28 @@ func loadProblem(path, bPath string) (*problem, error) {
 		}
 		fallthrough
 	default:
-		p.b = make([]float64, a.Rows)
-		a.MulVec(p.b, onesVec(a.Cols))
+		b := make([]float64, a.Rows)
+		a.MulVec(b, onesVec(a.Cols))
+		p.bs = [][]float64{b}
 		p.rhs = "b = A·1 (no -b given), so the exact solution is all ones"
 		p.ones = true
 	}
-	if len(p.b) != a.Rows {
-		return nil, inputError(fmt.Errorf("the right-hand side has %d entries but %s has %d rows", len(p.b), path, a.Rows))
+	if len(p.bs) == 0 || len(p.bs[0]) != a.Rows {
+		n := 0
+		if len(p.bs) > 0 {
+			n = len(p.bs[0])
+		}
+		return nil, inputError(fmt.Errorf("the right-hand side has %d entries but %s has %d rows", n, path, a.Rows))
 	}
 	return p, nil
+}
+
+// rhsOf describes right-hand side j of p in words.
+func (p *problem) rhsOf(j int, rhs string) string {
+	if len(p.bs) == 1 {
+		return rhs
+	}
+	return fmt.Sprintf("column %d of %d, %s", j+1, len(p.bs), rhs)
 }
 
 func onesVec(n int) []float64 {
@@ -239,19 +259,31 @@ func (p *problem) onesSolution(req solve.Request) (bool, string) {
 	return false, rhs + "; not the solution sought here (damped, or fewer rows than columns: the minimum-norm one)"
 }
 
-// readX0 reads a starting guess and checks its length.
-func readX0(path string, n int) ([]float64, error) {
+// readX0 reads the starting guesses for k right-hand sides of n unknowns:
+// nil without a file; one vector serves every right-hand side, or the
+// file has one column per right-hand side.
+func readX0(path string, n, k int) ([][]float64, error) {
 	if path == "" {
-		return nil, nil
+		return make([][]float64, k), nil
 	}
-	x0, _, err := matrixio.ReadVectorFile(path, nil)
+	x0, _, err := matrixio.ReadColumnsFile(path, nil)
 	if err != nil {
 		return nil, inputError(err)
 	}
-	if len(x0) != n {
-		return nil, inputError(fmt.Errorf("--x0 %s has %d entries but the matrix has %d columns", path, len(x0), n))
+	if len(x0[0]) != n {
+		return nil, inputError(fmt.Errorf("--x0 %s has %d entries but the matrix has %d columns", path, len(x0[0]), n))
 	}
-	return x0, nil
+	switch len(x0) {
+	case k:
+		return x0, nil
+	case 1:
+		all := make([][]float64, k)
+		for j := range all {
+			all[j] = x0[0]
+		}
+		return all, nil
+	}
+	return nil, inputError(fmt.Errorf("--x0 %s has %d columns but b has %d: give one starting guess for all, or one per column", path, len(x0), k))
 }
 
 // solveLocal runs a solve of p in this process, through the solve layer,
@@ -259,7 +291,8 @@ func readX0(path string, n int) ([]float64, error) {
 // summary; the returned error carries the exit status.
 func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *solveOpts) error {
 	m := solve.Check(p.a, p.name, p.symmetric)
-	x0, err := readX0(o.x0, p.a.Cols)
+	k := len(p.bs)
+	x0, err := readX0(o.x0, p.a.Cols, k)
 	if err != nil {
 		return err
 	}
@@ -268,20 +301,27 @@ func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *s
 	if err != nil {
 		sum := solve.Failure(m, req, err)
 		sum.RHS, sum.ReadSeconds = rhs, solve.Seconds(p.read)
+		sum.Unstarted(p.a, p.bs[0], x0[0])
 		return printOnly(e, o, &sum, err)
 	}
-	mo := monitor.Options{Target: target(req, p.b), Matrix: filepath.Base(p.name), Preconditioner: setup.Summary().Preconditioner}
-	rec, finish, err := recorders(e, o, req.LeastSquares, mo)
-	if err != nil {
-		return err
+	// One set-up (the preconditioner or scaling) serves every column.
+	runs := make([]columnRun, k)
+	for j, b := range p.bs {
+		oj := o.forColumn(j, k)
+		mo := monitor.Options{Target: target(req, b), Matrix: filepath.Base(p.name), Preconditioner: setup.Summary().Preconditioner}
+		rec, finish, err := recorders(e, oj, req.LeastSquares, mo)
+		if err != nil {
+			return err
+		}
+		x := make([]float64, p.a.Cols)
+		sum, solveErr := setup.Solve(ctx, b, x0[j], x, rec)
+		sum.RHS, sum.RHSIndex, sum.ReadSeconds = p.rhsOf(j, rhs), j, solve.Seconds(p.read)
+		if ones {
+			sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))
+		}
+		runs[j] = columnRun{sum: sum, x: x, finish: finish, err: solveErr}
 	}
-	x := make([]float64, p.a.Cols)
-	sum, solveErr := setup.Solve(ctx, p.b, x0, x, rec)
-	sum.RHS, sum.ReadSeconds = rhs, solve.Seconds(p.read)
-	if ones {
-		sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))
-	}
-	return recorderFailure(ctx, sum.Status, finishRun(e, o, &sum, x, finish, solveErr))
+	return finishRuns(e, o, runs, func(r *columnRun, err error) error { return recorderFailure(ctx, r.sum.Status, err) })
 }
 
 // target is the relative residual a system's solve aims at, for the live
@@ -300,9 +340,56 @@ func target(req solve.Request, b []float64) float64 {
 	return t
 }
 
+// failureAnswer is the JSON object a solving command prints with --json
+// when it ends before a summary exists (a file that cannot be read, a
+// right-hand side of the wrong length, a server that does not answer):
+// the summary's keys that are known, and no figure that is not, with the
+// gRPC code of a server's error for scripts.
+type failureAnswer struct {
+	Matrix    string `json:"matrix,omitempty"`
+	Converged bool   `json:"converged"`
+	Status    string `json:"status"`
+	Headline  string `json:"headline"`
+	Error     string `json:"error"`
+	Advice    string `json:"advice,omitempty"`
+	GRPCCode  string `json:"grpc_code,omitempty"`
+}
+
+// answerFailure prints, with --json, the one JSON object every outcome
+// owes its caller when err ended the command before anything was printed,
+// and returns err with its exit status unchanged (the message still goes
+// to stderr). The status is refused for bad input (exit 2), cancelled for
+// a stop (3), else failed.
+func (o *solveOpts) answerFailure(e *env, pos []string, err error) error {
+	if err == nil || !o.json || o.printed {
+		return err
+	}
+	a := failureAnswer{Error: err.Error(), Advice: solve.Advice(err), GRPCCode: grpcCodeOf(err), Status: string(solve.Failed)}
+	if len(pos) > 0 {
+		a.Matrix = pos[0]
+	}
+	var ee *exitError
+	if errors.As(err, &ee) {
+		switch ee.code {
+		case exitUsage:
+			a.Status = string(solve.Refused)
+		case exitNotConverged:
+			a.Status = string(solve.Cancelled)
+		}
+	}
+	sum := solve.Summary{Error: a.Error}
+	sum.SetOutcome(solve.Outcome(a.Status))
+	a.Headline = sum.Headline
+	if werr := writeJSON(e.stdout, a); werr != nil {
+		return errors.Join(err, werr)
+	}
+	return err
+}
+
 // printOnly prints the summary of a solve that ended before its method ran
 // and returns the error with its exit status.
 func printOnly(e *env, o *solveOpts, sum *solve.Summary, err error) error {
+	o.printed = true
 	if o.json {
 		if werr := writeJSON(e.stdout, sum); werr != nil {
 			return werr
@@ -379,35 +466,6 @@ func drawPlot(path string, mo monitor.Options, h history.History) error {
 		return fmt.Errorf("drawing %s: %w", path, err)
 	}
 	return nil
-}
-
-// finishRun writes the outputs of a finished solve (history, plot, and the
-// solution when it converged), prints the summary and returns the error
-// that gives the exit status.
-func finishRun(e *env, o *solveOpts, sum *solve.Summary, x []float64, finish func(*solve.Summary) error, solveErr error) error {
-	outErr := finish(sum)
-	if o.out != "" {
-		if sum.Converged && x != nil {
-			if err := matrixio.WriteVectorFile(o.out, x); err != nil {
-				outErr = errors.Join(outErr, fmt.Errorf("writing the solution %s: %w", o.out, err))
-			} else {
-				sum.SolutionFile = o.out
-			}
-		} else {
-			sum.SolutionNote = "not written to " + o.out + " (the solve did not converge)"
-		}
-	}
-	if o.json {
-		if err := writeJSON(e.stdout, sum); err != nil {
-			return err
-		}
-	} else {
-		writeSummary(e.stdout, sum)
-	}
-	if outErr != nil {
-		return outErr
-	}
-	return outcomeError(sum, solveErr)
 }
 
 // recorderFailure turns the exit status of a solve that a recorder stopped

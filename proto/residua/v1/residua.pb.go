@@ -1828,6 +1828,8 @@ type SolveResult struct {
 	ForwardErrorNote     string   `protobuf:"bytes,38,opt,name=forward_error_note,json=forwardErrorNote,proto3" json:"forward_error_note,omitempty"`
 	Warning              string   `protobuf:"bytes,39,opt,name=warning,proto3" json:"warning,omitempty"`
 	WarningText          string   `protobuf:"bytes,40,opt,name=warning_text,json=warningText,proto3" json:"warning_text,omitempty"`
+	// What can be done about a failure or a breakdown, in words.
+	Advice string `protobuf:"bytes,41,opt,name=advice,proto3" json:"advice,omitempty"`
 	// The matrix: its name, id and shape.
 	Matrix        string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
 	MatrixId      string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
@@ -2109,6 +2111,13 @@ func (x *SolveResult) GetWarning() string {
 func (x *SolveResult) GetWarningText() string {
 	if x != nil {
 		return x.WarningText
+	}
+	return ""
+}
+
+func (x *SolveResult) GetAdvice() string {
+	if x != nil {
+		return x.Advice
 	}
 	return ""
 }
@@ -3143,7 +3152,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
 	"\x05_rtolB\a\n" +
 	"\x05_btolB\a\n" +
-	"\x05_damp\"\xa0\r\n" +
+	"\x05_damp\"\xb8\r\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -3189,6 +3198,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x12forward_error_note\x18& \x01(\tR\x10forwardErrorNote\x12\x18\n" +
 	"\awarning\x18' \x01(\tR\awarning\x12!\n" +
 	"\fwarning_text\x18( \x01(\tR\vwarningText\x12\x16\n" +
+	"\x06advice\x18) \x01(\tR\x06advice\x12\x16\n" +
 	"\x06matrix\x18  \x01(\tR\x06matrix\x12\x1b\n" +
 	"\tmatrix_id\x18! \x01(\tR\bmatrixId\x12\x12\n" +
 	"\x04rows\x18\" \x01(\x03R\x04rows\x12\x12\n" +
