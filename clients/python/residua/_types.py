@@ -70,6 +70,7 @@ class Summary:
     nonzeros: int
     rhs: str
     error: Optional[str] = None
+    advice: Optional[str] = None  # for a failure or a breakdown: what can be done
     recursive_relative_residual: Optional[float] = None
     recursive_residual_norm: Optional[float] = None
     # Least squares only.
@@ -121,6 +122,7 @@ class Summary:
             atol=st.atol, max_iter=st.max_iter, time_limit_seconds=st.time_limit_seconds,
             matrix=r.matrix, rows=r.rows, cols=r.cols, nonzeros=r.nonzeros, rhs=rhs,
             error=r.error or None,
+            advice=r.advice or None,
             recursive_relative_residual=_opt(r, "recursive_relative_residual"),
             recursive_residual_norm=_opt(r, "recursive_residual_norm"),
             residual_norm=_opt(r, "residual_norm"),

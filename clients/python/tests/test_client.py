@@ -367,6 +367,7 @@ class ClientTest(unittest.TestCase):
             self.client.solve(sp.diags([1.0, -1.0]).tocsr(), np.ones(2), precond="none")
         self.assertEqual((cm.exception.outcome, cm.exception.code), ("breakdown", "FAILED_PRECONDITION"))
         self.assertEqual(cm.exception.summaries[0].status, "breakdown")
+        self.assertTrue(cm.exception.summaries[0].advice, "a breakdown comes with advice (solve.Advice)")
         zero = sp.csr_matrix(np.array([[0.0, 1.0], [1.0, 2.0]]))
         with self.assertRaises(residua.SolveError) as cm:
             self.client.solve(zero, np.ones(2), precond="jacobi")
