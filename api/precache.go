@@ -32,7 +32,9 @@ func (s *Server) prepare(ctx context.Context, p *jobParams) (setup *solve.Setup,
 	k := setupKey(p.matrixID, p.req)
 	for {
 		if it, pn, ok := s.store.acquire(k); ok {
-			return it.value.(*setupEntry).setup, pn, true, nil
+			// The cached set-up was made for another job's request: this
+			// job solves with its own tolerances and limits.
+			return it.value.(*setupEntry).setup.For(p.req), pn, true, nil
 		}
 		s.mu.Lock()
 		if b, ok := s.building[k]; ok {

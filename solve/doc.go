@@ -10,7 +10,9 @@
 //     become a Request), with zero meaning "the default" for every number.
 //   - Prepare, Setup.Solve and Run: check the matrix against the method,
 //     choose the preconditioner or column scaling and say why, time the
-//     set-up, run the method and describe the outcome.
+//     set-up, run the method and describe the outcome. A Setup holds the
+//     request it was made for; Setup.For reuses its preconditioner for
+//     another request's tolerances and limits (the server's set-up cache).
 //   - Summary: the outcome of one solve, whose JSON encoding is the schema
 //     documented in the README (the CLI's --json, the client's result, the
 //     server's result message through package wire, and the page's jobs).

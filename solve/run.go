@@ -73,6 +73,17 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 	return s, nil
 }
 
+// For returns the set-up as another request on the same matrix with the
+// same preconditioner would have it: a copy that shares the preconditioner
+// (read only) and takes req's tolerances, limits and method settings, so
+// that a cached set-up serves each solve with that solve's own settings.
+// req must be the result of Validate.
+func (s *Setup) For(req Request) *Setup {
+	c := *s
+	c.Request = req
+	return &c
+}
+
 // Bytes returns the memory the set-up holds (the preconditioner's).
 func (s *Setup) Bytes() int64 {
 	if s.Choice == nil {
