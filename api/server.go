@@ -88,7 +88,7 @@ func NewServer(cfg Config) (*Server, error) {
 	s := &Server{
 		cfg:      cfg,
 		log:      cfg.Logger,
-		store:    newStore(cfg.MemoryBudget),
+		store:    newStore(cfg.MemoryBudget, cfg.ProtectRecent),
 		building: make(map[key]*setupEntry),
 		obs:      cfg.Observer,
 	}
@@ -115,6 +115,7 @@ func NewServer(cfg Config) (*Server, error) {
 		}),
 		grpc.InitialWindowSize(streamWindow),
 		grpc.InitialConnWindowSize(connWindow),
+		grpc.ForceServerCodecV2(newRequestCodec(cfg.MaxRHS)),
 		grpc.ChainUnaryInterceptor(s.unaryInterceptor),
 		grpc.ChainStreamInterceptor(s.streamInterceptor),
 	}
