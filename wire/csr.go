@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"sort"
 
 	"github.com/residua/residua/sparse"
 )
@@ -91,13 +92,13 @@ func EncodeCSR(a *sparse.CSR, size int, send func([]byte) error) error {
 }
 
 // RawError is a malformed CSR_RAW encoding: the byte offset where the
-// problem lies, the array and the entry (and the row, for a row pointer or
-// a column index), and why.
+// problem lies, the array and the entry (and the row it belongs to, once
+// the row pointers are known), and why.
 type RawError struct {
 	Offset int64  // byte offset in the encoding
 	Array  string // "row pointers", "column indices" or "values"
 	Index  int    // entry of the array (0-based)
-	Row    int    // the row concerned, or -1
+	Row    int    // the row concerned (0-based), or -1 for a matrix without rows
 	Err    error
 }
 
@@ -132,7 +133,16 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		b := buf[:k*size]
 		if n, err := io.ReadFull(r, b); err != nil {
 			if err == io.EOF || err == io.ErrUnexpectedEOF {
-				return nil, &RawError{Offset: off + int64(n), Array: array, Index: i + n/size, Row: -1,
+				idx := i + n/size
+				row := max(idx-1, 0) // a row pointer: the row it ends
+				if array != "row pointers" {
+					// The row pointers are all known: the row holding entry idx.
+					row = min(sort.SearchInts(a.RowPtr[1:], idx+1), rows-1)
+				}
+				if rows == 0 {
+					row = -1
+				}
+				return nil, &RawError{Offset: off + int64(n), Array: array, Index: idx, Row: row,
 					Err: fmt.Errorf("the data ends, but the sizes need %d bytes: %w", CSRBytes(int64(rows), int64(nnz)), io.ErrUnexpectedEOF)}
 			}
 			return nil, err
@@ -180,6 +190,7 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 			i++
 		}
 	}
+	row = 0
 	for i := 0; i < nnz; {
 		start := off
 		b, err := next("values", i, nnz, 8)
@@ -187,9 +198,12 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 			return nil, err
 		}
 		for k := 0; len(b) >= 8; b, k = b[8:], k+1 {
+			for a.RowPtr[row+1] <= i {
+				row++
+			}
 			v := math.Float64frombits(binary.LittleEndian.Uint64(b))
 			if math.IsNaN(v) || math.IsInf(v, 0) {
-				return nil, &RawError{Offset: start + int64(8*k), Array: "values", Index: i, Row: -1,
+				return nil, &RawError{Offset: start + int64(8*k), Array: "values", Index: i, Row: row,
 					Err: fmt.Errorf("%w: %g", ErrValue, v)}
 			}
 			a.Val[i] = v

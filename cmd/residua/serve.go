@@ -69,6 +69,11 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&cfg.TLSKey, "tls-key", "", "PEM private key `file` for --tls-cert")
 	f.DurationVar(&cfg.ShutdownGrace, "shutdown-grace", api.DefaultShutdownGrace, "on shutdown, how long running solves may continue before they are cancelled")
 	f.DurationVar(&cfg.StopTimeout, "stop-timeout", api.DefaultStopTimeout, "on shutdown, how long open streams may take to close after the solves end before the server stops them")
+	f.IntVar(&cfg.MaxJobIterations, "max-job-iterations", api.DefaultMaxJobIterations, "ceiling on each right-hand side's iterations; a request's max_iter can lower it, never raise it")
+	f.DurationVar(&cfg.MaxJobTime, "max-job-time", api.DefaultMaxJobTime, "ceiling on a job's wall time, its right-hand sides together; a request's time_limit can lower it, never raise it")
+	f.DurationVar(&cfg.UploadIdleTimeout, "upload-idle-timeout", api.DefaultUploadIdleTimeout, "drop an upload whose client sends nothing for this long, releasing its memory")
+	f.DurationVar(&cfg.ProtectRecent, "protect-recent", api.DefaultProtectRecent, "never evict a matrix, vector or kept solution used within this long; refuse the request that needs the room instead")
+	f.BoolVar(&cfg.AllowMostlyEmpty, "allow-mostly-empty", false, "accept matrices with more than half of their rows or columns empty (refused by default: their row pointers cost 8 bytes a row however short the upload)")
 	pos, err := f.parse(e, args)
 	if err != nil {
 		return err
@@ -79,7 +84,9 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	cfg.MaxUploadBytes, cfg.MemoryBudget = int64(uploadBytes), int64(memory)
 	for name, v := range map[string]int64{"max-rows": int64(cfg.MaxRows), "max-nonzeros": cfg.MaxNonzeros, "max-rhs": int64(cfg.MaxRHS),
 		"max-solves": int64(cfg.MaxConcurrentSolves), "max-queued": int64(cfg.MaxQueued), "max-jobs-kept": int64(cfg.MaxJobsKept),
-		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget} {
+		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget,
+		"max-job-iterations": int64(cfg.MaxJobIterations), "max-job-time": int64(cfg.MaxJobTime), "upload-idle-timeout": int64(cfg.UploadIdleTimeout),
+		"protect-recent": int64(cfg.ProtectRecent)} {
 		if v < 0 {
 			return usageErrorf("serve: --%s must not be negative", name)
 		}
