@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"log/slog"
 	"net"
+	"net/http"
 	"strconv"
 	"strings"
 	"sync"
@@ -40,6 +41,15 @@ one line per upload and per job start and end.
 --http adds the watch page: the jobs with their live residual curves, JSON
 endpoints (/api/jobs, /api/jobs/ID, /api/jobs/ID/history,
 /api/jobs/ID/chart.svg, /api/events) and Prometheus metrics at /metrics.
+With --token-file, those endpoints and /metrics need the same bearer token
+(the page asks for it once and keeps a session cookie); --metrics-listen
+serves /metrics alone, open, on a separate address for a scraper.
+
+A job's iterations and wall time have ceilings (--max-job-iterations,
+--max-job-time) that a request can lower but not raise; an upload that
+sends nothing for --upload-idle-timeout is dropped; a matrix, vector or
+solution used within --protect-recent is never evicted for another
+request, which is refused instead.
 
 Limits are checked before anything is allocated. Sizes accept a unit:
 KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024).
@@ -50,12 +60,13 @@ cancelled, open streams get --stop-timeout to close, then the servers stop.`
 
 func runServe(ctx context.Context, e *env, args []string) error {
 	var cfg api.Config
-	var httpAddr string
+	var httpAddr, metricsAddr string
 	uploadBytes := byteSize(api.DefaultMaxUploadBytes)
 	memory := byteSize(api.DefaultMemoryBudget)
 	f := newFlags("serve", "residua serve [--listen 127.0.0.1:7447] [--http 127.0.0.1:7448] [limits] [--token-file F] [--tls-cert C --tls-key K]", serveAbout)
 	f.StringVar(&cfg.Listen, "listen", api.DefaultListen, "gRPC `address` to listen on")
-	f.StringVar(&httpAddr, "http", "", "also serve the watch page and /metrics on this `address` (default off)")
+	f.StringVar(&httpAddr, "http", "", "also serve the watch page and /metrics on this `address` (default off); with --token-file they need the token")
+	f.StringVar(&metricsAddr, "metrics-listen", "", "also serve /metrics alone, without the token, on this `address` for a scraper (default off; keep it on a private interface)")
 	f.Var(&uploadBytes, "max-upload-bytes", "largest matrix or vector upload in `bytes`, on the wire and after decompression")
 	f.IntVar(&cfg.MaxRows, "max-rows", api.DefaultMaxRows, "most rows (and columns) of an uploaded matrix")
 	f.Int64Var(&cfg.MaxNonzeros, "max-nonzeros", api.DefaultMaxNonzeros, "most stored entries of an uploaded matrix")
@@ -110,19 +121,47 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	fmt.Fprintf(e.stderr, "residua: serving gRPC on %s\n", lis.Addr())
 
 	var wg sync.WaitGroup
-	var httpErr error
+	var httpErr, metricsErr error
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
+	if httpAddr != "" || metricsAddr != "" {
+		m.ObserveQueue(srv.Registry().Counts)
+		m.ObserveUploads(srv.UploadBytes)
+		m.ObserveStore(srv.StoredBytes)
+	}
+	if metricsAddr != "" {
+		ml, err := net.Listen("tcp", metricsAddr)
+		if err != nil {
+			lis.Close()
+			return fmt.Errorf("serve: --metrics-listen: %w", err)
+		}
+		mux := http.NewServeMux()
+		mux.Handle("GET /metrics", m.Handler())
+		fmt.Fprintf(e.stderr, "residua: metrics on http://%s/metrics\n", ml.Addr())
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			if metricsErr = web.Serve(ctx, ml, mux, 2*time.Second); metricsErr != nil {
+				cancel() // the listener failed: stop the whole service
+			}
+		}()
+	}
 	if httpAddr != "" {
 		hl, err := net.Listen("tcp", httpAddr)
 		if err != nil {
 			lis.Close()
 			return fmt.Errorf("serve: --http: %w", err)
 		}
-		m.ObserveQueue(srv.Registry().Counts)
-		m.ObserveUploads(srv.UploadBytes)
-		m.ObserveStore(srv.StoredBytes)
-		page := web.New(web.FromRegistry(srv.Registry()), web.Options{Metrics: m})
+		var token []byte
+		if cfg.TokenFile != "" {
+			// NewServer has read it already; read it the same way.
+			if token, err = api.ReadToken(cfg.TokenFile); err != nil {
+				lis.Close()
+				hl.Close()
+				return usageErrorf("serve: %v", err)
+			}
+		}
+		page := web.New(web.FromRegistry(srv.Registry()), web.Options{Metrics: m, Token: token})
 		fmt.Fprintf(e.stderr, "residua: watch page on http://%s/\n", hl.Addr())
 		wg.Add(1)
 		go func() {
@@ -139,6 +178,9 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	wg.Wait()
 	if err == nil && httpErr != nil {
 		err = fmt.Errorf("serve: watch page: %w", httpErr)
+	}
+	if err == nil && metricsErr != nil {
+		err = fmt.Errorf("serve: metrics listener: %w", metricsErr)
 	}
 	return err
 }
