@@ -59,7 +59,7 @@ returns; follow it with 'residua watch JOB'.`
 
 // solveOpts are the flags shared by solve, lsq and demo.
 type solveOpts struct {
-	mostlyEmpty bool // --allow-mostly-empty
+	mostlyEmpty     bool // --allow-mostly-empty
 	b, x0, precond  string
 	rtol, atol      float64
 	maxIter         int
