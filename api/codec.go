@@ -43,9 +43,14 @@ func (c requestCodec) Unmarshal(data mem.BufferSlice, v any) error {
 	if !ok {
 		return c.base.Unmarshal(data, v)
 	}
-	buf := data.MaterializeToBuffer(mem.DefaultBufferPool())
-	defer buf.Free()
-	b := buf.ReadOnlyData()
+	var b []byte
+	if len(data) == 1 {
+		b = data[0].ReadOnlyData() // no copy of a message that came in one piece
+	} else {
+		buf := data.MaterializeToBuffer(mem.DefaultBufferPool())
+		defer buf.Free()
+		b = buf.ReadOnlyData()
+	}
 	if trimmed, cut := keepRefs(b, c.maxRHS+1); cut {
 		b = trimmed
 	}
