@@ -355,21 +355,6 @@ func (s *store) usage() (used, budget int64) {
 	return s.used, s.budget
 }
 
-// available reports the bytes a reservation could get now: the budget less
-// the pinned and protected items and outstanding reservations.
-func (s *store) available() int64 {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	now := s.now()
-	free := int64(0)
-	for e := s.lru.Front(); e != nil; e = e.Next() {
-		if it := e.Value.(*item); it.pins == 0 && !s.protectedLocked(it, now) {
-			free += it.bytes
-		}
-	}
-	return s.budget - (s.used - free)
-}
-
 // human formats a byte count for messages.
 func human(n int64) string {
 	const unit = 1024
