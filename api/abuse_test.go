@@ -305,7 +305,9 @@ func TestAbuseStalledUpload(t *testing.T) {
 	}
 	vs.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Metadata{Metadata: &pb.VectorMetadata{Name: "silent", Length: rows}}})
 	time.Sleep(50 * time.Millisecond)
+	h.srv.store.mu.Lock()
 	before := h.srv.store.uploading
+	h.srv.store.mu.Unlock()
 	if _, err := vs.CloseAndRecv(); status.Code(err) != codes.InvalidArgument {
 		t.Errorf("empty vector upload: %v, want INVALID_ARGUMENT", err)
 	}

@@ -2,7 +2,8 @@
 // runs solve jobs on them (conjugate gradients for SPD matrices, LSQR or
 // CGLS for least squares) through the same solve layer as a local solve
 // (package solve: so a remote solve gives bitwise the same x and the same
-// summary), and streams their progress to any number of clients. What
+// summary, except that its max_iter and time_limit_seconds echo the
+// server's ceilings where they applied), and streams their progress to any number of clients. What
 // crosses the wire (vectors, the CSR_RAW codec, the summary and progress
 // messages) is converted in package wire, shared with the client. The service is
 // defined, message by message, in proto/residua/v1/residua.proto; this
