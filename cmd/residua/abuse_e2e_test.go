@@ -8,6 +8,7 @@ import (
 	"bufio"
 	"context"
 	"fmt"
+	"net/http"
 	"os"
 	"os/exec"
 	"strconv"
@@ -67,15 +68,15 @@ func (rawBytes) Unmarshal(data mem.BufferSlice, v any) error {
 	return proto.Unmarshal(data.Materialize(), v.(proto.Message))
 }
 
-// TestAbuseResidentMemory: the bounds hold in the real server's resident
-// memory. 22 uploads of the 72-byte matrix took the server from 27 MB to
+// TestAbuseBinary: the bounds hold in the real server's resident
+// memory, and its HTTP side asks for the token. 22 uploads of the 72-byte matrix took the server from 27 MB to
 // 8.6 GB; with mostly empty matrices allowed, each is charged against the
 // budget before it is allocated; 32 requests of a million empty
 // right-hand-side references at once took 557 MB. Our bound for all of
 // it: 256 MiB of peak resident memory (the idle server takes about 30 MB;
 // the 32 requests' 2 MB bodies, held by the transport and the codec while
 // they are counted, some 130 MB more at most).
-func TestAbuseResidentMemory(t *testing.T) {
+func TestAbuseBinary(t *testing.T) {
 	if testing.Short() {
 		t.Skip("builds and runs the binary")
 	}
@@ -160,6 +161,59 @@ func TestAbuseResidentMemory(t *testing.T) {
 			t.Errorf("peak resident memory %d MiB, over our bound of %d MiB", rss>>20, bound>>20)
 		} else {
 			t.Logf("peak resident memory %d MiB", rss>>20)
+		}
+	})
+
+	t.Run("http-token", func(t *testing.T) {
+		// With --token-file the HTTP side asks for the token too; health
+		// (gRPC) stays open, and --metrics-listen serves /metrics alone,
+		// open, for a scraper.
+		token := t.TempDir() + "/token"
+		os.WriteFile(token, []byte("s3cret-for-the-test\n"), 0o600)
+		srv := startServer(t, bin, "--token-file", token, "--metrics-listen", "127.0.0.1:0")
+		var metricsAddr string
+		for _, line := range strings.Split(srv.log(), "\n") {
+			if v, ok := strings.CutPrefix(line, "residua: metrics on "); ok {
+				metricsAddr = v
+			}
+		}
+		if metricsAddr == "" {
+			t.Fatalf("no metrics address printed:\n%s", srv.log())
+		}
+		get := func(url, tok string) int {
+			t.Helper()
+			req, _ := http.NewRequest(http.MethodGet, url, nil)
+			if tok != "" {
+				req.Header.Set("Authorization", "Bearer "+tok)
+			}
+			res, err := http.DefaultClient.Do(req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			res.Body.Close()
+			return res.StatusCode
+		}
+		for _, p := range []string{"/api/jobs", "/api/jobs/j0/history", "/metrics"} {
+			if code := get("http://"+srv.web+p, ""); code != http.StatusUnauthorized {
+				t.Errorf("GET %s without the token: %d, want 401", p, code)
+			}
+			if code := get("http://"+srv.web+p, "s3cret-for-the-test"); code == http.StatusUnauthorized {
+				t.Errorf("GET %s with the token: 401", p)
+			}
+		}
+		if code := get("http://"+srv.web+"/", ""); code != http.StatusOK {
+			t.Errorf("GET / (the page shell): %d, want 200", code)
+		}
+		if code := get(metricsAddr, ""); code != http.StatusOK {
+			t.Errorf("GET %s (the scraper's listener): %d, want 200", metricsAddr, code)
+		}
+		c, err := client.Dial(ctx, srv.grpc)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer c.Close()
+		if st, err := c.Health(ctx); err != nil || st.String() != "SERVING" {
+			t.Errorf("health without the token: %v %v, want SERVING", st, err)
 		}
 	})
 
