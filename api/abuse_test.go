@@ -246,26 +246,34 @@ func csrRawStream(t *testing.T, ctx context.Context, c *client.Client, name stri
 // TestAbuseStalledUpload (finding 3): CSR_RAW metadata declaring most of
 // the budget, then silence with the stream open, used to hold the budget
 // forever and the refusal of the next upload blamed queued or running
-// jobs. Now metadata alone reserves nothing, an upload that stops sending
-// is dropped after the idle timeout, and a refusal names the upload.
+// jobs. Now an upload holds memory only as its bytes arrive (at most
+// wire.GrowAmplification times what it sent), one that stops sending is
+// dropped after the idle timeout, and a refusal names the upload.
 func TestAbuseStalledUpload(t *testing.T) {
-	const rows, nnz = 40_000, 62_500 // the upload at 1/1000 scale
+	// 4,000 rows of 75 entries (columns 0..74): 3.6 MB of CSR arrays.
+	const rows, per = 4000, 75
+	const nnz = rows * per
 	total := wire.CSRBytes(rows, nnz)
-	// The budget holds the stalled upload and the small matrix (3,976
-	// bytes), but not the second one (5,084) beside them.
-	h := startServer(t, Config{MemoryBudget: total + 8192, UploadIdleTimeout: 300 * time.Millisecond})
+	// The budget holds the small matrix (3,976 bytes) and the stalled
+	// upload, but not the second matrix (5,084 bytes) beside them.
+	h := startServer(t, Config{MemoryBudget: total + 8192, UploadIdleTimeout: time.Second})
 	c := h.dial(t)
 	ctx := context.Background()
 	small := stencil.Poisson2D(8)
+	used := func() int64 { u, _ := h.srv.store.usage(); return u }
 
-	// Metadata only: nothing is reserved, another upload goes through.
+	// Metadata and a byte: nothing is held, another upload goes through.
 	silent := csrRawStream(t, ctx, c, "silent", rows, nnz)
-	time.Sleep(50 * time.Millisecond)
-	if used, _ := h.srv.store.usage(); used != 0 {
-		t.Errorf("metadata alone reserved %d bytes", used)
+	if err := silent.Send(&pb.UploadMatrixRequest{Part: &pb.UploadMatrixRequest_Chunk{Chunk: []byte{0}}}); err != nil {
+		t.Fatal(err)
 	}
-	if _, err := c.UploadCSR(ctx, small, "small"); err != nil {
-		t.Errorf("upload beside a silent one: %v", err)
+	time.Sleep(50 * time.Millisecond)
+	if u := used(); u != 0 {
+		t.Errorf("metadata and one byte hold %d bytes", u)
+	}
+	m, err := c.UploadCSR(ctx, small, "small")
+	if err != nil {
+		t.Fatalf("upload beside a silent one: %v", err)
 	}
 	// Wait for the answer without closing the sending side (which would
 	// end the data).
@@ -273,26 +281,43 @@ func TestAbuseStalledUpload(t *testing.T) {
 		t.Errorf("silent upload: %v, want DEADLINE_EXCEEDED after the idle timeout", err)
 	}
 
-	// One byte, then silence: the upload's reservation is named in the
-	// refusal of the next one, and released at the timeout.
-	stalled := csrRawStream(t, ctx, c, "stalled", rows, nnz)
-	if err := stalled.Send(&pb.UploadMatrixRequest{Part: &pb.UploadMatrixRequest_Chunk{Chunk: []byte{0}}}); err != nil {
-		t.Fatal(err)
+	// The row pointers, the column indices and 1.5 MiB of the 2.4 MB of
+	// values (the layout of the .proto), then silence: what the upload
+	// holds stays within wire.GrowAmplification times what it sent, the
+	// refusal of the next upload names the upload in progress, and the
+	// timeout releases it.
+	var data []byte
+	for i := 0; i <= rows; i++ {
+		data = binary.LittleEndian.AppendUint64(data, uint64(per*i))
 	}
+	for range rows {
+		for j := range per {
+			data = binary.LittleEndian.AppendUint32(data, uint32(j))
+		}
+	}
+	data = append(data, make([]byte, 3<<19)...)
+	stalled := csrRawStream(t, ctx, c, "stalled", rows, nnz)
+	for b := data; len(b) > 0; b = b[min(len(b), 1<<20):] {
+		if err := stalled.Send(&pb.UploadMatrixRequest{Part: &pb.UploadMatrixRequest_Chunk{Chunk: b[:min(len(b), 1<<20)]}}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	base := m.GetBytes()
 	deadline := time.Now().Add(5 * time.Second)
-	for used, _ := h.srv.store.usage(); used < total && time.Now().Before(deadline); used, _ = h.srv.store.usage() {
+	for used() < base+total && time.Now().Before(deadline) {
 		time.Sleep(5 * time.Millisecond)
 	}
+	if u := used() - base; u > wire.GrowAmplification*int64(len(data)) {
+		t.Errorf("the stalled upload holds %d bytes for %d sent", u, len(data))
+	}
 	second := stencil.Poisson2D(9)
-	_, err := c.UploadCSR(ctx, second, "second")
-	if status.Code(err) != codes.ResourceExhausted || !strings.Contains(err.Error(), "reserved by uploads in progress") ||
-		strings.Contains(err.Error(), human(total)+" is pinned") {
-		t.Errorf("upload beside a stalled one: %v, want RESOURCE_EXHAUSTED naming the upload in progress", err)
+	_, err = c.UploadCSR(ctx, second, "second")
+	if status.Code(err) != codes.ResourceExhausted || !strings.Contains(err.Error(), human(total)+" reserved by uploads in progress") {
+		t.Errorf("upload beside a stalled one: %v, want RESOURCE_EXHAUSTED naming the upload in progress (%s)", err, human(total))
 	}
 	if err := stalled.RecvMsg(new(pb.Matrix)); status.Code(err) != codes.DeadlineExceeded {
 		t.Errorf("stalled upload: %v, want DEADLINE_EXCEEDED", err)
 	}
-	// Released: the refused upload fits now.
 	if _, err := c.UploadCSR(ctx, second, "second"); err != nil {
 		t.Errorf("upload after the stalled one timed out: %v", err)
 	}
@@ -304,15 +329,16 @@ func TestAbuseStalledUpload(t *testing.T) {
 		t.Fatal(err)
 	}
 	vs.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Metadata{Metadata: &pb.VectorMetadata{Name: "silent", Length: rows}}})
+	vs.Send(&pb.UploadVectorRequest{Part: &pb.UploadVectorRequest_Chunk{Chunk: make([]byte, 8)}})
 	time.Sleep(50 * time.Millisecond)
 	h.srv.store.mu.Lock()
-	before := h.srv.store.uploading
+	held := h.srv.store.uploading
 	h.srv.store.mu.Unlock()
-	if _, err := vs.CloseAndRecv(); status.Code(err) != codes.InvalidArgument {
-		t.Errorf("empty vector upload: %v, want INVALID_ARGUMENT", err)
+	if held > 8*rows {
+		t.Errorf("a vector upload of one entry holds %d bytes", held)
 	}
-	if before != 0 {
-		t.Errorf("vector metadata alone reserved %d bytes", before)
+	if _, err := vs.CloseAndRecv(); status.Code(err) != codes.InvalidArgument {
+		t.Errorf("short vector upload: %v, want INVALID_ARGUMENT", err)
 	}
 }
 

@@ -69,8 +69,11 @@
 // MaxRows, MaxNonzeros and matrixio.MostlyEmpty (unless
 // Config.AllowMostlyEmpty), and the matrix's cost (rows and entries:
 // triplets while parsing, then CSR) is reserved in the budget, before
-// anything is allocated. Metadata alone reserves nothing: a CSR_RAW matrix
-// or a vector is reserved when its first data arrive. The stream is read
+// anything is allocated. Metadata alone reserves nothing: a CSR_RAW
+// matrix's arrays and a vector grow as their bytes arrive
+// (wire.DecodeCSRCharged, wire.Grow), charged before each allocation, so an
+// upload holds at most wire.GrowAmplification (8) times what it sent. The
+// stream is read
 // on a goroutine of its own (the pump in upload.go) so that an upload whose
 // client sends nothing for Config.UploadIdleTimeout is dropped
 // (DEADLINE_EXCEEDED) and its reservation released. Every gzip error is

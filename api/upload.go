@@ -2,7 +2,6 @@ package api
 
 import (
 	"bufio"
-	"bytes"
 	"compress/gzip"
 	"crypto/sha256"
 	"encoding/binary"
@@ -388,10 +387,12 @@ func (s *Server) readMatrixMarket(r io.Reader, name string) (*sparse.CSR, int64,
 }
 
 // readCSRRaw reads the CSR_RAW encoding (see the .proto): sizes from the
-// metadata, checked before anything is allocated and reserved once the
-// first data byte has arrived (a client that opens an upload and sends
-// nothing holds no memory), then the three arrays (wire.DecodeCSR, whose
-// errors give the byte offset and the row).
+// metadata, checked before anything is allocated, then the three arrays
+// (wire.DecodeCSRCharged, whose errors give the byte offset and the row),
+// each grown as its bytes arrive and charged to the budget before each
+// allocation, so that an upload holds at most wire.GrowAmplification times
+// the bytes it has sent (a client that declares a huge matrix and stalls
+// holds next to nothing). It returns the bytes held, CSRBytes once done.
 func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (*sparse.CSR, int64, error) {
 	rows, cols, nnz := meta.GetRows(), meta.GetCols(), meta.GetNonzeros()
 	if rows < 0 || cols < 0 || nnz < 0 {
@@ -415,27 +416,30 @@ func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (
 	if !meta.GetGzip() && total > s.cfg.MaxUploadBytes {
 		return nil, 0, limitf("%s: the CSR arrays take %d bytes, over the server's upload limit of %d", name, total, s.cfg.MaxUploadBytes)
 	}
-	// Wait for the first byte without reading ahead (the caller drains r
-	// afterwards to refuse trailing data).
-	var first [1]byte
-	k, err := io.ReadFull(r, first[:])
-	if err != nil && err != io.EOF {
-		return nil, 0, err
+	if total > s.cfg.MemoryBudget {
+		return nil, 0, limitf("%s: the CSR arrays take %s, more than the memory budget of %s", name, human(total), human(s.cfg.MemoryBudget))
 	}
-	br := io.MultiReader(bytes.NewReader(first[:k]), r)
-	if err := s.store.reserve(total, fmt.Sprintf("matrix %s (%d×%d, %d entries)", name, rows, cols, nnz)); err != nil {
-		return nil, 0, err
+	what := fmt.Sprintf("matrix %s (%d×%d, %d entries)", name, rows, cols, nnz)
+	var held int64
+	charge := func(n int64) error {
+		if n < 0 {
+			s.store.release(-n)
+		} else if err := s.store.reserve(n, what); err != nil {
+			return err
+		}
+		s.store.noteUpload(n)
+		held += n
+		return nil
 	}
-	s.store.noteUpload(total)
-	a, err := wire.DecodeCSR(br, int(rows), int(cols), int(nnz))
+	a, err := wire.DecodeCSRCharged(r, int(rows), int(cols), int(nnz), charge)
 	if err != nil {
 		var re *wire.RawError
 		if errors.As(err, &re) {
-			return nil, total, fmt.Errorf("%w: %s: CSR_RAW %w", ErrInvalid, name, err)
+			return nil, held, fmt.Errorf("%w: %s: CSR_RAW %w", ErrInvalid, name, err)
 		}
-		return nil, total, err
+		return nil, held, err
 	}
-	return a, total, nil
+	return a, held, nil
 }
 
 // UploadVector implements the UploadVector RPC (see the .proto).
@@ -457,19 +461,29 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	if 8*n > s.cfg.MaxUploadBytes {
 		return limitf("vector of %d bytes exceeds the server's upload limit of %d bytes", 8*n, s.cfg.MaxUploadBytes)
 	}
-	// The vector is reserved and allocated when its first data arrive, so
-	// that an upload that declares a length and sends nothing holds
-	// nothing.
+	// The vector grows as its data arrive (wire.Grow), charged to the
+	// budget before each allocation, so that an upload holds at most
+	// wire.GrowAmplification times the bytes it has sent.
 	var x []float64
+	var held int64
+	what := "vector " + meta.GetName()
+	charge := func(k int64) error {
+		if k < 0 {
+			s.store.release(-k)
+		} else if err := s.store.reserve(k, what); err != nil {
+			return err
+		}
+		s.store.noteUpload(k)
+		held += k
+		return nil
+	}
 	h := sha256.New()
 	var got int64 // bytes received
 	var partial [8]byte
 	np := 0 // bytes of a split entry held in partial
 	fail := func(err error) error {
-		if x != nil {
-			s.store.release(8 * n)
-			s.store.noteUpload(-8 * n)
-		}
+		s.store.release(held)
+		s.store.noteUpload(-held)
 		s.log.Info("vector upload", "name", meta.GetName(), "outcome", "refused", "error", err.Error(), "bytes_received", got)
 		return err
 	}
@@ -489,12 +503,8 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 		if got+int64(len(b)) > 8*n {
 			return fail(invalidf("vector upload carries more than the 8·%d bytes its length declares", n))
 		}
-		if x == nil && len(b) > 0 {
-			if err := s.store.reserve(8*n, "vector "+meta.GetName()); err != nil {
-				return fail(err)
-			}
-			s.store.noteUpload(8 * n)
-			x = make([]float64, n)
+		if x, err = wire.Grow(x, int((got+int64(len(b))+7)/8), int(n), 8, charge); err != nil {
+			return fail(err)
 		}
 		h.Write(b)
 		for len(b) > 0 {
@@ -522,8 +532,7 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 		return fail(invalidf("vector upload ended after %d of the %d bytes its length declares", got, 8*n))
 	}
 	if x == nil {
-		// The empty vector: nothing to reserve.
-		x = []float64{}
+		x = []float64{} // the empty vector
 	}
 	for i, v := range x {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
@@ -532,8 +541,8 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	}
 	id := hex.EncodeToString(h.Sum(nil))
 	info := &pb.VectorInfo{Id: id, Length: n, Name: meta.GetName()}
-	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, 8*n, false, &vectorEntry{x: x, info: info}, nil)
-	s.store.noteUpload(-8 * n)
+	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, held, false, &vectorEntry{x: x, info: info}, nil)
+	s.store.noteUpload(-held)
 	s.log.Info("vector upload", "vector", id, "name", meta.GetName(), "outcome", "stored", "already_stored", existed,
 		"length", n, "duration", time.Since(start).String())
 	return stream.SendAndClose(proto.Clone(it.value.(*vectorEntry).info).(*pb.VectorInfo))

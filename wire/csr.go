@@ -123,9 +123,21 @@ var (
 // a time, into a new matrix, checking every entry as it arrives, so the
 // error names the byte offset and row of the first bad one. Data that ends
 // early is a *RawError wrapping io.ErrUnexpectedEOF. The caller checks the
-// sizes against its limits first: DecodeCSR allocates the arrays at once.
+// sizes against its limits first: DecodeCSR allocates the arrays at once
+// (see DecodeCSRCharged for a server's alternative).
 func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
-	a := &sparse.CSR{Rows: rows, Cols: cols, RowPtr: make([]int, rows+1), ColIdx: make([]int32, nnz), Val: make([]float64, nnz)}
+	return DecodeCSRCharged(r, rows, cols, nnz, nil)
+}
+
+// DecodeCSRCharged is DecodeCSR with each array grown as its bytes arrive
+// (Grow) and every allocation charged first: an error of charge ends the
+// decoding and is returned as it is. With a nil charge it allocates the
+// arrays at once. The finished matrix's arrays are exactly CSRBytes long.
+func DecodeCSRCharged(r io.Reader, rows, cols, nnz int, charge Charge) (*sparse.CSR, error) {
+	a := &sparse.CSR{Rows: rows, Cols: cols}
+	if charge == nil {
+		a.RowPtr, a.ColIdx, a.Val = make([]int, 0, rows+1), make([]int32, 0, nnz), make([]float64, 0, nnz)
+	}
 	buf := make([]byte, 1<<20)
 	var off int64
 	next := func(array string, i, count, size int) ([]byte, error) {
@@ -156,6 +168,9 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		if err != nil {
 			return nil, err
 		}
+		if a.RowPtr, err = Grow(a.RowPtr, i+len(b)/8, rows+1, 8, charge); err != nil {
+			return nil, err
+		}
 		for k := 0; len(b) >= 8; b, k = b[8:], k+1 {
 			v := int64(binary.LittleEndian.Uint64(b))
 			prev := int64(0)
@@ -175,6 +190,9 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		start := off
 		b, err := next("column indices", i, nnz, 4)
 		if err != nil {
+			return nil, err
+		}
+		if a.ColIdx, err = Grow(a.ColIdx, i+len(b)/4, nnz, 4, charge); err != nil {
 			return nil, err
 		}
 		for k := 0; len(b) >= 4; b, k = b[4:], k+1 {
@@ -197,6 +215,9 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		if err != nil {
 			return nil, err
 		}
+		if a.Val, err = Grow(a.Val, i+len(b)/8, nnz, 8, charge); err != nil {
+			return nil, err
+		}
 		for k := 0; len(b) >= 8; b, k = b[8:], k+1 {
 			for a.RowPtr[row+1] <= i {
 				row++
@@ -209,6 +230,10 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 			a.Val[i] = v
 			i++
 		}
+	}
+	// A matrix without entries has empty, not nil, arrays.
+	if a.ColIdx == nil {
+		a.ColIdx, a.Val = []int32{}, []float64{}
 	}
 	return a, nil
 }

@@ -100,8 +100,9 @@ type SolverClient interface {
 	// expected_sha256 that is not 64 hex digits (at the metadata); and
 	// DEADLINE_EXCEEDED when the client sends nothing for the server's
 	// upload idle timeout. Metadata alone reserves no memory: a CSR_RAW
-	// upload reserves its declared size when its first data arrive, a
-	// Matrix Market upload at its size line.
+	// upload's arrays grow as their bytes arrive (the server holds at most 8
+	// times what was sent), a Matrix Market upload is charged at its size
+	// line.
 	UploadMatrix(ctx context.Context, opts ...grpc.CallOption) (grpc.ClientStreamingClient[UploadMatrixRequest, Matrix], error)
 	// UploadVector stores a vector on the server for later use as a
 	// right-hand side or starting guess (see VectorRef). Chunking contract:
@@ -402,8 +403,9 @@ type SolverServer interface {
 	// expected_sha256 that is not 64 hex digits (at the metadata); and
 	// DEADLINE_EXCEEDED when the client sends nothing for the server's
 	// upload idle timeout. Metadata alone reserves no memory: a CSR_RAW
-	// upload reserves its declared size when its first data arrive, a
-	// Matrix Market upload at its size line.
+	// upload's arrays grow as their bytes arrive (the server holds at most 8
+	// times what was sent), a Matrix Market upload is charged at its size
+	// line.
 	UploadMatrix(grpc.ClientStreamingServer[UploadMatrixRequest, Matrix]) error
 	// UploadVector stores a vector on the server for later use as a
 	// right-hand side or starting guess (see VectorRef). Chunking contract:
