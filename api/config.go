@@ -22,6 +22,11 @@ const (
 	DefaultMaxJobsKept    = 1000
 	DefaultShutdownGrace  = 10 * time.Second
 	DefaultStopTimeout    = 5 * time.Second
+
+	DefaultMaxJobIterations  = 10_000_000
+	DefaultMaxJobTime        = time.Hour
+	DefaultUploadIdleTimeout = 30 * time.Second
+	DefaultProtectRecent     = 10 * time.Minute
 )
 
 // Config holds a server's settings. The zero value works: every field's
@@ -86,6 +91,33 @@ type Config struct {
 	// open streams to end) after the jobs have ended; then the server
 	// stops forcibly. Default 5 s.
 	StopTimeout time.Duration
+
+	// MaxJobIterations is the ceiling on the iterations of each right-hand
+	// side of a job: a request's max_iter (or its default, 10·n) above it
+	// is lowered to it, never raised. The ceiling in force is echoed in
+	// the job's accepted event. Default 10,000,000 (our own choice: about
+	// ten seconds of a 5×5 system's iterations; a preconditioned solve of
+	// the largest matrix the default limits admit needs far fewer).
+	MaxJobIterations int
+	// MaxJobTime is the ceiling on a job's wall time, its right-hand sides
+	// together: each one's time_limit is lowered to what remains of it, so
+	// a job ends with the time-limit outcome at the latest this long after
+	// it starts iterating. Default 1 h.
+	MaxJobTime time.Duration
+	// UploadIdleTimeout ends an upload whose client sends nothing for this
+	// long (DEADLINE_EXCEEDED), releasing what it reserved. Default 30 s.
+	UploadIdleTimeout time.Duration
+	// ProtectRecent is the fairness rule's window: a matrix, vector or
+	// kept solution used within it is not evicted to make room for another
+	// request, which is refused with RESOURCE_EXHAUSTED instead. Default
+	// 10 min.
+	ProtectRecent time.Duration
+	// AllowMostlyEmpty accepts matrices whose dimensions dwarf their
+	// entries (matrixio.MostlyEmpty: more than half the rows or columns
+	// necessarily empty). By default they are refused at the size line or
+	// metadata with INVALID_ARGUMENT, because their row pointers cost 8
+	// bytes a row however short the upload.
+	AllowMostlyEmpty bool
 }
 
 // withDefaults returns c with zero fields replaced by their defaults, or an
@@ -109,6 +141,8 @@ func (c Config) withDefaults() (Config, error) {
 		{"MaxConcurrentSolves", int64(c.MaxConcurrentSolves)}, {"MaxQueued", int64(c.MaxQueued)},
 		{"MemoryBudget", c.MemoryBudget}, {"MaxJobsKept", int64(c.MaxJobsKept)},
 		{"ShutdownGrace", int64(c.ShutdownGrace)}, {"StopTimeout", int64(c.StopTimeout)},
+		{"MaxJobIterations", int64(c.MaxJobIterations)}, {"MaxJobTime", int64(c.MaxJobTime)},
+		{"UploadIdleTimeout", int64(c.UploadIdleTimeout)}, {"ProtectRecent", int64(c.ProtectRecent)},
 	} {
 		if err := neg(f.name, f.v); err != nil {
 			return c, err
@@ -137,6 +171,15 @@ func (c Config) withDefaults() (Config, error) {
 	}
 	if c.StopTimeout == 0 {
 		c.StopTimeout = DefaultStopTimeout
+	}
+	defInt(&c.MaxJobIterations, DefaultMaxJobIterations)
+	for _, d := range []struct {
+		v *time.Duration
+		d time.Duration
+	}{{&c.MaxJobTime, DefaultMaxJobTime}, {&c.UploadIdleTimeout, DefaultUploadIdleTimeout}, {&c.ProtectRecent, DefaultProtectRecent}} {
+		if *d.v == 0 {
+			*d.v = d.d
+		}
 	}
 	if c.Logger == nil {
 		c.Logger = slog.Default()

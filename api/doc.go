@@ -2,7 +2,8 @@
 // runs solve jobs on them (conjugate gradients for SPD matrices, LSQR or
 // CGLS for least squares) through the same solve layer as a local solve
 // (package solve: so a remote solve gives bitwise the same x and the same
-// summary), and streams their progress to any number of clients. What
+// summary, except that its max_iter and time_limit_seconds echo the
+// server's ceilings where they applied), and streams their progress to any number of clients. What
 // crosses the wire (vectors, the CSR_RAW codec, the summary and progress
 // messages) is converted in package wire, shared with the client. The service is
 // defined, message by message, in proto/residua/v1/residua.proto; this
@@ -40,9 +41,23 @@
 // allocation it stands for; idle items are evicted least recently used
 // first to make room, and an item a queued or running job uses is pinned,
 // through a handle that releases its pin once, and never evicted.
-// Preconditioner set-ups are cached by (matrix id, preconditioner) in
-// precache.go: the second solve on a matrix skips the set-up and its
-// accepted event says so.
+// The fairness rule: a matrix, vector or kept solution used within
+// Config.ProtectRecent (10 min) is not evicted for anyone else's request,
+// which is refused with RESOURCE_EXHAUSTED instead, its message naming
+// what holds the budget (pinned by jobs, reserved by uploads in progress
+// or by set-ups, recently used). Preconditioner set-ups are cached by
+// (matrix id, preconditioner) in precache.go: the second solve on a matrix
+// skips the set-up and its accepted event says so; a job runs the cached
+// set-up with its own request's settings.
+//
+// # Ceilings
+//
+// Each right-hand side's iterations are capped at Config.MaxJobIterations
+// and a job's wall time at Config.MaxJobTime (run.go); a request's
+// max_iter and time_limit lower them, never raise them, and the accepted
+// event echoes them. A SolveRequest's references are counted in its wire
+// bytes before they are decoded (codec.go), so a request of a million
+// empty references costs its 2 MB and no more.
 //
 // # Uploads
 //
@@ -51,8 +66,19 @@
 // being built, never the whole text. Bytes are counted as they arrive and
 // the upload is refused as soon as they pass Config.MaxUploadBytes; the
 // Matrix Market size line (or the CSR_RAW metadata) is checked against
-// MaxRows, MaxNonzeros and the memory that could be freed before anything
-// is allocated. A matrix's id is the SHA-256 of its dimensions and CSR
+// MaxRows, MaxNonzeros and matrixio.MostlyEmpty (unless
+// Config.AllowMostlyEmpty), and the matrix's cost (rows and entries:
+// triplets while parsing, then CSR) is reserved in the budget, before
+// anything is allocated. Metadata alone reserves nothing: a CSR_RAW
+// matrix's arrays and a vector grow as their bytes arrive
+// (wire.DecodeCSRCharged, wire.Grow), charged before each allocation, so an
+// upload holds at most wire.GrowAmplification (8) times what it sent. The
+// stream is read
+// on a goroutine of its own (the pump in upload.go) so that an upload whose
+// client sends nothing for Config.UploadIdleTimeout is dropped
+// (DEADLINE_EXCEEDED) and its reservation released. Every gzip error is
+// INVALID_ARGUMENT, and a malformed expected_sha256 is refused at the
+// metadata. A matrix's id is the SHA-256 of its dimensions and CSR
 // arrays, so the same matrix is stored once.
 //
 // # Errors

@@ -35,6 +35,8 @@ var (
 	ErrUnauthenticated = errors.New("unauthenticated")
 	// ErrShuttingDown: the server is shutting down and takes no new work.
 	ErrShuttingDown = errors.New("server is shutting down")
+	// ErrStalled: an upload's client sent nothing for the idle timeout.
+	ErrStalled = errors.New("upload stalled")
 	// ErrPanic: the server caught a panic; a log line has the details.
 	ErrPanic = errors.New("internal error (a panic, logged by the server)")
 )
@@ -54,7 +56,7 @@ func Status(err error) error {
 	switch {
 	case errors.Is(err, context.Canceled):
 		code = codes.Canceled
-	case errors.Is(err, context.DeadlineExceeded):
+	case errors.Is(err, context.DeadlineExceeded), errors.Is(err, ErrStalled):
 		code = codes.DeadlineExceeded
 	case errors.Is(err, ErrUnauthenticated):
 		code = codes.Unauthenticated

@@ -90,7 +90,7 @@ func (s *Server) follow(ctx context.Context, j *job, sub *Subscription, stream i
 		if err := stream.Send(ev); err != nil {
 			return err
 		}
-		if res := ev.GetResult(); res != nil && withSolutions && res.GetStatus() != string(solve.SetupFailed) {
+		if res := ev.GetResult(); res != nil && withSolutions && j.hasSolution(int(res.GetRhs())) {
 			x, err := j.solution(int(res.GetRhs()))
 			if err != nil {
 				return err

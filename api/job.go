@@ -215,6 +215,17 @@ func (j *job) solution(rhs int) ([]float64, error) {
 	return j.solutions[rhs], nil
 }
 
+// hasSolution reports whether a result of right-hand side rhs comes with
+// a solution to send: false for the result of a job that failed before
+// iterating (its set-up failed or was refused memory), whose one result
+// carries no x. When the solutions were dropped it reports true, so that
+// solution says why they are gone.
+func (j *job) hasSolution(rhs int) bool {
+	j.mu.Lock()
+	defer j.mu.Unlock()
+	return j.solutions == nil || rhs < 0 || rhs >= len(j.solutions) || j.solutions[rhs] != nil
+}
+
 // dropSolutions lets go of the job's solutions, saying why.
 func (j *job) dropSolutions(why string) {
 	j.mu.Lock()

@@ -12,6 +12,7 @@ import (
 	"strings"
 	"sync/atomic"
 	"testing"
+	"time"
 
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
@@ -236,11 +237,13 @@ func TestNotSPD(t *testing.T) {
 }
 
 // TestMemoryBudget: idle matrices are evicted least recently used first;
-// a matrix in use is never evicted.
+// a matrix in use is never evicted. The fairness window is a nanosecond
+// here, so that every idle matrix may go (TestAbuseEvictionFairness tests
+// the window itself).
 func TestMemoryBudget(t *testing.T) {
 	a := stencil.Poisson2D(40) // 1600 rows, 7840 entries: 12·7840 + 8·1601 = 106,888 bytes
 	size := wire.CSRBytes(int64(a.Rows), int64(a.NNZ()))
-	h := startServer(t, Config{MemoryBudget: 2*size + size/2})
+	h := startServer(t, Config{MemoryBudget: 2*size + size/2, ProtectRecent: time.Nanosecond})
 	c := h.dial(t)
 	ctx := context.Background()
 	m1, err := c.UploadCSR(ctx, a, "first")

@@ -104,8 +104,13 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	if nrhs == 0 {
 		return nil, nil, invalidf("the request has no right-hand side")
 	}
+	// Past the limit the codec decodes only the first MaxRHS+1 references
+	// (codec.go), so the count is "more than", not the number sent.
 	if nrhs > s.cfg.MaxRHS {
-		return nil, nil, limitf("%d right-hand sides exceed the server's limit of %d per request", nrhs, s.cfg.MaxRHS)
+		return nil, nil, limitf("more right-hand sides than the server's limit of %d per request", s.cfg.MaxRHS)
+	}
+	if len(req.GetX0()) > s.cfg.MaxRHS {
+		return nil, nil, limitf("more starting guesses than the server's limit of %d per request", s.cfg.MaxRHS)
 	}
 	if nx := len(req.GetX0()); nx != 0 && nx != 1 && nx != nrhs {
 		return nil, nil, invalidf("%d starting guesses for %d right-hand sides (give none, one, or one each)", nx, nrhs)

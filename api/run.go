@@ -51,6 +51,7 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 		PreconditionerReason: base.PreconditionerReason, FromCache: fromCache,
 		SetupSeconds: float64(base.SetupSeconds), PreconditionerBytes: setup.Bytes(),
 		RhsCount: int32(len(p.rhs)), Detached: j.info.GetDetached(),
+		MaxIterCeiling: int64(s.cfg.MaxJobIterations), TimeCeilingSeconds: s.cfg.MaxJobTime.Seconds(),
 	}
 	if c := setup.Choice; c != nil {
 		acc.Shift, acc.Tries = c.Shift, int32(c.Tries)
@@ -60,11 +61,24 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 		"rhs", len(p.rhs), "method", base.Method, "preconditioner", base.Preconditioner, "reason", base.PreconditionerReason,
 		"from_cache", fromCache, "setup", time.Duration(float64(base.SetupSeconds)*1e9).String(), "queued_for", start.Sub(j.created).String())
 
+	// The set-up may come from the cache, built for another request: this
+	// job's own settings go with it, under the server's ceilings.
+	run := *setup
+	run.Request = p.req
+	run.Request.MaxIter = s.capIterations(p.req, p.m.a.Rows, p.m.a.Cols)
+	iterating := time.Now()
 	outcomes := make([]solve.Outcome, 0, len(p.rhs))
 	for i, b := range p.rhs {
 		x := make([]float64, p.m.a.Cols)
 		rec := &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
-		sum, solveErr := setup.Solve(j.ctx, b, p.x0[i], x, rec)
+		// What remains of the job's time ceiling (at least a nanosecond:
+		// zero would mean no limit) bounds this right-hand side's.
+		left := max(s.cfg.MaxJobTime-time.Since(iterating), time.Nanosecond)
+		run.Request.TimeLimit = left
+		if t := p.req.TimeLimit; t > 0 && t < left {
+			run.Request.TimeLimit = t
+		}
+		sum, solveErr := run.Solve(j.ctx, b, p.x0[i], x, rec)
 		sum.RHSIndex, sum.MatrixID, sum.FromCache = i, p.matrixID, &fromCache
 		j.deliver(i, x, wire.Result(&sum))
 		if s.obs != nil {
@@ -88,4 +102,27 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 		outcomes = append(outcomes, o)
 	}
 	return solve.JobOutcome(outcomes, ""), nil
+}
+
+// capIterations returns the iteration cap of a right-hand side: the
+// request's max_iter, or the method's default when it is 0, lowered to the
+// server's ceiling. The defaults are krylov's (Settings.MaxIter, 10·n for
+// conjugate gradients; LSQSettings.MaxIter, 10·min(m, n) undamped and 10·n
+// damped for least squares); 0 is returned when the default stands.
+func (s *Server) capIterations(r solve.Request, rows, cols int) int {
+	ceiling := s.cfg.MaxJobIterations
+	if r.MaxIter > 0 {
+		return min(r.MaxIter, ceiling)
+	}
+	def := 10 * rows
+	if r.LeastSquares {
+		def = 10 * cols
+		if r.Damp == 0 {
+			def = 10 * min(rows, cols)
+		}
+	}
+	if max(def, 1) > ceiling {
+		return ceiling
+	}
+	return 0
 }

@@ -88,20 +88,15 @@ func NewServer(cfg Config) (*Server, error) {
 	s := &Server{
 		cfg:      cfg,
 		log:      cfg.Logger,
-		store:    newStore(cfg.MemoryBudget),
+		store:    newStore(cfg.MemoryBudget, cfg.ProtectRecent),
 		building: make(map[key]*setupEntry),
 		obs:      cfg.Observer,
 	}
 	s.jobs = newRegistry(cfg.Logger, cfg.Observer, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
 	s.jobs.onForget = s.forgetJob
 	if cfg.TokenFile != "" {
-		raw, err := os.ReadFile(cfg.TokenFile)
-		if err != nil {
-			return nil, fmt.Errorf("api: reading the token file: %w", err)
-		}
-		s.token = bytes.TrimSpace(raw)
-		if len(s.token) == 0 {
-			return nil, fmt.Errorf("api: token file %s is empty", cfg.TokenFile)
+		if s.token, err = ReadToken(cfg.TokenFile); err != nil {
+			return nil, err
 		}
 	}
 	opts := []grpc.ServerOption{
@@ -115,6 +110,7 @@ func NewServer(cfg Config) (*Server, error) {
 		}),
 		grpc.InitialWindowSize(streamWindow),
 		grpc.InitialConnWindowSize(connWindow),
+		grpc.ForceServerCodecV2(newRequestCodec(cfg.MaxRHS)),
 		grpc.ChainUnaryInterceptor(s.unaryInterceptor),
 		grpc.ChainStreamInterceptor(s.streamInterceptor),
 	}
@@ -135,6 +131,21 @@ func NewServer(cfg Config) (*Server, error) {
 	s.health.SetServingStatus(pb.Solver_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	reflection.Register(s.grpc)
 	return s, nil
+}
+
+// ReadToken reads a token file as the server does: its content with the
+// surrounding white space trimmed, which must not be empty. The watch page
+// (package web) takes the same token from it.
+func ReadToken(path string) ([]byte, error) {
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("api: reading the token file: %w", err)
+	}
+	tok := bytes.TrimSpace(raw)
+	if len(tok) == 0 {
+		return nil, fmt.Errorf("api: token file %s is empty", path)
+	}
+	return tok, nil
 }
 
 // Registry returns the server's job registry, for other front ends (the
@@ -184,7 +195,10 @@ func (s *Server) ListenAndServe(ctx context.Context) error {
 func (s *Server) Serve(ctx context.Context, lis net.Listener) error {
 	s.log.Info("serving", "address", lis.Addr().String(), "tls", s.cfg.TLSCert != "", "auth", s.token != nil,
 		"max_concurrent_solves", s.cfg.MaxConcurrentSolves, "max_queued", s.cfg.MaxQueued,
-		"memory_budget_bytes", s.cfg.MemoryBudget, "max_upload_bytes", s.cfg.MaxUploadBytes)
+		"memory_budget_bytes", s.cfg.MemoryBudget, "max_upload_bytes", s.cfg.MaxUploadBytes,
+		"max_job_iterations", s.cfg.MaxJobIterations, "max_job_time", s.cfg.MaxJobTime.String(),
+		"upload_idle_timeout", s.cfg.UploadIdleTimeout.String(), "protect_recent", s.cfg.ProtectRecent.String(),
+		"allow_mostly_empty", s.cfg.AllowMostlyEmpty)
 	serveErr := make(chan error, 1)
 	go func() { serveErr <- s.grpc.Serve(lis) }()
 	var err error

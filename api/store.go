@@ -4,6 +4,7 @@ import (
 	"container/list"
 	"fmt"
 	"sync"
+	"time"
 )
 
 // kind says what a store item holds; with an id (and, for a
@@ -36,8 +37,17 @@ type key struct {
 // reservation becomes an item (insert) or is given back (release). Pins are
 // handles: acquire and insert return a *pin, and Release gives it back,
 // once, however often it is called.
+//
+// The fairness rule: a matrix, vector or kept solution used (uploaded,
+// solved with, downloaded) within the last protect is not evicted to make
+// room for anything; the reservation is refused with ErrLimit instead, so
+// one client's upload cannot push out the matrix another client is working
+// with. Cached preconditioners and transposes can be rebuilt from their
+// matrix, so they are evicted whenever idle.
 type store struct {
-	budget int64
+	budget  int64
+	protect time.Duration
+	now     func() time.Time
 
 	mu sync.Mutex // guards everything below and every item's fields
 	// used counts the bytes of all items plus outstanding reservations.
@@ -45,6 +55,9 @@ type store struct {
 	items map[key]*item
 	// lru orders the items, most recently used at the front.
 	lru list.List
+	// uploading counts the part of used reserved by uploads in progress
+	// (noteUpload), for the refusal message.
+	uploading int64
 }
 
 // item is one accounted allocation. Its fields are guarded by store.mu,
@@ -55,6 +68,9 @@ type item struct {
 	pins  int
 	elem  *list.Element
 	value any
+	// last is when the item was last used (inserted, acquired, touched or
+	// released).
+	last time.Time
 	// onEvict, if set, runs (without store.mu held) after the item was
 	// evicted to make room or deleted, to drop references to its memory.
 	onEvict func()
@@ -78,15 +94,16 @@ func (p *pin) Release() {
 	p.once.Do(func() { p.s.unpin(p.it, p.drop) })
 }
 
-func newStore(budget int64) *store {
-	s := &store{budget: budget, items: make(map[key]*item)}
+func newStore(budget int64, protect time.Duration) *store {
+	s := &store{budget: budget, protect: protect, now: time.Now, items: make(map[key]*item)}
 	s.lru.Init()
 	return s
 }
 
-// reserve sets aside n bytes, evicting idle items as needed. It fails with
-// ErrLimit, evicting nothing, when the budget cannot hold n bytes even with
-// every idle item evicted.
+// reserve sets aside n bytes, evicting idle items as needed (never a
+// protected one, see the fairness rule on store). It fails with ErrLimit,
+// evicting nothing, when the budget cannot hold n bytes even with every
+// evictable item evicted; the error says what holds the memory.
 func (s *store) reserve(n int64, what string) error {
 	var evicted []*item
 	s.mu.Lock()
@@ -95,21 +112,31 @@ func (s *store) reserve(n int64, what string) error {
 		return limitf("%s needs %s, more than the memory budget of %s", what, human(n), human(s.budget))
 	}
 	if s.used+n > s.budget {
-		var idle int64
+		now := s.now()
+		var free, pinned, recent, items int64
 		for e := s.lru.Back(); e != nil; e = e.Prev() {
-			if it := e.Value.(*item); it.pins == 0 {
-				idle += it.bytes
+			it := e.Value.(*item)
+			items += it.bytes
+			switch {
+			case it.pins > 0:
+				pinned += it.bytes
+			case s.protectedLocked(it, now):
+				recent += it.bytes
+			default:
+				free += it.bytes
 			}
 		}
-		if s.used-idle+n > s.budget {
-			pinned := s.used - idle
+		if s.used-free+n > s.budget {
+			other := s.used - items - s.uploading
 			s.mu.Unlock()
-			return limitf("%s needs %s, but %s of the %s memory budget is in use by queued or running jobs",
-				what, human(n), human(pinned), human(s.budget))
+			return limitf("%s needs %s, but of the %s memory budget %s is pinned by queued or running jobs, "+
+				"%s reserved by uploads in progress, %s reserved by jobs being set up, and %s held by matrices, vectors "+
+				"or solutions used within the last %v (not evicted for anyone else's request)",
+				what, human(n), human(s.budget), human(pinned), human(s.uploading), human(other), human(recent), s.protect)
 		}
 		for e := s.lru.Back(); e != nil && s.used+n > s.budget; {
 			prev := e.Prev()
-			if it := e.Value.(*item); it.pins == 0 {
+			if it := e.Value.(*item); it.pins == 0 && !s.protectedLocked(it, now) {
 				s.removeLocked(it)
 				evicted = append(evicted, it)
 			}
@@ -124,6 +151,24 @@ func (s *store) reserve(n int64, what string) error {
 		}
 	}
 	return nil
+}
+
+// protectedLocked reports whether the fairness rule keeps it from
+// eviction. s.mu must be held.
+func (s *store) protectedLocked(it *item, now time.Time) bool {
+	switch it.key.kind {
+	case kindMatrix, kindVector, kindJob:
+		return now.Sub(it.last) < s.protect
+	}
+	return false
+}
+
+// noteUpload records that n bytes of the reservations (negative: n bytes
+// fewer) belong to an upload in progress, so that a refusal can name it.
+func (s *store) noteUpload(n int64) {
+	s.mu.Lock()
+	s.uploading += n
+	s.mu.Unlock()
 }
 
 // release gives back a reservation that did not become an item.
@@ -143,9 +188,10 @@ func (s *store) insert(k key, n int64, pinned bool, value any, onEvict func()) (
 	if old, ok := s.items[k]; ok {
 		s.used -= n
 		s.lru.MoveToFront(old.elem)
+		old.last = s.now()
 		return old, s.pinLocked(old, pinned, false), true
 	}
-	it = &item{key: k, bytes: n, value: value, onEvict: onEvict}
+	it = &item{key: k, bytes: n, value: value, onEvict: onEvict, last: s.now()}
 	it.elem = s.lru.PushFront(it)
 	s.items[k] = it
 	return it, s.pinLocked(it, pinned, false), false
@@ -157,7 +203,7 @@ func (s *store) insert(k key, n int64, pinned bool, value any, onEvict func()) (
 func (s *store) insertDropping(k key, n int64, pins int, value any, onEvict func()) (*item, []*pin) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	it := &item{key: k, bytes: n, value: value, onEvict: onEvict}
+	it := &item{key: k, bytes: n, value: value, onEvict: onEvict, last: s.now()}
 	it.elem = s.lru.PushFront(it)
 	s.items[k] = it
 	ps := make([]*pin, pins)
@@ -184,6 +230,7 @@ func (s *store) acquire(k key) (*item, *pin, bool) {
 		return nil, nil, false
 	}
 	s.lru.MoveToFront(it.elem)
+	it.last = s.now()
 	return it, s.pinLocked(it, true, false), true
 }
 
@@ -194,6 +241,7 @@ func (s *store) touch(k key) (*item, bool) {
 	it, ok := s.items[k]
 	if ok {
 		s.lru.MoveToFront(it.elem)
+		it.last = s.now()
 	}
 	return it, ok
 }
@@ -206,6 +254,7 @@ func (s *store) unpin(it *item, drop bool) {
 		panic(fmt.Sprintf("api: unpin of unpinned item %v", it.key))
 	}
 	it.pins--
+	it.last = s.now()
 	if drop && it.pins == 0 && s.items[it.key] == it {
 		s.removeLocked(it)
 	}
@@ -304,20 +353,6 @@ func (s *store) usage() (used, budget int64) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.used, s.budget
-}
-
-// available reports the bytes a reservation could get now: the budget less
-// the pinned items and outstanding reservations.
-func (s *store) available() int64 {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	idle := int64(0)
-	for e := s.lru.Front(); e != nil; e = e.Next() {
-		if it := e.Value.(*item); it.pins == 0 {
-			idle += it.bytes
-		}
-	}
-	return s.budget - (s.used - idle)
 }
 
 // human formats a byte count for messages.

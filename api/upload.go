@@ -74,6 +74,100 @@ func (c *chunkReader) Read(p []byte) (int, error) {
 	return n, nil
 }
 
+// received is one stream message, or the error that ended the stream.
+type received[M any] struct {
+	m   M
+	err error
+}
+
+// pump receives an upload stream's messages on a goroutine of its own, so
+// that the handler can stop waiting for a client that sends nothing: a
+// stream's Recv cannot be interrupted, but the handler can return, which
+// ends the stream and so the pending Recv. The goroutine holds at most one
+// message beyond what the handler took, and ends at the stream's end or
+// error, or when the handler has returned (stop) and the stream closes.
+type pump[M any] struct {
+	ch   chan received[M]
+	done chan struct{}
+	idle time.Duration
+	t    *time.Timer
+}
+
+func newPump[M any](recv func() (M, error), idle time.Duration) *pump[M] {
+	p := &pump[M]{ch: make(chan received[M]), done: make(chan struct{}), idle: idle}
+	go func() {
+		for {
+			m, err := recv()
+			select {
+			case p.ch <- received[M]{m, err}:
+			case <-p.done:
+				return
+			}
+			if err != nil {
+				return
+			}
+		}
+	}()
+	return p
+}
+
+// next returns the next message, or ErrStalled when none comes within the
+// idle timeout.
+func (p *pump[M]) next() (M, error) {
+	if p.t == nil {
+		p.t = time.NewTimer(p.idle)
+	} else {
+		p.t.Reset(p.idle)
+	}
+	select {
+	case r := <-p.ch:
+		p.t.Stop()
+		return r.m, r.err
+	case <-p.t.C:
+		var zero M
+		return zero, fmt.Errorf("%w: the client sent nothing for %v (the server's upload idle timeout, serve --upload-idle-timeout); "+
+			"the upload is dropped and what it reserved released", ErrStalled, p.idle)
+	}
+}
+
+// stop lets the goroutine go; call it when the handler returns.
+func (p *pump[M]) stop() {
+	close(p.done)
+	if p.t != nil {
+		p.t.Stop()
+	}
+}
+
+// gzipReader marks every read error of the decompressor that is not the
+// stream's own as invalid input: whatever is wrong with gzip data (empty,
+// truncated, corrupt, bad checksum) is the client's to fix.
+type gzipReader struct {
+	r  io.Reader
+	cr *chunkReader
+}
+
+func (g gzipReader) Read(p []byte) (int, error) {
+	n, err := g.r.Read(p)
+	if err != nil && err != io.EOF && err != g.cr.recvErr {
+		err = fmt.Errorf("%w: gzip data: %w", ErrInvalid, err)
+	}
+	return n, err
+}
+
+// checkSHA256 refuses an expected_sha256 that is not 64 hex digits.
+func checkSHA256(name, want string) error {
+	if want == "" {
+		return nil
+	}
+	if len(want) != 2*sha256.Size {
+		return invalidf("%s: expected_sha256 has %d characters; a SHA-256 is 64 hex digits", name, len(want))
+	}
+	if _, err := hex.DecodeString(want); err != nil {
+		return invalidf("%s: expected_sha256 %q is not hex: %v", name, want, err)
+	}
+	return nil
+}
+
 // maxTrailing bounds the white space accepted after a matrix, so that a
 // compressed stream of blanks cannot keep the server reading.
 const maxTrailing = 1 << 20
@@ -121,7 +215,9 @@ func recvMetadata[M any, T any](s *Server, recv func() (M, error), meta func(M) 
 // UploadMatrix implements the UploadMatrix RPC (see the .proto).
 func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	start := time.Now()
-	meta, err := recvMetadata(s, stream.Recv, (*pb.UploadMatrixRequest).GetMetadata, "matrix upload")
+	pm := newPump(stream.Recv, s.cfg.UploadIdleTimeout)
+	defer pm.stop()
+	meta, err := recvMetadata(s, pm.next, (*pb.UploadMatrixRequest).GetMetadata, "matrix upload")
 	if err != nil {
 		return err
 	}
@@ -132,12 +228,15 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	if meta.GetTotalBytes() > s.cfg.MaxUploadBytes {
 		return limitf("%s: upload of %d bytes exceeds the server's limit of %d bytes", name, meta.GetTotalBytes(), s.cfg.MaxUploadBytes)
 	}
+	if err := checkSHA256(name, meta.GetExpectedSha256()); err != nil {
+		return err
+	}
 	cr := &chunkReader{limit: s.cfg.MaxUploadBytes, count: &s.uploaded}
 	if meta.GetExpectedSha256() != "" {
 		cr.hash = sha256.New()
 	}
 	cr.recv = func() ([]byte, error) {
-		req, err := stream.Recv()
+		req, err := pm.next()
 		if err != nil {
 			return nil, err
 		}
@@ -150,10 +249,13 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	if meta.GetGzip() {
 		zr, err := gzip.NewReader(bufio.NewReaderSize(cr, 64<<10))
 		if err != nil {
-			return s.uploadFailed(name, cr, start, fmt.Errorf("%s: not gzip data: %w", name, orRecv(cr, err)))
+			if cr.recvErr == nil {
+				err = fmt.Errorf("%w: %s: not gzip data: %w", ErrInvalid, name, err)
+			}
+			return s.uploadFailed(name, cr, start, orRecv(cr, err))
 		}
 		zr.Multistream(true)
-		r = zr
+		r = gzipReader{r: zr, cr: cr}
 	}
 
 	var a *sparse.CSR
@@ -178,6 +280,7 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	}
 	if err != nil {
 		s.store.release(reserved)
+		s.store.noteUpload(-reserved)
 		return s.uploadFailed(name, cr, start, orRecv(cr, err))
 	}
 
@@ -198,6 +301,7 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 	id := <-idc
 	e.info.Id = id
 	it, _, existed := s.store.insert(key{kind: kindMatrix, id: id}, reserved, false, e, func() { s.matrixEvicted(id) })
+	s.store.noteUpload(-reserved)
 	out := cloneMatrix(it.value.(*matrixEntry).info)
 	out.AlreadyStored = existed
 	out.UploadSeconds = time.Since(start).Seconds()
@@ -224,42 +328,71 @@ func (s *Server) uploadFailed(name string, cr *chunkReader, start time.Time, err
 }
 
 // readMatrixMarket parses Matrix Market text with the server's limits
-// checked against the size line before matrixio allocates, then reserves
-// the matrix's memory. It returns the bytes reserved.
+// checked against the size line, and the matrix's cost reserved in the
+// memory budget there, before matrixio allocates anything for it. It
+// returns the bytes reserved, which the caller releases or turns into the
+// stored matrix (noted as an upload's until then).
 func (s *Server) readMatrixMarket(r io.Reader, name string) (*sparse.CSR, int64, error) {
-	// The entries a matrix of the free memory could hold at 12 bytes each:
-	// a size line claiming more cannot be stored, so it is refused before
-	// the parser allocates for it.
-	avail := s.store.available()
-	maxEntries := min(s.cfg.MaxNonzeros, avail/12)
-	opt := &matrixio.Options{Limits: matrixio.Limits{
-		MaxRows: s.cfg.MaxRows, MaxCols: s.cfg.MaxRows,
-		MaxEntries: int(maxEntries), MaxBytes: s.cfg.MaxUploadBytes,
-	}}
-	a, _, err := matrixio.ReadMatrix(r, opt)
-	if err != nil {
+	var reserved int64
+	opt := &matrixio.Options{
+		Limits: matrixio.Limits{
+			MaxRows: s.cfg.MaxRows, MaxCols: s.cfg.MaxRows,
+			MaxEntries: int(s.cfg.MaxNonzeros), MaxBytes: s.cfg.MaxUploadBytes,
+			RefuseMostlyEmpty: !s.cfg.AllowMostlyEmpty,
+		},
+		// The cost of a matrix is what the reader holds at its peak: the
+		// triplets as parsed (16 bytes an entry: two int32 indices and a
+		// float64) and the CSR arrays built from them (wire.CSRBytes of
+		// the entries after symmetric expansion, 8 bytes a row for the
+		// row pointers however few the entries).
+		Admit: func(sz matrixio.Size) error {
+			if int64(sz.Stored) > s.cfg.MaxNonzeros {
+				return limitf("%d stored entries after symmetric expansion would exceed the server's limit of %d", sz.Stored, s.cfg.MaxNonzeros)
+			}
+			n := 16*int64(sz.Entries) + wire.CSRBytes(int64(sz.Rows), int64(sz.Stored))
+			if err := s.store.reserve(n, fmt.Sprintf("matrix %s (%d×%d, %d entries)", name, sz.Rows, sz.Cols, sz.Entries)); err != nil {
+				return err
+			}
+			s.store.noteUpload(n)
+			reserved = n
+			return nil
+		},
+	}
+	fail := func(err error) (*sparse.CSR, int64, error) {
 		var pe *matrixio.ParseError
 		if errors.As(err, &pe) && pe.File == "" {
 			pe.File = name
 		}
-		if errors.Is(err, matrixio.ErrLimit) && maxEntries < s.cfg.MaxNonzeros {
-			return nil, 0, fmt.Errorf("%w (the memory budget has room for %d entries now)", err, maxEntries)
+		if errors.Is(err, matrixio.ErrMostlyEmpty) {
+			err = fmt.Errorf("%w: %w (the server was started without --allow-mostly-empty)", ErrInvalid, err)
 		}
-		return nil, 0, err
+		return nil, reserved, err
+	}
+	a, _, err := matrixio.ReadMatrix(r, opt)
+	if err != nil {
+		return fail(err)
 	}
 	if int64(a.NNZ()) > s.cfg.MaxNonzeros {
-		return nil, 0, limitf("%s: %d stored entries after symmetric expansion exceed the server's limit of %d", name, a.NNZ(), s.cfg.MaxNonzeros)
+		return fail(limitf("%s: %d stored entries after symmetric expansion exceed the server's limit of %d", name, a.NNZ(), s.cfg.MaxNonzeros))
 	}
+	// Keep what the stored matrix takes; give back the parse's share.
 	n := wire.CSRBytes(int64(a.Rows), int64(a.NNZ()))
-	if err := s.store.reserve(n, "matrix "+name); err != nil {
-		return nil, 0, err
+	if n > reserved {
+		// Admit reserved an upper bound; this cannot happen.
+		return fail(fmt.Errorf("api: matrix %s takes %d bytes, over the %d reserved", name, n, reserved))
 	}
+	s.store.release(reserved - n)
+	s.store.noteUpload(n - reserved)
 	return a, n, nil
 }
 
 // readCSRRaw reads the CSR_RAW encoding (see the .proto): sizes from the
-// metadata, checked and reserved before allocating, then the three arrays
-// (wire.DecodeCSR, whose errors give the byte offset and the row).
+// metadata, checked before anything is allocated, then the three arrays
+// (wire.DecodeCSRCharged, whose errors give the byte offset and the row),
+// each grown as its bytes arrive and charged to the budget before each
+// allocation, so that an upload holds at most wire.GrowAmplification times
+// the bytes it has sent (a client that declares a huge matrix and stalls
+// holds next to nothing). It returns the bytes held, CSRBytes once done.
 func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (*sparse.CSR, int64, error) {
 	rows, cols, nnz := meta.GetRows(), meta.GetCols(), meta.GetNonzeros()
 	if rows < 0 || cols < 0 || nnz < 0 {
@@ -274,28 +407,47 @@ func (s *Server) readCSRRaw(r io.Reader, name string, meta *pb.UploadMetadata) (
 	if rows*cols < nnz && rows*cols >= 0 {
 		return nil, 0, invalidf("%s: %d entries cannot fit a %d×%d matrix", name, nnz, rows, cols)
 	}
+	if !s.cfg.AllowMostlyEmpty && matrixio.MostlyEmpty(rows, cols, nnz) {
+		return nil, 0, invalidf("%s: a %d×%d matrix with %d entries leaves more than half of its rows or columns empty; "+
+			"empty rows are legal, but this one costs %s of row pointers: the server was started without --allow-mostly-empty",
+			name, rows, cols, nnz, human(8*(rows+1)))
+	}
 	total := wire.CSRBytes(rows, nnz)
 	if !meta.GetGzip() && total > s.cfg.MaxUploadBytes {
 		return nil, 0, limitf("%s: the CSR arrays take %d bytes, over the server's upload limit of %d", name, total, s.cfg.MaxUploadBytes)
 	}
-	if err := s.store.reserve(total, "matrix "+name); err != nil {
-		return nil, 0, err
+	if total > s.cfg.MemoryBudget {
+		return nil, 0, limitf("%s: the CSR arrays take %s, more than the memory budget of %s", name, human(total), human(s.cfg.MemoryBudget))
 	}
-	a, err := wire.DecodeCSR(r, int(rows), int(cols), int(nnz))
+	what := fmt.Sprintf("matrix %s (%d×%d, %d entries)", name, rows, cols, nnz)
+	var held int64
+	charge := func(n int64) error {
+		if n < 0 {
+			s.store.release(-n)
+		} else if err := s.store.reserve(n, what); err != nil {
+			return err
+		}
+		s.store.noteUpload(n)
+		held += n
+		return nil
+	}
+	a, err := wire.DecodeCSRCharged(r, int(rows), int(cols), int(nnz), charge)
 	if err != nil {
 		var re *wire.RawError
 		if errors.As(err, &re) {
-			return nil, total, fmt.Errorf("%w: %s: CSR_RAW %w", ErrInvalid, name, err)
+			return nil, held, fmt.Errorf("%w: %s: CSR_RAW %w", ErrInvalid, name, err)
 		}
-		return nil, total, err
+		return nil, held, err
 	}
-	return a, total, nil
+	return a, held, nil
 }
 
 // UploadVector implements the UploadVector RPC (see the .proto).
 func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	start := time.Now()
-	meta, err := recvMetadata(s, stream.Recv, (*pb.UploadVectorRequest).GetMetadata, "vector upload")
+	pm := newPump(stream.Recv, s.cfg.UploadIdleTimeout)
+	defer pm.stop()
+	meta, err := recvMetadata(s, pm.next, (*pb.UploadVectorRequest).GetMetadata, "vector upload")
 	if err != nil {
 		return err
 	}
@@ -309,21 +461,34 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	if 8*n > s.cfg.MaxUploadBytes {
 		return limitf("vector of %d bytes exceeds the server's upload limit of %d bytes", 8*n, s.cfg.MaxUploadBytes)
 	}
-	if err := s.store.reserve(8*n, "vector "+meta.GetName()); err != nil {
-		return err
+	// The vector grows as its data arrive (wire.Grow), charged to the
+	// budget before each allocation, so that an upload holds at most
+	// wire.GrowAmplification times the bytes it has sent.
+	var x []float64
+	var held int64
+	what := "vector " + meta.GetName()
+	charge := func(k int64) error {
+		if k < 0 {
+			s.store.release(-k)
+		} else if err := s.store.reserve(k, what); err != nil {
+			return err
+		}
+		s.store.noteUpload(k)
+		held += k
+		return nil
 	}
-	x := make([]float64, n)
 	h := sha256.New()
 	var got int64 // bytes received
 	var partial [8]byte
 	np := 0 // bytes of a split entry held in partial
 	fail := func(err error) error {
-		s.store.release(8 * n)
+		s.store.release(held)
+		s.store.noteUpload(-held)
 		s.log.Info("vector upload", "name", meta.GetName(), "outcome", "refused", "error", err.Error(), "bytes_received", got)
 		return err
 	}
 	for {
-		req, err := stream.Recv()
+		req, err := pm.next()
 		if err == io.EOF {
 			break
 		}
@@ -337,6 +502,9 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 		}
 		if got+int64(len(b)) > 8*n {
 			return fail(invalidf("vector upload carries more than the 8·%d bytes its length declares", n))
+		}
+		if x, err = wire.Grow(x, int((got+int64(len(b))+7)/8), int(n), 8, charge); err != nil {
+			return fail(err)
 		}
 		h.Write(b)
 		for len(b) > 0 {
@@ -363,6 +531,9 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	if got != 8*n {
 		return fail(invalidf("vector upload ended after %d of the %d bytes its length declares", got, 8*n))
 	}
+	if x == nil {
+		x = []float64{} // the empty vector
+	}
 	for i, v := range x {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return fail(invalidf("vector entry %d is not finite (%g)", i, v))
@@ -370,7 +541,8 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	}
 	id := hex.EncodeToString(h.Sum(nil))
 	info := &pb.VectorInfo{Id: id, Length: n, Name: meta.GetName()}
-	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, 8*n, false, &vectorEntry{x: x, info: info}, nil)
+	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, held, false, &vectorEntry{x: x, info: info}, nil)
+	s.store.noteUpload(-held)
 	s.log.Info("vector upload", "vector", id, "name", meta.GetName(), "outcome", "stored", "already_stored", existed,
 		"length", n, "duration", time.Since(start).String())
 	return stream.SendAndClose(proto.Clone(it.value.(*vectorEntry).info).(*pb.VectorInfo))

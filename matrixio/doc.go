@@ -37,7 +37,12 @@
 // Options.Limits bounds rows, columns, stored entries and bytes of text. The
 // sizes are checked against the size line before anything is allocated, and
 // storage then grows only with the entries actually read, so a short file
-// that claims a huge matrix costs nothing.
+// that claims a huge matrix costs nothing, except for its rows: the row
+// pointers take 8 bytes a row however few the entries. Limits.
+// RefuseMostlyEmpty refuses, at the size line, a matrix under which more
+// than half of the rows or columns must be empty (MostlyEmpty;
+// ErrMostlyEmpty), and Options.Admit lets a caller charge the declared
+// cost against a budget of its own before the read allocates for it.
 //
 // The text is never held whole. The data section is cut into chunks of whole
 // lines (64 KiB growing to 1 MiB) that GOMAXPROCS goroutines parse at once;

@@ -25,6 +25,7 @@ var (
 	ErrBothTriangles = errors.New("entries on both sides of the diagonal in a symmetric file")
 	ErrSkewDiagonal  = errors.New("nonzero diagonal entry in a skew-symmetric file")
 	ErrLimit         = errors.New("size exceeds a limit")
+	ErrMostlyEmpty   = errors.New("dimensions dwarf the entries")
 	ErrShape         = errors.New("not a vector")
 	ErrNoRHS         = errors.New("bundle holds no right-hand side")
 )

@@ -57,6 +57,34 @@ type Limits struct {
 	MaxEntries int
 	// MaxBytes bounds the length of the text read (after decompression).
 	MaxBytes int64
+	// RefuseMostlyEmpty refuses a coordinate matrix size line under which more than
+	// half of the rows or of the columns must be empty (see MostlyEmpty),
+	// with ErrMostlyEmpty. Such a matrix is legal, but its row pointers cost
+	// 8 bytes a row whatever the file's length, so a few bytes of text can
+	// ask for gigabytes; a reader that accepts any file leaves this off.
+	RefuseMostlyEmpty bool
+}
+
+// MostlyEmpty reports whether a rows×cols matrix holding at most entries
+// stored entries (after symmetric expansion) necessarily leaves more than
+// half of its rows or of its columns without an entry: each entry fills one
+// row and one column, so at most entries rows and entries columns are
+// nonempty. The rule (half) is our own choice: a matrix from a
+// discretisation or a least-squares design has at least one entry per row
+// and per column, and a deliberately padded one rarely pads by more.
+func MostlyEmpty(rows, cols, entries int64) bool {
+	return max(rows, cols) > 2*entries
+}
+
+// Size is what a size line declares, as Options.Admit sees it.
+type Size struct {
+	Rows, Cols int
+	// Entries is the count of entries stored in the file; Stored bounds
+	// the entries of the result after symmetric expansion (2·Entries for
+	// symmetric and skew-symmetric storage, at most Rows·Cols).
+	Entries, Stored int
+	// Coordinate is false for array (dense) files.
+	Coordinate bool
 }
 
 // Options are the settings of a read. A nil *Options or the zero value means no
@@ -66,6 +94,12 @@ type Options struct {
 	// DropZeros removes entries whose value is zero after duplicates are
 	// summed; by default they are kept as part of the sparsity pattern.
 	DropZeros bool
+	// Admit, when set, is called once the size line has passed the limits
+	// and before anything is allocated for the entries, so that a caller
+	// can charge the matrix's cost against a budget of its own (the
+	// server's memory budget). An error it returns ends the read, as a
+	// *ParseError at the size line wrapping that error.
+	Admit func(Size) error
 }
 
 const (
@@ -108,6 +142,8 @@ type headReader struct {
 	line   int   // number of the last line read
 	bytes  int64 // bytes consumed so far
 	limits Limits
+	// sizeLine is the number of the size line, once read.
+	sizeLine int
 }
 
 func (h *headReader) errorf(line, col int, base error, format string, args ...any) error {
@@ -368,6 +404,35 @@ func (h *headReader) parseSize(hd *header, line []byte) error {
 			c = col[len(col)-1]
 		}
 		return h.errorf(ln, c, ErrLimit, "%d stored entries exceed the limit of %d", hd.entries, lim.MaxEntries)
+	case lim.RefuseMostlyEmpty && hd.object == objMatrix && !hd.array && MostlyEmpty(int64(hd.rows), int64(hd.cols), int64(hd.stored())):
+		return h.errorf(ln, col[0], ErrMostlyEmpty, "a %d×%d matrix with %d entries in the file leaves more than half of its rows or columns empty; "+
+			"empty rows are legal, but this one costs %d bytes of row pointers for a few bytes of text: allow it explicitly if it is meant",
+			hd.rows, hd.cols, hd.entries, 8*(int64(hd.rows)+1))
+	}
+	h.sizeLine = ln
+	return nil
+}
+
+// stored bounds the entries of the result after symmetric expansion.
+func (hd *header) stored() int {
+	e := hd.entries
+	if hd.sym != sparse.General {
+		e *= 2
+	}
+	if hd.rows > 0 && hd.cols > 0 && e/hd.rows >= hd.cols {
+		e = hd.rows * hd.cols
+	}
+	return e
+}
+
+// admit runs opt.Admit, if any, on the size line just read.
+func (h *headReader) admit(hd *header, admit func(Size) error) error {
+	if admit == nil {
+		return nil
+	}
+	err := admit(Size{Rows: hd.rows, Cols: hd.cols, Entries: hd.entries, Stored: hd.stored(), Coordinate: !hd.array})
+	if err != nil {
+		return &ParseError{File: h.file, Line: h.sizeLine, Err: err}
 	}
 	return nil
 }

@@ -51,6 +51,9 @@ func readMatrix(r io.Reader, file string, opt *Options) (*sparse.CSR, Info, erro
 	var info Info
 	h := newHeadReader(r, file, o)
 	hd, err := h.readHeader(&info)
+	if err == nil {
+		err = h.admit(hd, o.Admit)
+	}
 	if err != nil {
 		info.Bytes = h.bytes
 		return nil, info, err

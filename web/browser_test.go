@@ -91,10 +91,17 @@ func TestBrowser(t *testing.T) {
 	phase("solves started")
 	defer cl.Cancel(context.Background(), slowID)
 
-	page := New(FromRegistry(srv.Registry()), Options{Metrics: m})
+	// The page asks for a token (issue 15, finding 4): the browser signs
+	// in through the page's form, and everything after it (the event
+	// stream, the charts) rides on the session cookie.
+	const token = "browser-test-token"
+	page := New(FromRegistry(srv.Registry()), Options{Metrics: m, Token: []byte(token)})
 	defer page.Close()
 	hs := httptest.NewServer(page)
 	defer hs.Close()
+	if _, code := getStatus(t, hs.URL+"/api/jobs", ""); code != http.StatusUnauthorized {
+		t.Errorf("/api/jobs without the token: %d, want 401", code)
+	}
 
 	alloc, stopAlloc := chromedp.NewExecAllocator(ctx,
 		chromedp.ExecPath(chromium),
@@ -118,6 +125,17 @@ func TestBrowser(t *testing.T) {
 	if err := chromedp.Do(bctx, chromedp.Navigate(hs.URL)); err != nil {
 		t.Fatal(err)
 	}
+	if _, err := chromedp.Run(bctx, chromedp.Poll[bool](`!document.getElementById('signin').hidden`,
+		chromedp.WithPollingInterval(100*time.Millisecond), chromedp.WithPollingTimeout(10*time.Second))); err != nil {
+		t.Fatalf("the page did not ask for the token: %v", err)
+	}
+	if err := chromedp.Do(bctx, chromedp.SendKeys("#token", token)); err != nil {
+		t.Fatal(err)
+	}
+	if err := chromedp.Do(bctx, chromedp.Click("#signin button")); err != nil {
+		t.Fatal(err)
+	}
+	phase("signed in")
 	// The chart counts its redraws in data-updates: the first drawing and
 	// at least two updates.
 	if _, err := chromedp.Run(bctx, chromedp.Poll[bool](card+` && Number(`+card+`.dataset.updates) >= 3`,
@@ -166,7 +184,7 @@ func TestBrowser(t *testing.T) {
 	// JavaScript Number's toExponential(2), which for these values is Go's
 	// %.2e), and the outcome as the state.
 	var js Job
-	body, _ := getBody(t, hs.URL+"/api/jobs/"+smallID)
+	body, _ := getBodyAuth(t, hs.URL+"/api/jobs/"+smallID, token)
 	if err := json.Unmarshal([]byte(body), &js); err != nil {
 		t.Fatal(err)
 	}
@@ -216,7 +234,7 @@ func TestBrowser(t *testing.T) {
 	// /metrics, parsed with the Prometheus client library's text parser,
 	// has counted both jobs from the registry: one converged, one
 	// cancelled, and the iterations of both.
-	body, _ = getBody(t, hs.URL+"/metrics")
+	body, _ = getBodyAuth(t, hs.URL+"/metrics", token)
 	got := parseMetrics(t, body)
 	if got["residua_solves_started_total"] != 2 || got[`residua_solves_finished_total{outcome="converged"}`] != 1 ||
 		got[`residua_solves_finished_total{outcome="cancelled"}`] != 1 || got["residua_iterations_total"] < 46 ||
@@ -234,4 +252,34 @@ func getBody(t *testing.T, url string) (string, http.Header) {
 	defer res.Body.Close()
 	b, _ := io.ReadAll(res.Body)
 	return string(b), res.Header
+}
+
+// getBodyAuth is getBody with a bearer token.
+func getBodyAuth(t *testing.T, url, token string) (string, http.Header) {
+	t.Helper()
+	body, code := getStatus(t, url, token)
+	if code != http.StatusOK {
+		t.Fatalf("GET %s: %d %s", url, code, body)
+	}
+	return body, nil
+}
+
+// getStatus gets url, with a bearer token unless it is empty, and returns
+// the body and the status code.
+func getStatus(t *testing.T, url, token string) (string, int) {
+	t.Helper()
+	req, err := http.NewRequest(http.MethodGet, url, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
+	}
+	res, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	b, _ := io.ReadAll(res.Body)
+	return string(b), res.StatusCode
 }

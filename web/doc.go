@@ -24,6 +24,21 @@
 //	GET /api/jobs/{id}/chart.svg      the residual curves as SVG (package chart); 404 before any progress
 //	GET /api/events                   Server-Sent Events: "jobs" events carrying the 50 newest jobs and the total
 //	GET /metrics                      Prometheus text format (when Options.Metrics is set)
+//	POST /api/session                 sign-in: trades the bearer token for the session cookie
+//
+// # Authentication
+//
+// With Options.Token set (serve --token-file), /api/* and /metrics need
+// "Authorization: Bearer <token>" or the session cookie, and answer 401
+// with a Bearer challenge (RFC 6750 §3) otherwise; the page, its static
+// files and the sign-in stay open. The page asks for the token when the
+// job list answers 401, sends it once to POST /api/session and clears the
+// input; the cookie it gets back (SessionCookie) is HttpOnly,
+// SameSite=Strict, lives for the browser session and holds a SHA-256
+// digest of the token, so the page never keeps the token and the cookie
+// cannot be used as one against the gRPC service. A scraper uses the
+// bearer token, or serve --metrics-listen, which serves /metrics alone on
+// its own address without it.
 //
 // Job and Row document their JSON fields. Numbers that do not exist yet,
 // and NaN or infinite values, are null. The estimates (reduction per

@@ -41,14 +41,21 @@ type Options struct {
 	// Now returns the current time (for the elapsed time of running jobs).
 	// Default time.Now.
 	Now func() time.Time
+	// Token, when set, is the bearer token (the gRPC service's) that
+	// /api/* and /metrics require, as "Authorization: Bearer <token>" or
+	// the session cookie that POST /api/session sets (see auth.go). The
+	// page itself, its static files and the sign-in stay open. Default
+	// none: everything open.
+	Token []byte
 }
 
 // Server is the watch page and its endpoints, an http.Handler. Make one
 // with New and Close it when done.
 type Server struct {
-	opt Options
-	t   *tracker
-	mux *http.ServeMux
+	opt     Options
+	t       *tracker
+	mux     *http.ServeMux
+	session string // the session cookie's value, when opt.Token is set
 }
 
 // New returns a Server reading src and starts following its jobs.
@@ -67,13 +74,17 @@ func New(src Source, opt Options) *Server {
 	files := http.FileServerFS(sub)
 	s.mux.Handle("GET /{$}", files)
 	s.mux.Handle("GET /static/", http.StripPrefix("/static/", files))
-	s.mux.HandleFunc("GET /api/jobs", s.jobs)
-	s.mux.HandleFunc("GET /api/jobs/{id}", s.job)
-	s.mux.HandleFunc("GET /api/jobs/{id}/history", s.history)
-	s.mux.HandleFunc("GET /api/jobs/{id}/chart.svg", s.chart)
-	s.mux.HandleFunc("GET /api/events", s.events)
+	if opt.Token != nil {
+		s.session = sessionValue(opt.Token)
+	}
+	s.mux.HandleFunc("POST /api/session", s.signIn)
+	s.mux.Handle("GET /api/jobs", s.guard(http.HandlerFunc(s.jobs)))
+	s.mux.Handle("GET /api/jobs/{id}", s.guard(http.HandlerFunc(s.job)))
+	s.mux.Handle("GET /api/jobs/{id}/history", s.guard(http.HandlerFunc(s.history)))
+	s.mux.Handle("GET /api/jobs/{id}/chart.svg", s.guard(http.HandlerFunc(s.chart)))
+	s.mux.Handle("GET /api/events", s.guard(http.HandlerFunc(s.events)))
 	if opt.Metrics != nil {
-		s.mux.Handle("GET /metrics", opt.Metrics.Handler())
+		s.mux.Handle("GET /metrics", s.guard(opt.Metrics.Handler()))
 	}
 	return s
 }

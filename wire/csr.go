@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"sort"
 
 	"github.com/residua/residua/sparse"
 )
@@ -91,13 +92,13 @@ func EncodeCSR(a *sparse.CSR, size int, send func([]byte) error) error {
 }
 
 // RawError is a malformed CSR_RAW encoding: the byte offset where the
-// problem lies, the array and the entry (and the row, for a row pointer or
-// a column index), and why.
+// problem lies, the array and the entry (and the row it belongs to, once
+// the row pointers are known), and why.
 type RawError struct {
 	Offset int64  // byte offset in the encoding
 	Array  string // "row pointers", "column indices" or "values"
 	Index  int    // entry of the array (0-based)
-	Row    int    // the row concerned, or -1
+	Row    int    // the row concerned (0-based), or -1 for a matrix without rows
 	Err    error
 }
 
@@ -122,9 +123,21 @@ var (
 // a time, into a new matrix, checking every entry as it arrives, so the
 // error names the byte offset and row of the first bad one. Data that ends
 // early is a *RawError wrapping io.ErrUnexpectedEOF. The caller checks the
-// sizes against its limits first: DecodeCSR allocates the arrays at once.
+// sizes against its limits first: DecodeCSR allocates the arrays at once
+// (see DecodeCSRCharged for a server's alternative).
 func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
-	a := &sparse.CSR{Rows: rows, Cols: cols, RowPtr: make([]int, rows+1), ColIdx: make([]int32, nnz), Val: make([]float64, nnz)}
+	return DecodeCSRCharged(r, rows, cols, nnz, nil)
+}
+
+// DecodeCSRCharged is DecodeCSR with each array grown as its bytes arrive
+// (Grow) and every allocation charged first: an error of charge ends the
+// decoding and is returned as it is. With a nil charge it allocates the
+// arrays at once. The finished matrix's arrays are exactly CSRBytes long.
+func DecodeCSRCharged(r io.Reader, rows, cols, nnz int, charge Charge) (*sparse.CSR, error) {
+	a := &sparse.CSR{Rows: rows, Cols: cols}
+	if charge == nil {
+		a.RowPtr, a.ColIdx, a.Val = make([]int, 0, rows+1), make([]int32, 0, nnz), make([]float64, 0, nnz)
+	}
 	buf := make([]byte, 1<<20)
 	var off int64
 	next := func(array string, i, count, size int) ([]byte, error) {
@@ -132,7 +145,16 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		b := buf[:k*size]
 		if n, err := io.ReadFull(r, b); err != nil {
 			if err == io.EOF || err == io.ErrUnexpectedEOF {
-				return nil, &RawError{Offset: off + int64(n), Array: array, Index: i + n/size, Row: -1,
+				idx := i + n/size
+				row := max(idx-1, 0) // a row pointer: the row it ends
+				if array != "row pointers" {
+					// The row pointers are all known: the row holding entry idx.
+					row = min(sort.SearchInts(a.RowPtr[1:], idx+1), rows-1)
+				}
+				if rows == 0 {
+					row = -1
+				}
+				return nil, &RawError{Offset: off + int64(n), Array: array, Index: idx, Row: row,
 					Err: fmt.Errorf("the data ends, but the sizes need %d bytes: %w", CSRBytes(int64(rows), int64(nnz)), io.ErrUnexpectedEOF)}
 			}
 			return nil, err
@@ -144,6 +166,9 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		start := off
 		b, err := next("row pointers", i, rows+1, 8)
 		if err != nil {
+			return nil, err
+		}
+		if a.RowPtr, err = Grow(a.RowPtr, i+len(b)/8, rows+1, 8, charge); err != nil {
 			return nil, err
 		}
 		for k := 0; len(b) >= 8; b, k = b[8:], k+1 {
@@ -167,6 +192,9 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 		if err != nil {
 			return nil, err
 		}
+		if a.ColIdx, err = Grow(a.ColIdx, i+len(b)/4, nnz, 4, charge); err != nil {
+			return nil, err
+		}
 		for k := 0; len(b) >= 4; b, k = b[4:], k+1 {
 			for a.RowPtr[row+1] <= i {
 				row++
@@ -180,21 +208,32 @@ func DecodeCSR(r io.Reader, rows, cols, nnz int) (*sparse.CSR, error) {
 			i++
 		}
 	}
+	row = 0
 	for i := 0; i < nnz; {
 		start := off
 		b, err := next("values", i, nnz, 8)
 		if err != nil {
 			return nil, err
 		}
+		if a.Val, err = Grow(a.Val, i+len(b)/8, nnz, 8, charge); err != nil {
+			return nil, err
+		}
 		for k := 0; len(b) >= 8; b, k = b[8:], k+1 {
+			for a.RowPtr[row+1] <= i {
+				row++
+			}
 			v := math.Float64frombits(binary.LittleEndian.Uint64(b))
 			if math.IsNaN(v) || math.IsInf(v, 0) {
-				return nil, &RawError{Offset: start + int64(8*k), Array: "values", Index: i, Row: -1,
+				return nil, &RawError{Offset: start + int64(8*k), Array: "values", Index: i, Row: row,
 					Err: fmt.Errorf("%w: %g", ErrValue, v)}
 			}
 			a.Val[i] = v
 			i++
 		}
+	}
+	// A matrix without entries has empty, not nil, arrays.
+	if a.ColIdx == nil {
+		a.ColIdx, a.Val = []int32{}, []float64{}
 	}
 	return a, nil
 }

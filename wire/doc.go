@@ -5,8 +5,10 @@
 //     Chunker), with the SHA-256 the solution stream's last chunk carries
 //     (VectorSum);
 //   - the CSR_RAW matrix encoding, written (EncodeCSR) and read
-//     (DecodeCSR, whose errors give the byte offset and the row), and the
-//     content hash that is a matrix's id (MatrixID);
+//     (DecodeCSR, whose errors give the byte offset and the row;
+//     DecodeCSRCharged, which grows the arrays as their bytes arrive and
+//     charges each allocation first, by the rule of Grow), and the content
+//     hash that is a matrix's id (MatrixID);
 //   - the conversions between residua's own types and the protobuf
 //     messages: solve.Summary ↔ SolveResult, krylov.Progress ↔ Progress,
 //     solve.Request ↔ SolveRequest, and the job states' words.

@@ -66,6 +66,12 @@ type inspection struct {
 	ReadSeconds      solve.Num `json:"read_seconds"`
 	ReadMBPerSecond  solve.Num `json:"read_mb_per_second"`
 	Verdict          string    `json:"verdict"`
+	// EmptyCols counts the columns without a stored entry (the rows
+	// without one are row_length.empty); MostlyEmpty says that more than
+	// half of the rows or columns are empty (matrixio.MostlyEmpty), which
+	// needs --allow-mostly-empty to read.
+	EmptyCols   int  `json:"empty_cols"`
+	MostlyEmpty bool `json:"mostly_empty"`
 	sparse.Report
 }
 
@@ -73,6 +79,7 @@ func runInspect(ctx context.Context, e *env, args []string) error {
 	f := newFlags("inspect", "residua inspect [--json] [--sym-tol T] FILE...", inspectAbout)
 	asJSON := f.Bool("json", false, "print one JSON object per file")
 	symTol := f.Float64("sym-tol", defaultSymTol, "symmetry tolerance relative to max|a(i,j)|")
+	mostlyEmpty := f.Bool("allow-mostly-empty", false, "inspect a matrix even when more than half of its rows or columns must be empty (refused by default, at the size line)")
 	files, err := f.parse(e, args)
 	if err != nil {
 		return err
@@ -88,7 +95,7 @@ func runInspect(ctx context.Context, e *env, args []string) error {
 		if err := ctx.Err(); err != nil {
 			return err
 		}
-		in, err := inspectFile(path, *symTol)
+		in, err := inspectFile(path, *symTol, *mostlyEmpty)
 		if err != nil {
 			fmt.Fprintf(e.stderr, "residua: %v\n", err)
 			failed = append(failed, err)
@@ -114,11 +121,11 @@ func runInspect(ctx context.Context, e *env, args []string) error {
 	return nil
 }
 
-func inspectFile(path string, symTol float64) (*inspection, error) {
+func inspectFile(path string, symTol float64, allowMostlyEmpty bool) (*inspection, error) {
 	start := time.Now()
-	a, info, err := matrixio.ReadMatrixFile(path, nil)
+	a, info, err := matrixio.ReadMatrixFile(path, readOptions(allowMostlyEmpty))
 	if err != nil {
-		return nil, err
+		return nil, mostlyEmptyHint(err)
 	}
 	read := time.Since(start)
 	r := sparse.Analyze(a, symTol)
@@ -127,7 +134,8 @@ func inspectFile(path string, symTol float64) (*inspection, error) {
 		Format: info.Header.Format, Field: info.Header.Field, HeaderSymmetry: info.Header.Symmetry,
 		Symmetric: r.Symmetric, PositiveDiagonal: r.Diagonal.Positive,
 		Duplicates: info.Duplicates, ExplicitZeros: info.ExplicitZeros, TextBytes: info.Bytes,
-		ReadSeconds: solve.Seconds(read), Report: r,
+		ReadSeconds: solve.Seconds(read), Report: r, EmptyCols: emptyCols(a),
+		MostlyEmpty: matrixio.MostlyEmpty(int64(a.Rows), int64(a.Cols), int64(a.NNZ())),
 	}
 	if read > 0 {
 		in.ReadMBPerSecond = solve.Num(float64(info.Bytes) / 1e6 / read.Seconds())
@@ -197,6 +205,13 @@ func (in *inspection) writeText(w io.Writer) {
 	}
 	line("bandwidth", "%d (lower %d, upper %d), profile %d", r.Bandwidth, r.LowerBandwidth, r.UpperBandwidth, r.Profile)
 	line("row lengths", "min %d, max %d, mean %.1f, std %.1f, %d empty", r.RowLength.Min, r.RowLength.Max, r.RowLength.Mean, r.RowLength.Std, r.RowLength.Empty)
+	if r.RowLength.Empty > 0 || in.EmptyCols > 0 {
+		note := "legal; their row pointers still cost 8 bytes a row"
+		if in.MostlyEmpty {
+			note = "more than half empty: read only because of --allow-mostly-empty, and refused by a server without it"
+		}
+		line("empty", "%d rows and %d columns hold no entry (%s)", r.RowLength.Empty, in.EmptyCols, note)
+	}
 	if r.Square {
 		line("Gershgorin", "eigenvalues in [%s, %s]", solve.Sci(r.GershgorinLow), solve.Sci(r.GershgorinHigh))
 	}
@@ -206,6 +221,19 @@ func (in *inspection) writeText(w io.Writer) {
 	line("memory", "%s as CSR", formatBytes(r.Bytes))
 	line("read", "%s of text in %s (%.0f MB/s)", formatBytes(in.TextBytes), fmtSec(in.ReadSeconds), float64(in.ReadMBPerSecond))
 	line("verdict", "%s", in.Verdict)
+}
+
+// emptyCols counts the columns of a without a stored entry.
+func emptyCols(a *sparse.CSR) int {
+	seen := make([]bool, a.Cols)
+	n := a.Cols
+	for _, j := range a.ColIdx {
+		if !seen[j] {
+			seen[j] = true
+			n--
+		}
+	}
+	return n
 }
 
 func yesNo(b bool, yes, no string) string {

@@ -79,7 +79,7 @@ func runLSQ(ctx context.Context, e *env, args []string) (err error) {
 	if *detach {
 		return usageErrorf("lsq: --detach needs --server (or $%s)", envServer)
 	}
-	p, err := loadProblem(pos[0], o.b)
+	p, err := loadProblem(pos[0], o.b, o.mostlyEmpty)
 	if err != nil {
 		return err
 	}

@@ -102,7 +102,7 @@ func remoteSolve(ctx context.Context, e *env, path string, req solve.Request, o 
 	if detach && (o.out != "" || o.hist != "" || o.plot != "") {
 		return usageErrorf("%s: --detach returns at once; fetch the outputs later with 'residua watch JOB -o ... --history ... --plot ...'", cmd)
 	}
-	p, err := loadProblem(path, o.b)
+	p, err := loadProblem(path, o.b, o.mostlyEmpty)
 	if err != nil {
 		return err
 	}

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"log/slog"
 	"net"
+	"net/http"
 	"strconv"
 	"strings"
 	"sync"
@@ -40,6 +41,15 @@ one line per upload and per job start and end.
 --http adds the watch page: the jobs with their live residual curves, JSON
 endpoints (/api/jobs, /api/jobs/ID, /api/jobs/ID/history,
 /api/jobs/ID/chart.svg, /api/events) and Prometheus metrics at /metrics.
+With --token-file, those endpoints and /metrics need the same bearer token
+(the page asks for it once and keeps a session cookie); --metrics-listen
+serves /metrics alone, open, on a separate address for a scraper.
+
+A job's iterations and wall time have ceilings (--max-job-iterations,
+--max-job-time) that a request can lower but not raise; an upload that
+sends nothing for --upload-idle-timeout is dropped; a matrix, vector or
+solution used within --protect-recent is never evicted for another
+request, which is refused instead.
 
 Limits are checked before anything is allocated. Sizes accept a unit:
 KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024).
@@ -50,12 +60,13 @@ cancelled, open streams get --stop-timeout to close, then the servers stop.`
 
 func runServe(ctx context.Context, e *env, args []string) error {
 	var cfg api.Config
-	var httpAddr string
+	var httpAddr, metricsAddr string
 	uploadBytes := byteSize(api.DefaultMaxUploadBytes)
 	memory := byteSize(api.DefaultMemoryBudget)
 	f := newFlags("serve", "residua serve [--listen 127.0.0.1:7447] [--http 127.0.0.1:7448] [limits] [--token-file F] [--tls-cert C --tls-key K]", serveAbout)
 	f.StringVar(&cfg.Listen, "listen", api.DefaultListen, "gRPC `address` to listen on")
-	f.StringVar(&httpAddr, "http", "", "also serve the watch page and /metrics on this `address` (default off)")
+	f.StringVar(&httpAddr, "http", "", "also serve the watch page and /metrics on this `address` (default off); with --token-file they need the token")
+	f.StringVar(&metricsAddr, "metrics-listen", "", "also serve /metrics alone, without the token, on this `address` for a scraper (default off; keep it on a private interface)")
 	f.Var(&uploadBytes, "max-upload-bytes", "largest matrix or vector upload in `bytes`, on the wire and after decompression")
 	f.IntVar(&cfg.MaxRows, "max-rows", api.DefaultMaxRows, "most rows (and columns) of an uploaded matrix")
 	f.Int64Var(&cfg.MaxNonzeros, "max-nonzeros", api.DefaultMaxNonzeros, "most stored entries of an uploaded matrix")
@@ -69,6 +80,11 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&cfg.TLSKey, "tls-key", "", "PEM private key `file` for --tls-cert")
 	f.DurationVar(&cfg.ShutdownGrace, "shutdown-grace", api.DefaultShutdownGrace, "on shutdown, how long running solves may continue before they are cancelled")
 	f.DurationVar(&cfg.StopTimeout, "stop-timeout", api.DefaultStopTimeout, "on shutdown, how long open streams may take to close after the solves end before the server stops them")
+	f.IntVar(&cfg.MaxJobIterations, "max-job-iterations", api.DefaultMaxJobIterations, "ceiling on each right-hand side's iterations; a request's max_iter can lower it, never raise it")
+	f.DurationVar(&cfg.MaxJobTime, "max-job-time", api.DefaultMaxJobTime, "ceiling on a job's wall time, its right-hand sides together; a request's time_limit can lower it, never raise it")
+	f.DurationVar(&cfg.UploadIdleTimeout, "upload-idle-timeout", api.DefaultUploadIdleTimeout, "drop an upload whose client sends nothing for this long, releasing its memory")
+	f.DurationVar(&cfg.ProtectRecent, "protect-recent", api.DefaultProtectRecent, "never evict a matrix, vector or kept solution used within this long; refuse the request that needs the room instead")
+	f.BoolVar(&cfg.AllowMostlyEmpty, "allow-mostly-empty", false, "accept matrices with more than half of their rows or columns empty (refused by default: their row pointers cost 8 bytes a row however short the upload)")
 	pos, err := f.parse(e, args)
 	if err != nil {
 		return err
@@ -79,7 +95,9 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	cfg.MaxUploadBytes, cfg.MemoryBudget = int64(uploadBytes), int64(memory)
 	for name, v := range map[string]int64{"max-rows": int64(cfg.MaxRows), "max-nonzeros": cfg.MaxNonzeros, "max-rhs": int64(cfg.MaxRHS),
 		"max-solves": int64(cfg.MaxConcurrentSolves), "max-queued": int64(cfg.MaxQueued), "max-jobs-kept": int64(cfg.MaxJobsKept),
-		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget} {
+		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget,
+		"max-job-iterations": int64(cfg.MaxJobIterations), "max-job-time": int64(cfg.MaxJobTime), "upload-idle-timeout": int64(cfg.UploadIdleTimeout),
+		"protect-recent": int64(cfg.ProtectRecent)} {
 		if v < 0 {
 			return usageErrorf("serve: --%s must not be negative", name)
 		}
@@ -115,14 +133,42 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	fmt.Fprintf(e.stderr, "residua: serving gRPC on %s\n", lis.Addr())
 
 	var wg sync.WaitGroup
-	var httpErr error
+	var httpErr, metricsErr error
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	if hl != nil {
+	if httpAddr != "" || metricsAddr != "" {
 		m.ObserveQueue(srv.Registry().Counts)
 		m.ObserveUploads(srv.UploadBytes)
 		m.ObserveStore(srv.StoredBytes)
-		page := web.New(web.FromRegistry(srv.Registry()), web.Options{Metrics: m})
+	}
+	if metricsAddr != "" {
+		ml, err := net.Listen("tcp", metricsAddr)
+		if err != nil {
+			lis.Close()
+			return fmt.Errorf("serve: --metrics-listen: %w", err)
+		}
+		mux := http.NewServeMux()
+		mux.Handle("GET /metrics", m.Handler())
+		fmt.Fprintf(e.stderr, "residua: metrics on http://%s/metrics\n", ml.Addr())
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			if metricsErr = web.Serve(ctx, ml, mux, 2*time.Second); metricsErr != nil {
+				cancel() // the listener failed: stop the whole service
+			}
+		}()
+	}
+	if hl != nil {
+		var token []byte
+		if cfg.TokenFile != "" {
+			// NewServer has read it already; read it the same way.
+			if token, err = api.ReadToken(cfg.TokenFile); err != nil {
+				lis.Close()
+				hl.Close()
+				return usageErrorf("serve: %v", err)
+			}
+		}
+		page := web.New(web.FromRegistry(srv.Registry()), web.Options{Metrics: m, Token: token})
 		fmt.Fprintf(e.stderr, "residua: watch page on http://%s/\n", hl.Addr())
 		wg.Add(1)
 		go func() {
@@ -139,6 +185,9 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	wg.Wait()
 	if err == nil && httpErr != nil {
 		err = fmt.Errorf("serve: watch page: %w", httpErr)
+	}
+	if err == nil && metricsErr != nil {
+		err = fmt.Errorf("serve: metrics listener: %w", metricsErr)
 	}
 	return err
 }

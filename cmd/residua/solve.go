@@ -59,6 +59,7 @@ returns; follow it with 'residua watch JOB'.`
 
 // solveOpts are the flags shared by solve, lsq and demo.
 type solveOpts struct {
+	mostlyEmpty     bool // --allow-mostly-empty
 	b, x0, precond  string
 	rtol, atol      float64
 	maxIter         int
@@ -90,6 +91,7 @@ func addOutputFlags(f *cmdFlags, o *solveOpts) {
 	f.StringVar(&o.plot, "plot", "", "draw the residual curve to this `file` (.svg or .png)")
 	f.BoolVar(&o.json, "json", false, "print the summary as one JSON object")
 	f.BoolVar(&o.quiet, "quiet", false, "no live progress on stderr")
+	f.BoolVar(&o.mostlyEmpty, "allow-mostly-empty", false, "read a matrix even when more than half of its rows or columns must be empty (refused by default: a few bytes of size line can ask for gigabytes of row pointers)")
 }
 
 // request turns the flags into the solve layer's request.
@@ -164,7 +166,7 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	if *detach {
 		return usageErrorf("solve: --detach needs --server (or $%s)", envServer)
 	}
-	p, err := loadProblem(pos[0], o.b)
+	p, err := loadProblem(pos[0], o.b, o.mostlyEmpty)
 	if err != nil {
 		return err
 	}
@@ -182,14 +184,30 @@ type problem struct {
 	read      time.Duration
 }
 
+// readOptions are the matrix-reading options of the commands that read
+// files: matrices whose dimensions dwarf their entries are refused at the
+// size line, before their row pointers are allocated, unless allowed.
+func readOptions(allowMostlyEmpty bool) *matrixio.Options {
+	return &matrixio.Options{Limits: matrixio.Limits{RefuseMostlyEmpty: !allowMostlyEmpty}}
+}
+
+// mostlyEmptyHint adds the flag that accepts a mostly empty matrix to the
+// reader's refusal of one.
+func mostlyEmptyHint(err error) error {
+	if errors.Is(err, matrixio.ErrMostlyEmpty) {
+		return fmt.Errorf("%w (pass --allow-mostly-empty to read it anyway)", err)
+	}
+	return err
+}
+
 // loadProblem reads the matrix and the right-hand side. Unreadable or
 // malformed files give an error with exit status 2; the matrixio errors
 // name the file and line.
-func loadProblem(path, bPath string) (*problem, error) {
+func loadProblem(path, bPath string, allowMostlyEmpty bool) (*problem, error) {
 	start := time.Now()
-	a, info, err := matrixio.ReadMatrixFile(path, nil)
+	a, info, err := matrixio.ReadMatrixFile(path, readOptions(allowMostlyEmpty))
 	if err != nil {
-		return nil, inputError(err)
+		return nil, inputError(mostlyEmptyHint(err))
 	}
 	p := &problem{name: path, a: a, symmetric: info.Header.Symmetry == "symmetric", read: time.Since(start)}
 	switch {

@@ -160,10 +160,70 @@ function connect() {
     link.textContent = "live";
     render(JSON.parse(ev.data));
   });
-  es.onerror = () => {
+  es.onerror = async () => {
     link.dataset.state = "lost";
     link.textContent = "connection lost, retrying…";
+    // A server that now asks for its token (restarted with one, or with
+    // another) will not let the stream back in: ask for it.
+    try {
+      const res = await fetch("/api/jobs", { cache: "no-store" });
+      if (res.status === 401) {
+        es.close();
+        askToken();
+      }
+    } catch (e) {
+      // The server is away; the stream retries by itself.
+    }
   };
 }
 
-connect();
+// Sign-in, for a server started with --token-file: the token typed in is
+// sent once to POST /api/session, which answers with an HttpOnly,
+// SameSite=Strict session cookie holding a digest of the token; the page
+// keeps no copy of the token (the input is cleared before the request),
+// and the browser sends the cookie with every later request, the event
+// stream and the charts included, until it closes.
+const signin = document.getElementById("signin");
+const tokenInput = document.getElementById("token");
+const signinError = document.getElementById("signin-error");
+
+function askToken() {
+  link.dataset.state = "lost";
+  link.textContent = "token needed";
+  signin.hidden = false;
+  tokenInput.focus();
+}
+
+signin.addEventListener("submit", async (ev) => {
+  ev.preventDefault();
+  const token = tokenInput.value.trim();
+  tokenInput.value = "";
+  signinError.hidden = true;
+  try {
+    const res = await fetch("/api/session", { method: "POST", headers: { Authorization: "Bearer " + token } });
+    if (res.ok) {
+      signin.hidden = true;
+      connect();
+      return;
+    }
+    signinError.textContent = "that is not this server's token";
+  } catch (e) {
+    signinError.textContent = "the server did not answer";
+  }
+  signinError.hidden = false;
+});
+
+async function start() {
+  try {
+    const res = await fetch("/api/jobs", { cache: "no-store" });
+    if (res.status === 401) {
+      askToken();
+      return;
+    }
+  } catch (e) {
+    // Not reachable now: the event stream retries by itself.
+  }
+  connect();
+}
+
+start();

@@ -1465,8 +1465,16 @@ type Accepted struct {
 	PreconditionerBytes int64   `protobuf:"varint,9,opt,name=preconditioner_bytes,json=preconditionerBytes,proto3" json:"preconditioner_bytes,omitempty"`
 	RhsCount            int32   `protobuf:"varint,10,opt,name=rhs_count,json=rhsCount,proto3" json:"rhs_count,omitempty"`
 	Detached            bool    `protobuf:"varint,11,opt,name=detached,proto3" json:"detached,omitempty"`
-	unknownFields       protoimpl.UnknownFields
-	sizeCache           protoimpl.SizeCache
+	// The server's ceilings in force for this job (serve --max-job-iterations
+	// and --max-job-time): each right-hand side's iterations are capped at
+	// max_iter_ceiling, and the job's right-hand sides together at
+	// time_ceiling_seconds of wall time. A request's max_iter and time_limit
+	// can lower them, never raise them; each result's settings echo what a
+	// right-hand side actually used.
+	MaxIterCeiling     int64   `protobuf:"varint,12,opt,name=max_iter_ceiling,json=maxIterCeiling,proto3" json:"max_iter_ceiling,omitempty"`
+	TimeCeilingSeconds float64 `protobuf:"fixed64,13,opt,name=time_ceiling_seconds,json=timeCeilingSeconds,proto3" json:"time_ceiling_seconds,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
 }
 
 func (x *Accepted) Reset() {
@@ -1574,6 +1582,20 @@ func (x *Accepted) GetDetached() bool {
 		return x.Detached
 	}
 	return false
+}
+
+func (x *Accepted) GetMaxIterCeiling() int64 {
+	if x != nil {
+		return x.MaxIterCeiling
+	}
+	return 0
+}
+
+func (x *Accepted) GetTimeCeilingSeconds() float64 {
+	if x != nil {
+		return x.TimeCeilingSeconds
+	}
+	return 0
 }
 
 // Progress is one row of a convergence history.
@@ -3120,7 +3142,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\bfinished\x18\b \x01(\v2\x14.residua.v1.FinishedH\x00R\bfinishedB\a\n" +
 	"\x05event\"$\n" +
 	"\x06Queued\x12\x1a\n" +
-	"\bposition\x18\x01 \x01(\x05R\bposition\"\xf8\x02\n" +
+	"\bposition\x18\x01 \x01(\x05R\bposition\"\xd4\x03\n" +
 	"\bAccepted\x12\x1b\n" +
 	"\tmatrix_id\x18\x01 \x01(\tR\bmatrixId\x12\x16\n" +
 	"\x06method\x18\x02 \x01(\tR\x06method\x12&\n" +
@@ -3134,7 +3156,9 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x14preconditioner_bytes\x18\t \x01(\x03R\x13preconditionerBytes\x12\x1b\n" +
 	"\trhs_count\x18\n" +
 	" \x01(\x05R\brhsCount\x12\x1a\n" +
-	"\bdetached\x18\v \x01(\bR\bdetached\"\xe7\x01\n" +
+	"\bdetached\x18\v \x01(\bR\bdetached\x12(\n" +
+	"\x10max_iter_ceiling\x18\f \x01(\x03R\x0emaxIterCeiling\x120\n" +
+	"\x14time_ceiling_seconds\x18\r \x01(\x01R\x12timeCeilingSeconds\"\xe7\x01\n" +
 	"\bProgress\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\titeration\x18\x02 \x01(\x03R\titeration\x12'\n" +

@@ -93,7 +93,16 @@ type SolverClient interface {
 	// limit, when the dimensions or nonzeros declared (the Matrix Market size
 	// line, or the CSR_RAW metadata) exceed the server's limits (checked
 	// before anything is allocated), or when the matrix does not fit the
-	// memory budget.
+	// memory budget (whose message names what holds it). Also
+	// INVALID_ARGUMENT, at the size line or metadata, for a matrix under
+	// which more than half the rows or columns must be empty (unless the
+	// server runs with --allow-mostly-empty), for any gzip error, and for an
+	// expected_sha256 that is not 64 hex digits (at the metadata); and
+	// DEADLINE_EXCEEDED when the client sends nothing for the server's
+	// upload idle timeout. Metadata alone reserves no memory: a CSR_RAW
+	// upload's arrays grow as their bytes arrive (the server holds at most 8
+	// times what was sent), a Matrix Market upload is charged at its size
+	// line.
 	UploadMatrix(ctx context.Context, opts ...grpc.CallOption) (grpc.ClientStreamingClient[UploadMatrixRequest, Matrix], error)
 	// UploadVector stores a vector on the server for later use as a
 	// right-hand side or starting guess (see VectorRef). Chunking contract:
@@ -157,7 +166,12 @@ type SolverClient interface {
 	// stream with OK, and the client re-attaches with Watch, stops the job
 	// with CancelJob and fetches the solutions with DownloadSolution.
 	//
-	// There is no server-side deadline: use time_limit for a time budget.
+	// The server has ceilings (serve --max-job-iterations, --max-job-time):
+	// each right-hand side's iterations and the job's wall time are capped
+	// at them, a request's max_iter and time_limit can only lower them, and
+	// the accepted event says what they are. A request with more right-hand
+	// sides or starting guesses than the server's limit is refused
+	// (RESOURCE_EXHAUSTED) having decoded no more than one past the limit.
 	Solve(ctx context.Context, in *SolveRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[JobEvent], error)
 	// Watch replays a job's events so far (queued, accepted, the progress
 	// events sent so far, results; a very long solve's progress events are
@@ -382,7 +396,16 @@ type SolverServer interface {
 	// limit, when the dimensions or nonzeros declared (the Matrix Market size
 	// line, or the CSR_RAW metadata) exceed the server's limits (checked
 	// before anything is allocated), or when the matrix does not fit the
-	// memory budget.
+	// memory budget (whose message names what holds it). Also
+	// INVALID_ARGUMENT, at the size line or metadata, for a matrix under
+	// which more than half the rows or columns must be empty (unless the
+	// server runs with --allow-mostly-empty), for any gzip error, and for an
+	// expected_sha256 that is not 64 hex digits (at the metadata); and
+	// DEADLINE_EXCEEDED when the client sends nothing for the server's
+	// upload idle timeout. Metadata alone reserves no memory: a CSR_RAW
+	// upload's arrays grow as their bytes arrive (the server holds at most 8
+	// times what was sent), a Matrix Market upload is charged at its size
+	// line.
 	UploadMatrix(grpc.ClientStreamingServer[UploadMatrixRequest, Matrix]) error
 	// UploadVector stores a vector on the server for later use as a
 	// right-hand side or starting guess (see VectorRef). Chunking contract:
@@ -446,7 +469,12 @@ type SolverServer interface {
 	// stream with OK, and the client re-attaches with Watch, stops the job
 	// with CancelJob and fetches the solutions with DownloadSolution.
 	//
-	// There is no server-side deadline: use time_limit for a time budget.
+	// The server has ceilings (serve --max-job-iterations, --max-job-time):
+	// each right-hand side's iterations and the job's wall time are capped
+	// at them, a request's max_iter and time_limit can only lower them, and
+	// the accepted event says what they are. A request with more right-hand
+	// sides or starting guesses than the server's limit is refused
+	// (RESOURCE_EXHAUSTED) having decoded no more than one past the limit.
 	Solve(*SolveRequest, grpc.ServerStreamingServer[JobEvent]) error
 	// Watch replays a job's events so far (queued, accepted, the progress
 	// events sent so far, results; a very long solve's progress events are
