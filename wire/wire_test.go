@@ -45,6 +45,7 @@ func TestPackLayout(t *testing.T) {
 var frontEndOnly = map[string]bool{
 	"RHS": true, "Server": true, "JobID": true, "MatrixUploaded": true, "ReadSeconds": true, "UploadSeconds": true,
 	"ErrorVsOnes": true, "SolutionFile": true, "HistoryFile": true, "PlotFile": true, "SolutionNote": true,
+	"ResumedFrom": true, "CheckpointFile": true,
 }
 
 // fillAll sets every exported field of v to a distinct non-zero value.

@@ -50,6 +50,13 @@ The solution (-o) is written only when the solve converged, atomically; the
 history (--history, .csv or .json lines) and the picture (--plot, .svg or
 .png) are written whatever the outcome, since they show what happened.
 
+With --checkpoint FILE the solve's full state (the iterate and the
+method's recurrence, the settings, the history so far) is written to FILE
+every --checkpoint-every (default 30s) and when SIGINT or SIGTERM stops it;
+the same command with --resume FILE continues it, giving bitwise the x and
+history an uninterrupted run gives on this machine. A checkpoint of another
+matrix, right-hand side or setting is refused, naming what differs.
+
 With --server ADDR (or $RESIDUA_SERVER) the solve runs on a residua server
 (see 'residua serve'): the matrix is uploaded named after its file, and the
 flags, display, summary, outputs and exit statuses are those of a local
@@ -65,6 +72,7 @@ type solveOpts struct {
 	timeLimit       time.Duration
 	out, hist, plot string
 	json, quiet     bool
+	ck              ckptOpts // solve and lsq only (see checkpoint.go)
 }
 
 // addRunFlags registers the tolerance flags of the conjugate-gradient
@@ -133,6 +141,7 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
 	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
 	addRunFlags(f, o)
+	addCheckpointFlags(f, &o.ck)
 	so := &serverOpts{}
 	addServerFlags(f, so)
 	detach := f.Bool("detach", false, "with --server: start the job, print its id and return (the job keeps its solution for 'residua watch JOB -o x.mtx')")
@@ -151,6 +160,9 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	so.resolve()
+	if err := o.ck.check(f, so.addr != ""); err != nil {
+		return err
+	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)
 	}
@@ -264,6 +276,10 @@ func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *s
 		return err
 	}
 	ones, rhs := p.onesSolution(req)
+	ck, err := openCheckpoint(e, &o.ck, p, req)
+	if err != nil {
+		return err
+	}
 	setup, err := solve.Prepare(m, req)
 	if err != nil {
 		sum := solve.Failure(m, req, err)
@@ -276,7 +292,11 @@ func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *s
 		return err
 	}
 	x := make([]float64, p.a.Cols)
-	sum, solveErr := setup.Solve(ctx, p.b, x0, x, rec)
+	if rec, err = ck.attach(rec); err != nil {
+		return errors.Join(err, finish(&solve.Summary{}))
+	}
+	sum, solveErr := setup.SolveDurable(ctx, p.b, x0, x, rec, ck.durable())
+	ck.report(&sum)
 	sum.RHS, sum.ReadSeconds = rhs, solve.Seconds(p.read)
 	if ones {
 		sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))

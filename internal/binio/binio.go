@@ -38,7 +38,7 @@ var castagnoli = crc32.MakeTable(crc32.Castagnoli)
 var ErrChecksum = errors.New("checksum mismatch")
 
 // ErrLength: a stored length does not fit in the rest of the file.
-var ErrLength = errors.New("length exceeds the rest of the file")
+var ErrLength = errors.New("a length runs past the end of the file (truncated or damaged)")
 
 // Error is a failure to read a file, with where it happened.
 type Error struct {
