@@ -9,7 +9,8 @@
 //
 //	header:          magic "residua-csrfile\n", version (uint32), kind
 //	                 (uint32: 1 matrix, 2 vector), rows, cols, stored
-//	                 entries (int64 each), the content id (string)
+//	                 entries (int64 each), the content id (string), the
+//	                 writer's description (bytes, opaque here)
 //	row pointers:    Rows+1 int64 (matrix only)
 //	column indices:  NNZ int32 (matrix only)
 //	values:          NNZ float64 (a vector: Rows of them)
@@ -95,13 +96,16 @@ type Header struct {
 	Kind            Kind
 	Rows, Cols, NNZ int
 	ID              string
+	// Meta is what the writer chose to keep beside the arrays (the server
+	// keeps the matrix's description); csrfile does not read it.
+	Meta []byte
 	Size            int64 // the file's size in bytes
 }
 
 // Bytes returns the size a file with this header has: the payload of the
 // arrays plus the header and the checksums.
-func Bytes(kind Kind, rows, nnz int, id string) int64 {
-	head := int64(len(magic)) + 4 + 4 + 3*8 + 8 + int64(len(id)) + 4
+func Bytes(kind Kind, rows, nnz int, id string, meta []byte) int64 {
+	head := int64(len(magic)) + 4 + 4 + 3*8 + 8 + int64(len(id)) + 8 + int64(len(meta)) + 4
 	if kind == Vector {
 		return head + 8 + 8*int64(rows) + 4
 	}
@@ -116,18 +120,20 @@ func writeHeader(w *binio.Writer, h Header) {
 	w.Int64(int64(h.Cols))
 	w.Int64(int64(h.NNZ))
 	w.String(h.ID)
+	w.Bytes(h.Meta)
 	w.EndSection()
 }
 
-// WriteMatrix writes a to path atomically and durably and returns its id
-// (wire.MatrixID, computed when id is ""; a caller that has it passes it).
-func WriteMatrix(path string, a *sparse.CSR, id string) (string, error) {
+// WriteMatrix writes a and meta to path atomically and durably and returns
+// its id (wire.MatrixID, computed when id is ""; a caller that has it
+// passes it).
+func WriteMatrix(path string, a *sparse.CSR, id string, meta []byte) (string, error) {
 	if id == "" {
 		id = wire.MatrixID(a)
 	}
 	err := atomicfile.WriteDurable(path, func(out io.Writer) error {
 		w := binio.NewWriter(out)
-		writeHeader(w, Header{Kind: Matrix, Rows: a.Rows, Cols: a.Cols, NNZ: a.NNZ(), ID: id})
+		writeHeader(w, Header{Kind: Matrix, Rows: a.Rows, Cols: a.Cols, NNZ: a.NNZ(), ID: id, Meta: meta})
 		w.Int64s(a.RowPtr)
 		w.EndSection()
 		w.Int32s(a.ColIdx)
@@ -200,6 +206,7 @@ func (rd *reader) header() error {
 	h.Kind = Kind(r.Uint32())
 	h.Rows, h.Cols, h.NNZ = int(r.Int64()), int(r.Int64()), int(r.Int64())
 	h.ID = r.String()
+	h.Meta = r.Bytes()
 	if err := r.EndSection(); err != nil {
 		return rd.fail("header", err)
 	}
@@ -211,7 +218,7 @@ func (rd *reader) header() error {
 	case h.Kind == Vector && (h.Cols != 1 || h.NNZ != h.Rows):
 		return rd.fail("header", fmt.Errorf("%w: a vector of %d×%d with %d entries", ErrFormat, h.Rows, h.Cols, h.NNZ))
 	}
-	if want := Bytes(h.Kind, h.Rows, h.NNZ, h.ID); h.Size != want {
+	if want := Bytes(h.Kind, h.Rows, h.NNZ, h.ID, h.Meta); h.Size != want {
 		// The sizes say exactly how long the file must be: a shorter one
 		// is torn, a longer one has something appended.
 		err := fmt.Errorf("%w: %d bytes, the header's sizes need %d", io.ErrUnexpectedEOF, h.Size, want)
