@@ -86,6 +86,16 @@ type Config struct {
 	// open streams to end) after the jobs have ended; then the server
 	// stops forcibly. Default 5 s.
 	StopTimeout time.Duration
+
+	// DataDir, when set, is the data folder: uploaded matrices are written
+	// there (by content id, fsynced) before the upload's reply, listed
+	// again at start-up and read back, checksums verified, on first use
+	// (see datadir.go). Default "": nothing is kept across restarts.
+	DataDir string
+	// DiskBudget bounds the bytes of the data folder's matrices; to make
+	// room the least recently used are deleted, never one a queued or
+	// running job uses. Default 64 GiB.
+	DiskBudget int64
 }
 
 // withDefaults returns c with zero fields replaced by their defaults, or an
@@ -109,6 +119,7 @@ func (c Config) withDefaults() (Config, error) {
 		{"MaxConcurrentSolves", int64(c.MaxConcurrentSolves)}, {"MaxQueued", int64(c.MaxQueued)},
 		{"MemoryBudget", c.MemoryBudget}, {"MaxJobsKept", int64(c.MaxJobsKept)},
 		{"ShutdownGrace", int64(c.ShutdownGrace)}, {"StopTimeout", int64(c.StopTimeout)},
+		{"DiskBudget", c.DiskBudget},
 	} {
 		if err := neg(f.name, f.v); err != nil {
 			return c, err
@@ -132,6 +143,7 @@ func (c Config) withDefaults() (Config, error) {
 	defInt(&c.MaxQueued, DefaultMaxQueued)
 	def(&c.MemoryBudget, DefaultMemoryBudget)
 	defInt(&c.MaxJobsKept, DefaultMaxJobsKept)
+	def(&c.DiskBudget, DefaultDiskBudget)
 	if c.ShutdownGrace == 0 {
 		c.ShutdownGrace = DefaultShutdownGrace
 	}

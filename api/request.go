@@ -76,7 +76,10 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}
 	it, pn, found := s.store.acquire(key{kind: kindMatrix, id: p.matrixID})
 	if !found {
-		return nil, nil, notFoundf("no matrix %q (upload it first; it may have been evicted or deleted)", p.matrixID)
+		// Not in memory: the data folder may hold it (datadir.go).
+		if it, pn, err = s.loadStored(p.matrixID); err != nil {
+			return nil, nil, err
+		}
 	}
 	p.pins = append(p.pins, pn)
 	p.m = it.value.(*matrixEntry)

@@ -66,6 +66,8 @@ type Server struct {
 	obs    Observer // nil: none
 	// uploaded counts the bytes received by all uploads (for metrics).
 	uploaded atomic.Int64
+	// data is the data folder (Config.DataDir); nil without one.
+	data *dataDir
 
 	mu sync.Mutex // guards the fields below
 	// building holds the preconditioners being set up, by cache key, so
@@ -93,6 +95,11 @@ func NewServer(cfg Config) (*Server, error) {
 		obs:      cfg.Observer,
 	}
 	s.jobs = newRegistry(cfg.Logger, cfg.Observer, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
+	if cfg.DataDir != "" {
+		if s.data, err = openDataDir(cfg.DataDir, cfg.DiskBudget, cfg.Logger, s.matrixInUse); err != nil {
+			return nil, err
+		}
+	}
 	s.jobs.onForget = s.forgetJob
 	if cfg.TokenFile != "" {
 		raw, err := os.ReadFile(cfg.TokenFile)

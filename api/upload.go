@@ -181,22 +181,15 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 		return s.uploadFailed(name, cr, start, orRecv(cr, err))
 	}
 
-	// The content hash and the inspect report each read the whole matrix;
-	// they run side by side.
-	idc := make(chan string, 1)
-	go func() { idc <- wire.MatrixID(a) }()
-	e := &matrixEntry{a: a}
-	e.info = &pb.Matrix{
-		Name: name,
-		Rows: int64(a.Rows), Cols: int64(a.Cols), Nonzeros: int64(a.NNZ()),
-		Symmetry: "general", Bytes: reserved,
+	e := newMatrixEntry(a, name, "", reserved)
+	id := e.info.Id
+	if s.data != nil {
+		// Durable before the reply: the reply means the matrix survives.
+		if err := s.data.put(id, a, e.info); err != nil {
+			s.store.release(reserved)
+			return s.uploadFailed(name, cr, start, err)
+		}
 	}
-	e.info.InspectJson, e.symmetric, e.exactSym, e.asymmetry = inspect(a)
-	if e.symmetric {
-		e.info.Symmetry = "symmetric"
-	}
-	id := <-idc
-	e.info.Id = id
 	it, _, existed := s.store.insert(key{kind: kindMatrix, id: id}, reserved, false, e, func() { s.matrixEvicted(id) })
 	out := cloneMatrix(it.value.(*matrixEntry).info)
 	out.AlreadyStored = existed

@@ -44,6 +44,13 @@ endpoints (/api/jobs, /api/jobs/ID, /api/jobs/ID/history,
 Limits are checked before anything is allocated. Sizes accept a unit:
 KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024).
 
+--data DIR keeps every uploaded matrix in DIR (written and synced before
+the upload's reply, named by its id) and lists them again after a restart,
+reading each back, checksums verified, on first use; damaged files are moved
+to DIR/quarantine with a log line. --disk bounds the folder (default 64GiB),
+deleting the least recently used matrices no queued or running job uses.
+Without --data nothing is kept across restarts.
+
 SIGINT or SIGTERM shuts down in order: health goes NOT_SERVING, new work is
 refused, running solves get --shutdown-grace to finish and are then
 cancelled, open streams get --stop-timeout to close, then the servers stop.`
@@ -53,6 +60,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	var httpAddr string
 	uploadBytes := byteSize(api.DefaultMaxUploadBytes)
 	memory := byteSize(api.DefaultMemoryBudget)
+	disk := byteSize(api.DefaultDiskBudget)
 	f := newFlags("serve", "residua serve [--listen 127.0.0.1:7447] [--http 127.0.0.1:7448] [limits] [--token-file F] [--tls-cert C --tls-key K]", serveAbout)
 	f.StringVar(&cfg.Listen, "listen", api.DefaultListen, "gRPC `address` to listen on")
 	f.StringVar(&httpAddr, "http", "", "also serve the watch page and /metrics on this `address` (default off)")
@@ -69,12 +77,20 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&cfg.TLSKey, "tls-key", "", "PEM private key `file` for --tls-cert")
 	f.DurationVar(&cfg.ShutdownGrace, "shutdown-grace", api.DefaultShutdownGrace, "on shutdown, how long running solves may continue before they are cancelled")
 	f.DurationVar(&cfg.StopTimeout, "stop-timeout", api.DefaultStopTimeout, "on shutdown, how long open streams may take to close after the solves end before the server stops them")
+	f.StringVar(&cfg.DataDir, "data", "", "keep uploaded matrices in this `folder` across restarts (default: nothing is kept)")
+	f.Var(&disk, "disk", "disk budget in `bytes` for the --data folder's matrices; idle ones are deleted least recently used first")
 	pos, err := f.parse(e, args)
 	if err != nil {
 		return err
 	}
 	if len(pos) != 0 {
 		return usageErrorf("serve: takes no arguments, got %q", pos)
+	}
+	cfg.DiskBudget = int64(disk)
+	if cfg.DataDir == "" {
+		fmt.Fprintln(e.stderr, "residua: state is not kept across restarts (no --data folder)")
+	} else {
+		fmt.Fprintf(e.stderr, "residua: uploaded matrices are kept in %s across restarts; jobs and solutions are not yet\n", cfg.DataDir)
 	}
 	cfg.MaxUploadBytes, cfg.MemoryBudget = int64(uploadBytes), int64(memory)
 	for name, v := range map[string]int64{"max-rows": int64(cfg.MaxRows), "max-nonzeros": cfg.MaxNonzeros, "max-rhs": int64(cfg.MaxRHS),
