@@ -194,8 +194,11 @@ type Reader struct {
 // NewReader returns a Reader on r, which holds size bytes in all (the
 // bound every stored length is checked against).
 func NewReader(r io.Reader, size int64) *Reader {
-	buf := int(min(max(size, 16), 1<<20))
-	return &Reader{r: bufio.NewReaderSize(r, buf), crc: crc32.New(castagnoli), size: size, vec: make([]byte, min(buf, 64<<10))}
+	// A small buffer: a header is read without pulling in the arrays behind
+	// it (a start-up listing reads only headers), and the arrays are read in
+	// 64 KiB blocks, which bufio passes straight through.
+	buf := int(min(max(size, 16), 16<<10))
+	return &Reader{r: bufio.NewReaderSize(r, buf), crc: crc32.New(castagnoli), size: size, vec: make([]byte, int(min(max(size, 16), 64<<10)))}
 }
 
 // Section names the section being read, for errors.
