@@ -96,6 +96,10 @@ type Config struct {
 	// room the least recently used are deleted, never one a queued or
 	// running job uses. Default 64 GiB.
 	DiskBudget int64
+	// CheckpointEvery is the wall time between two checkpoints of a
+	// running detached job with a data folder (also written when a
+	// shutdown cancels it). Default 30 s.
+	CheckpointEvery time.Duration
 }
 
 // withDefaults returns c with zero fields replaced by their defaults, or an
@@ -119,7 +123,7 @@ func (c Config) withDefaults() (Config, error) {
 		{"MaxConcurrentSolves", int64(c.MaxConcurrentSolves)}, {"MaxQueued", int64(c.MaxQueued)},
 		{"MemoryBudget", c.MemoryBudget}, {"MaxJobsKept", int64(c.MaxJobsKept)},
 		{"ShutdownGrace", int64(c.ShutdownGrace)}, {"StopTimeout", int64(c.StopTimeout)},
-		{"DiskBudget", c.DiskBudget},
+		{"DiskBudget", c.DiskBudget}, {"CheckpointEvery", int64(c.CheckpointEvery)},
 	} {
 		if err := neg(f.name, f.v); err != nil {
 			return c, err
@@ -144,6 +148,9 @@ func (c Config) withDefaults() (Config, error) {
 	def(&c.MemoryBudget, DefaultMemoryBudget)
 	defInt(&c.MaxJobsKept, DefaultMaxJobsKept)
 	def(&c.DiskBudget, DefaultDiskBudget)
+	if c.CheckpointEvery == 0 {
+		c.CheckpointEvery = DefaultCheckpointEvery
+	}
 	if c.ShutdownGrace == 0 {
 		c.ShutdownGrace = DefaultShutdownGrace
 	}

@@ -32,6 +32,9 @@ type jobParams struct {
 	every    int
 	interval time.Duration
 	pins     []*pin // the matrix, its transpose and stored vectors, released when the job ends
+	// done holds the results of the right-hand sides a job resumed after
+	// a restart had finished before it (jobstore.go).
+	done []*pb.SolveResult
 }
 
 // release gives back what the parameters pinned.
@@ -56,6 +59,12 @@ func fieldError(err error) error {
 // stored vectors pinned, inline vectors decoded, the job's vectors
 // reserved in the memory budget.
 func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
+	return s.newJobWithID(req, "")
+}
+
+// newJobWithID is newJob under a given id (a job resumed after a restart);
+// "" draws a new one.
+func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams, error) {
 	p := &jobParams{matrixID: req.GetMatrixId()}
 	ok := false
 	defer func() {
@@ -173,7 +182,9 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}
 
 	keep := req.GetKeepSolution() || req.GetDetach()
-	id := newJobID()
+	if id == "" {
+		id = newJobID()
+	}
 	// The job's vectors: the solutions, the inline vectors it decoded and
 	// the method's work vectors.
 	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)

@@ -62,11 +62,21 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 
 	outcomes := make([]solve.Outcome, 0, len(p.rhs))
 	for i, b := range p.rhs {
+		if i < len(p.done) {
+			// Solved before a restart (jobstore.go).
+			s.restoreRHS(j, i, p.done[i])
+			outcomes = append(outcomes, solve.Outcome(p.done[i].GetStatus()))
+			continue
+		}
 		x := make([]float64, p.m.a.Cols)
 		rec := &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
-		sum, solveErr := setup.Solve(j.ctx, b, p.x0[i], x, rec)
+		sum, solveErr := setup.SolveDurable(j.ctx, b, p.x0[i], x, rec, s.durable(j, p, i, b))
 		sum.RHSIndex, sum.MatrixID, sum.FromCache = i, p.matrixID, &fromCache
-		j.deliver(i, x, wire.Result(&sum))
+		out := wire.Result(&sum)
+		j.deliver(i, x, out)
+		if solve.Outcome(sum.Status) != solve.Cancelled {
+			s.persistResult(j, i, x, out)
+		}
 		if s.obs != nil {
 			s.obs.IterationsDone(sum.Iterations)
 		}

@@ -66,8 +66,10 @@ type Server struct {
 	obs    Observer // nil: none
 	// uploaded counts the bytes received by all uploads (for metrics).
 	uploaded atomic.Int64
-	// data is the data folder (Config.DataDir); nil without one.
-	data *dataDir
+	// data is the data folder (Config.DataDir) and jobsDB its job store;
+	// nil without one.
+	data   *dataDir
+	jobsDB *jobStore
 
 	mu sync.Mutex // guards the fields below
 	// building holds the preconditioners being set up, by cache key, so
@@ -97,6 +99,9 @@ func NewServer(cfg Config) (*Server, error) {
 	s.jobs = newRegistry(cfg.Logger, cfg.Observer, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
 	if cfg.DataDir != "" {
 		if s.data, err = openDataDir(cfg.DataDir, cfg.DiskBudget, cfg.Logger, s.matrixInUse); err != nil {
+			return nil, err
+		}
+		if s.jobsDB, err = openJobStore(cfg.DataDir, cfg.CheckpointEvery, cfg.Logger); err != nil {
 			return nil, err
 		}
 	}
@@ -192,6 +197,7 @@ func (s *Server) Serve(ctx context.Context, lis net.Listener) error {
 	s.log.Info("serving", "address", lis.Addr().String(), "tls", s.cfg.TLSCert != "", "auth", s.token != nil,
 		"max_concurrent_solves", s.cfg.MaxConcurrentSolves, "max_queued", s.cfg.MaxQueued,
 		"memory_budget_bytes", s.cfg.MemoryBudget, "max_upload_bytes", s.cfg.MaxUploadBytes)
+	s.restoreJobs()
 	serveErr := make(chan error, 1)
 	go func() { serveErr <- s.grpc.Serve(lis) }()
 	var err error
@@ -223,7 +229,7 @@ func (s *Server) shutdown() {
 	if err := s.jobs.wait(graceCtx); err != nil {
 		q, r := s.jobs.Counts()
 		s.log.Warn("grace period over; cancelling jobs", "queued", q, "running", r)
-		s.jobs.cancelAll(fmt.Errorf("server shutting down: %w", context.Canceled))
+		s.jobs.cancelAll(fmt.Errorf("%w: %w", errStopping, context.Canceled))
 		// The solvers check their context every iteration; wait for them.
 		_ = s.jobs.wait(context.Background())
 	}
@@ -237,6 +243,11 @@ func (s *Server) shutdown() {
 		s.log.Warn("graceful stop timed out; stopping forcibly", "timeout", s.cfg.StopTimeout.String())
 		s.grpc.Stop()
 		<-stopped
+	}
+	if s.jobsDB != nil {
+		if err := s.jobsDB.close(); err != nil {
+			s.log.Error("closing the job store", "error", err.Error())
+		}
 	}
 	s.log.Info("stopped", "duration", time.Since(start).String())
 }

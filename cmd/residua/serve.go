@@ -78,6 +78,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.DurationVar(&cfg.ShutdownGrace, "shutdown-grace", api.DefaultShutdownGrace, "on shutdown, how long running solves may continue before they are cancelled")
 	f.DurationVar(&cfg.StopTimeout, "stop-timeout", api.DefaultStopTimeout, "on shutdown, how long open streams may take to close after the solves end before the server stops them")
 	f.StringVar(&cfg.DataDir, "data", "", "keep uploaded matrices in this `folder` across restarts (default: nothing is kept)")
+	f.DurationVar(&cfg.CheckpointEvery, "checkpoint-every", api.DefaultCheckpointEvery, "with --data: wall time between two checkpoints of a running detached job")
 	f.Var(&disk, "disk", "disk budget in `bytes` for the --data folder's matrices; idle ones are deleted least recently used first")
 	pos, err := f.parse(e, args)
 	if err != nil {
@@ -90,12 +91,12 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	if cfg.DataDir == "" {
 		fmt.Fprintln(e.stderr, "residua: state is not kept across restarts (no --data folder)")
 	} else {
-		fmt.Fprintf(e.stderr, "residua: uploaded matrices are kept in %s across restarts; jobs and solutions are not yet\n", cfg.DataDir)
+		fmt.Fprintf(e.stderr, "residua: state is kept in %s across restarts (matrices, jobs, histories, kept solutions; uploaded vectors are not)\n", cfg.DataDir)
 	}
 	cfg.MaxUploadBytes, cfg.MemoryBudget = int64(uploadBytes), int64(memory)
 	for name, v := range map[string]int64{"max-rows": int64(cfg.MaxRows), "max-nonzeros": cfg.MaxNonzeros, "max-rhs": int64(cfg.MaxRHS),
 		"max-solves": int64(cfg.MaxConcurrentSolves), "max-queued": int64(cfg.MaxQueued), "max-jobs-kept": int64(cfg.MaxJobsKept),
-		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget} {
+		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "checkpoint-every": int64(cfg.CheckpointEvery), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget} {
 		if v < 0 {
 			return usageErrorf("serve: --%s must not be negative", name)
 		}

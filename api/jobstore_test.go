@@ -1,0 +1,142 @@
+package api
+
+import (
+	"context"
+	"math"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/residua/residua/client"
+	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond"
+	"github.com/residua/residua/solve"
+	"github.com/residua/residua/sparse/stencil"
+)
+
+func bitwise(x, y []float64) bool {
+	return slices.EqualFunc(x, y, func(p, q float64) bool { return math.Float64bits(p) == math.Float64bits(q) })
+}
+
+// TestJobResumesAfterRestart: a detached job with two right-hand sides is
+// interrupted by a shutdown in the middle of the second (a checkpoint is
+// written as the shutdown cancels it); after a restart on the same data
+// folder the job runs again under its id, the first right-hand side
+// restored and the second resumed from its checkpoint, and both kept
+// solutions are bitwise those of an uninterrupted solve in process (the
+// embedded path the service matches bit for bit), the second's history
+// ending at the uninterrupted solve's last iteration. A job that finished
+// before the restart is listed again with its results, history and
+// solution.
+func TestJobResumesAfterRestart(t *testing.T) {
+	dir := t.TempDir()
+	a := stencil.Poisson2D(40)
+	b0 := onesRHS(a)
+	b1 := make([]float64, a.Rows)
+	for i := range b1 {
+		b1[i] = float64(i%5) - 2
+	}
+	req := solve.Request{Preconditioner: "none", RelTol: 1e-10}
+	set := krylov.Settings{RelTol: 1e-10}
+	x0ref, _ := localSolve(t, a, b0, precond.KindNone, set)
+	x1ref, res1 := localSolve(t, a, b1, precond.KindNone, set)
+
+	h1 := startServer(t, Config{DataDir: dir, ShutdownGrace: time.Millisecond, CheckpointEvery: time.Hour})
+	c1 := h1.dial(t)
+	m, err := c1.UploadCSR(context.Background(), a, "plate")
+	if err != nil {
+		t.Fatal(err)
+	}
+	// A job that finishes before the restart.
+	fin, err := c1.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b0}, Request: req, KeepSolution: true}, nil)
+	if err != nil || fin.Outcome != solve.Converged {
+		t.Fatalf("first job: %v %v", fin.Outcome, err)
+	}
+	held := make(chan struct{})
+	h1.srv.testHookIteration = func(jctx context.Context, _ string, rhs, it int) {
+		if rhs == 1 && it == 7 {
+			close(held)
+			<-jctx.Done() // until the shutdown cancels the job
+		}
+	}
+	det, err := c1.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b0, b1}, Request: req, Detach: true}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	<-held
+	c1.Close()
+	h1.stop()
+	if _, err := os.Stat(filepath.Join(dir, "jobs", det.JobID+".1.ck")); err != nil {
+		t.Fatalf("no checkpoint after the shutdown: %v", err)
+	}
+
+	h2 := startServer(t, Config{DataDir: dir})
+	c2 := h2.dial(t)
+	out, err := c2.Watch(context.Background(), det.JobID, nil)
+	if err != nil || out.Outcome != solve.Converged || len(out.Results) != 2 {
+		t.Fatalf("resumed job: %v, %v, %d results\n%s", out.Outcome, err, len(out.Results), h2.logs.String())
+	}
+	for i, want := range [][]float64{x0ref, x1ref} {
+		x, err := c2.DownloadSolution(context.Background(), det.JobID, i)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !bitwise(x, want) {
+			t.Errorf("right-hand side %d: the resumed job's x differs from the uninterrupted solve's", i)
+		}
+	}
+	hist, err := c2.History(context.Background(), det.JobID, 1)
+	if err != nil || len(hist.Rows) == 0 || hist.Rows[len(hist.Rows)-1].Iteration != res1.Iterations || hist.Rows[0].Iteration != 0 {
+		t.Errorf("history of the resumed right-hand side: %d rows, %v; want 0 … %d", len(hist.Rows), err, res1.Iterations)
+	}
+	if !strings.Contains(h2.logs.String(), "job resumed") || !strings.Contains(h2.logs.String(), "iteration=7") {
+		t.Errorf("no log line saying where the job resumed:\n%s", h2.logs.String())
+	}
+	// The job that had finished is there, with its solution.
+	j, err := c2.Job(context.Background(), fin.JobID)
+	if err != nil || j.GetOutcome() != string(solve.Converged) || len(j.GetResults()) != 1 {
+		t.Fatalf("finished job after the restart: %v, %v", j, err)
+	}
+	x, err := c2.DownloadSolution(context.Background(), fin.JobID, 0)
+	if err != nil || !bitwise(x, x0ref) {
+		t.Errorf("finished job's solution after the restart: %v", err)
+	}
+	if r := relResidual(a, b1, x1ref); r > 1e-10 {
+		t.Errorf("the reference itself: relative residual %g", r)
+	}
+}
+
+// TestAttachedJobAfterCrash: a job attached to its client's stream whose
+// server died (its record left open, as a kill leaves it) is reported
+// after the restart as cancelled, saying why.
+func TestAttachedJobAfterCrash(t *testing.T) {
+	dir := t.TempDir()
+	h1 := startServer(t, Config{DataDir: dir})
+	c1 := h1.dial(t)
+	a := stencil.Poisson2D(10)
+	m, _ := c1.UploadCSR(context.Background(), a, "small")
+	out, err := c1.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{onesRHS(a)}}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c1.Close()
+	h1.stop()
+	// Reopen the record as a kill in the middle of the solve leaves it.
+	js, err := openJobStore(dir, time.Second, h1.srv.log)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := js.update(out.JobID, func(r *jobRecord) { r.Done, r.Results = false, nil }); err != nil {
+		t.Fatal(err)
+	}
+	js.close()
+
+	h2 := startServer(t, Config{DataDir: dir})
+	j, err := h2.dial(t).Job(context.Background(), out.JobID)
+	if err != nil || j.GetOutcome() != string(solve.Cancelled) || !strings.Contains(j.GetError(), "server restarted") {
+		t.Fatalf("attached job after the restart: %v, %v", j, err)
+	}
+}
