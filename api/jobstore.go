@@ -111,6 +111,24 @@ func openJobStore(root string, every time.Duration, log *slog.Logger) (*jobStore
 	return &jobStore{db: db, dir: dir, log: log, every: every}, nil
 }
 
+// openJobStoreOrQuarantine opens the job store; when its file is damaged
+// (bbolt refuses it: a torn meta page, a bad checksum) the file is moved to
+// the quarantine folder with a log line and an empty store is started, so
+// that the server serves its matrices still. A store held by another
+// process is an error.
+func openJobStoreOrQuarantine(root string, every time.Duration, log *slog.Logger, d *dataDir) (*jobStore, error) {
+	js, err := openJobStore(root, every, log)
+	if err == nil || errors.Is(err, bolt.ErrTimeout) {
+		return js, err
+	}
+	path := filepath.Join(root, "jobs.db")
+	if _, serr := os.Stat(path); serr != nil {
+		return nil, err
+	}
+	d.quarantineFile(path, err.Error())
+	return openJobStore(root, every, log)
+}
+
 func (js *jobStore) close() error { return js.db.Close() }
 
 func (js *jobStore) checkpointPath(id string, rhs int) string {

@@ -140,3 +140,84 @@ func TestAttachedJobAfterCrash(t *testing.T) {
 		t.Fatalf("attached job after the restart: %v, %v", j, err)
 	}
 }
+
+// TestJobStoreDamaged: a damaged job store file, a torn checkpoint and a
+// damaged kept solution are each detected: the store is quarantined with a
+// log line and the server serves its matrices still; a torn checkpoint
+// makes its right-hand side start again (with a log line naming the file)
+// and still reach the uninterrupted answer; a damaged solution is refused
+// with NOT_FOUND saying so, never sent.
+func TestJobStoreDamaged(t *testing.T) {
+	dir := t.TempDir()
+	a := stencil.Poisson2D(30)
+	b := onesRHS(a)
+	req := solve.Request{Preconditioner: "none", RelTol: 1e-10}
+	xref, _ := localSolve(t, a, b, precond.KindNone, krylov.Settings{RelTol: 1e-10})
+
+	h1 := startServer(t, Config{DataDir: dir, ShutdownGrace: time.Millisecond, CheckpointEvery: time.Hour})
+	c1 := h1.dial(t)
+	m, _ := c1.UploadCSR(context.Background(), a, "plate")
+	fin, err := c1.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Request: req, KeepSolution: true}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	held := make(chan struct{})
+	h1.srv.testHookIteration = func(jctx context.Context, _ string, _, it int) {
+		if it == 5 {
+			close(held)
+			<-jctx.Done()
+		}
+	}
+	det, err := c1.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b}, Request: req, Detach: true}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	<-held
+	c1.Close()
+	h1.stop()
+	ck := filepath.Join(dir, "jobs", det.JobID+".0.ck")
+	raw, err := os.ReadFile(ck)
+	if err != nil {
+		t.Fatal(err)
+	}
+	os.WriteFile(ck, raw[:len(raw)/2], 0o644)
+	sol := filepath.Join(dir, "jobs", fin.JobID+".0.x")
+	raw, _ = os.ReadFile(sol)
+	raw[len(raw)-10] ^= 1
+	os.WriteFile(sol, raw, 0o644)
+
+	h2 := startServer(t, Config{DataDir: dir})
+	c2 := h2.dial(t)
+	out, err := c2.Watch(context.Background(), det.JobID, nil)
+	if err != nil || out.Outcome != solve.Converged {
+		t.Fatalf("job with a torn checkpoint: %v %v", out.Outcome, err)
+	}
+	if x, err := c2.DownloadSolution(context.Background(), det.JobID, 0); err != nil || !bitwise(x, xref) {
+		t.Errorf("job restarted from x0 after a torn checkpoint: %v", err)
+	}
+	if logs := h2.logs.String(); !strings.Contains(logs, "checkpoint unreadable") || !strings.Contains(logs, ck) {
+		t.Errorf("no log line naming the torn checkpoint:\n%s", logs)
+	}
+	if _, err := c2.DownloadSolution(context.Background(), fin.JobID, 0); err == nil || !strings.Contains(err.Error(), "damaged") {
+		t.Errorf("damaged solution: %v", err)
+	}
+	c2.Close()
+	h2.stop()
+
+	// The store itself: its first page overwritten.
+	db := filepath.Join(dir, "jobs.db")
+	f, _ := os.OpenFile(db, os.O_WRONLY, 0)
+	f.WriteAt(make([]byte, 8192), 0)
+	f.Close()
+	h3 := startServer(t, Config{DataDir: dir})
+	if logs := h3.logs.String(); !strings.Contains(logs, "quarantined a damaged file") || !strings.Contains(logs, db) {
+		t.Errorf("no quarantine line for the damaged store:\n%s", logs)
+	}
+	c3 := h3.dial(t)
+	if list, err := c3.Matrices(context.Background()); err != nil || len(list) != 1 {
+		t.Errorf("matrices after the store was quarantined: %v %v", list, err)
+	}
+	if x := solveByID(t, c3, m.GetId(), b); relResidual(a, b, x) > 1e-9 {
+		t.Error("solve after the store was quarantined")
+	}
+}

@@ -101,7 +101,7 @@ func NewServer(cfg Config) (*Server, error) {
 		if s.data, err = openDataDir(cfg.DataDir, cfg.DiskBudget, cfg.Logger, s.matrixInUse); err != nil {
 			return nil, err
 		}
-		if s.jobsDB, err = openJobStore(cfg.DataDir, cfg.CheckpointEvery, cfg.Logger); err != nil {
+		if s.jobsDB, err = openJobStoreOrQuarantine(cfg.DataDir, cfg.CheckpointEvery, cfg.Logger, s.data); err != nil {
 			return nil, err
 		}
 	}
