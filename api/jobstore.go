@@ -19,6 +19,7 @@ import (
 
 	"github.com/residua/residua/checkpoint"
 	"github.com/residua/residua/csrfile"
+	"github.com/residua/residua/internal/atomicfile"
 	"github.com/residua/residua/krylov"
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/solve"
@@ -90,6 +91,13 @@ func openJobStore(root string, every time.Duration, log *slog.Logger) (*jobStore
 	dir := filepath.Join(root, "jobs")
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("api: data folder: %w", err)
+	}
+	gone, err := atomicfile.RemoveTemps(dir)
+	if err != nil {
+		return nil, fmt.Errorf("api: data folder: %w", err)
+	}
+	for _, name := range gone {
+		log.Warn("data folder: removed a partial write", "file", filepath.Join(dir, name))
 	}
 	path := filepath.Join(root, "jobs.db")
 	db, err := bolt.Open(path, 0o644, &bolt.Options{Timeout: 2 * time.Second})

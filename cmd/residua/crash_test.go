@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -14,6 +15,7 @@ import (
 	"github.com/residua/residua/client"
 	"github.com/residua/residua/csrfile"
 	"github.com/residua/residua/internal/atomicfile"
+	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
 	"github.com/residua/residua/wire"
@@ -174,4 +176,123 @@ func TestCrashLoopUploads(t *testing.T) {
 	}
 	t.Logf("crash loop: %d kills survived, %d uploads acknowledged (%.1f MB of CSR arrays), %d kills inside a file write, %v",
 		kills, len(acked), float64(ackedBytes)/1e6, torn, time.Since(start).Round(time.Millisecond))
+}
+
+// TestCrashLoopJobs is the crash loop for jobs: detached solves (four
+// right-hand sides each, checkpoints every 20 ms) are submitted while the
+// server is killed with SIGKILL at seeded random moments and restarted.
+// Every job whose id was acknowledged must reach an outcome after the
+// last restart, and every converged right-hand side's downloaded solution
+// must meet its tolerance on the true residual, recomputed here from the
+// matrix (‖b − A·x‖ ≤ rtol·‖b‖, with a factor 2 for the rounding of the
+// recomputation itself: common practice). The store must open cleanly
+// every time and no temporary file may be left. RESIDUA_CRASH_KILLS and
+// RESIDUA_CRASH_SEED as for TestCrashLoopUploads.
+func TestCrashLoopJobs(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the binary and restarts it many times")
+	}
+	kills, seed := 20, uint64(21)
+	if v, err := strconv.Atoi(os.Getenv("RESIDUA_CRASH_KILLS")); err == nil && v > 0 {
+		kills = v
+	}
+	if v, err := strconv.ParseUint(os.Getenv("RESIDUA_CRASH_SEED"), 10, 64); err == nil {
+		seed = v
+	}
+	rng := rand.New(rand.NewPCG(seed, 9))
+	bin := buildBinary(t)
+	data := filepath.Join(t.TempDir(), "data")
+	args := []string{"--data", data, "--checkpoint-every", "20ms"}
+	const rtol = 1e-9
+	a := stencil.Poisson3D(30)
+	rhs := make([][]float64, 4)
+	for k := range rhs {
+		rhs[k] = make([]float64, a.Rows)
+		for i := range rhs[k] {
+			rhs[k][i] = float64((i*(k+3))%11) - 5
+		}
+	}
+	var jobs []string
+	matrixID := ""
+	resumes, torn := 0, 0 // from the logs: resumptions from a checkpoint, kills inside a write
+	start := time.Now()
+	for round := 0; round <= kills; round++ {
+		srv := startServer(t, bin, args...)
+		if log := srv.log(); strings.Contains(log, "quarantined") || strings.Contains(log, "could not run again") {
+			t.Fatalf("round %d: start-up:\n%s", round, log)
+		}
+		c, err := client.Dial(context.Background(), srv.grpc)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if matrixID == "" {
+			m, err := c.UploadCSR(context.Background(), a, "block")
+			if err != nil {
+				t.Fatal(err)
+			}
+			matrixID = m.GetId()
+		}
+		if round == kills {
+			// The last start: every acknowledged job reaches an outcome.
+			for _, id := range jobs {
+				ctx, cancel := context.WithTimeout(context.Background(), 90*time.Second)
+				out, err := c.Watch(ctx, id, nil)
+				cancel()
+				if err != nil || out.State != "done" {
+					t.Fatalf("job %s: %v, state %q\n%s", id, err, out.State, srv.log())
+				}
+				for k, res := range out.Results {
+					if res.Status != "converged" {
+						continue
+					}
+					x, err := c.DownloadSolution(context.Background(), id, k)
+					if err != nil {
+						t.Fatalf("job %s rhs %d: %v", id, k, err)
+					}
+					ax := make([]float64, a.Rows)
+					a.MulVec(ax, x)
+					var r, nb float64
+					for i, bi := range rhs[k] {
+						r += (bi - ax[i]) * (bi - ax[i])
+						nb += bi * bi
+					}
+					if rel := math.Sqrt(r / nb); rel > 2*rtol {
+						t.Errorf("job %s rhs %d: true relative residual %.3g > %g", id, k, rel, rtol)
+					}
+				}
+			}
+			c.Close()
+			srv.cmd.Process.Kill()
+			<-srv.done
+			break
+		}
+		deadline := time.Now().Add(time.Duration(20+rng.IntN(600)) * time.Millisecond)
+		for time.Now().Before(deadline) {
+			ctx, cancel := context.WithDeadline(context.Background(), deadline)
+			out, err := c.Solve(ctx, client.SolveRequest{MatrixID: matrixID, B: rhs, Detach: true,
+				Request: solve.Request{Preconditioner: "none", RelTol: rtol}}, nil)
+			cancel()
+			if err != nil {
+				break
+			}
+			jobs = append(jobs, out.JobID) // acknowledged: the id arrived
+		}
+		srv.cmd.Process.Kill()
+		<-srv.done
+		c.Close()
+		log := srv.log()
+		resumes += strings.Count(log, "job resumed")
+		torn += strings.Count(log, "removed a partial write")
+	}
+	ents, _ := os.ReadDir(filepath.Join(data, "jobs"))
+	for _, e := range ents {
+		if atomicfile.IsTemp(e.Name()) {
+			t.Errorf("temporary file left: %s", e.Name())
+		}
+	}
+	if len(jobs) == 0 {
+		t.Fatal("no job was acknowledged")
+	}
+	t.Logf("crash loop for jobs: %d kills survived, %d jobs acknowledged and finished (%d right-hand sides of %d unknowns each), %d resumptions from a checkpoint, %d kills inside a file write, %v",
+		kills, len(jobs), 4*len(jobs), a.Rows, resumes, torn, time.Since(start).Round(time.Millisecond))
 }
