@@ -39,23 +39,33 @@ const DefaultDiskBudget = 64 << 30
 // arrays are read, and every checksum and its id verified, on its first
 // use.
 type dataDir struct {
-	root, matrices, quarantine string
-	budget                     int64
-	log                        *slog.Logger
-	// inUse reports whether a queued or running job holds the matrix.
-	inUse func(id string) bool
+	root, matrices, vectors, quarantine string
+	budget                              int64
+	log                                 *slog.Logger
+	// inUse reports whether a queued or running job holds the matrix or
+	// vector.
+	inUse func(k key) bool
 
 	mu    sync.Mutex // guards files and used
 	files map[string]*diskFile
 	used  int64
 }
 
-// diskFile is one stored matrix on disk.
+// diskFile is one stored matrix or vector on disk. Vectors are keyed
+// "v:ID" in dataDir.files, matrices by their id.
 type diskFile struct {
 	id      string
 	bytes   int64
-	info    *pb.Matrix // from the header's Meta
+	info    *pb.Matrix // a matrix's description, from the header's Meta
+	vinfo   *pb.VectorInfo
 	lastUse time.Time
+}
+
+func (f *diskFile) key() key {
+	if f.vinfo != nil {
+		return key{kind: kindVector, id: f.id}
+	}
+	return key{kind: kindMatrix, id: f.id}
 }
 
 // openDataDir opens (creating it when absent) the data folder at root: it
@@ -63,13 +73,14 @@ type diskFile struct {
 // matrices by their headers, and quarantines every file whose header is
 // damaged, whose name is not its id, or which is not a matrix, with a log
 // line naming it and why.
-func openDataDir(root string, budget int64, log *slog.Logger, inUse func(string) bool) (*dataDir, error) {
+func openDataDir(root string, budget int64, log *slog.Logger, inUse func(key) bool) (*dataDir, error) {
 	start := time.Now()
 	d := &dataDir{
-		root: root, matrices: filepath.Join(root, "matrices"), quarantine: filepath.Join(root, "quarantine"),
-		budget: budget, log: log, inUse: inUse, files: make(map[string]*diskFile),
+		root: root, matrices: filepath.Join(root, "matrices"), vectors: filepath.Join(root, "vectors"),
+		quarantine: filepath.Join(root, "quarantine"),
+		budget:     budget, log: log, inUse: inUse, files: make(map[string]*diskFile),
 	}
-	for _, dir := range []string{d.matrices, d.quarantine} {
+	for _, dir := range []string{d.matrices, d.vectors, d.quarantine} {
 		if err := os.MkdirAll(dir, 0o755); err != nil {
 			return nil, fmt.Errorf("api: data folder: %w", err)
 		}
@@ -116,7 +127,10 @@ func openDataDir(root string, budget int64, log *slog.Logger, inUse func(string)
 		d.files[id] = &diskFile{id: id, bytes: h.Size, info: info, lastUse: mt}
 		d.used += h.Size
 	}
-	log.Info("data folder opened", "folder", root, "matrices", len(d.files), "bytes", d.used,
+	if err := d.openVectors(); err != nil {
+		return nil, err
+	}
+	log.Info("data folder opened", "folder", root, "files", len(d.files), "bytes", d.used,
 		"disk_budget_bytes", budget, "duration", time.Since(start).String())
 	return d, nil
 }
@@ -210,7 +224,7 @@ func (d *dataDir) makeRoomLocked(n int64, what string) error {
 	var idle []*diskFile
 	var idleBytes int64
 	for _, f := range d.files {
-		if !d.inUse(f.id) {
+		if !d.inUse(f.key()) {
 			idle = append(idle, f)
 			idleBytes += f.bytes
 		}
@@ -224,12 +238,16 @@ func (d *dataDir) makeRoomLocked(n int64, what string) error {
 		if d.used+n <= d.budget {
 			break
 		}
-		if err := os.Remove(d.path(f.id)); err != nil && !errors.Is(err, os.ErrNotExist) {
-			return fmt.Errorf("data folder: evicting matrix %s: %w", f.id, err)
+		path, mapKey, what := d.path(f.id), f.id, "matrix"
+		if f.vinfo != nil {
+			path, mapKey, what = d.vpath(f.id), "v:"+f.id, "vector"
 		}
-		delete(d.files, f.id)
+		if err := os.Remove(path); err != nil && !errors.Is(err, os.ErrNotExist) {
+			return fmt.Errorf("data folder: evicting %s %s: %w", what, f.id, err)
+		}
+		delete(d.files, mapKey)
 		d.used -= f.bytes
-		d.log.Info("data folder: matrix evicted", "matrix", f.id, "bytes", f.bytes, "last_use", f.lastUse.Format(time.RFC3339))
+		d.log.Info("data folder: "+what+" evicted", what, f.id, "bytes", f.bytes, "last_use", f.lastUse.Format(time.RFC3339))
 	}
 	return nil
 }
@@ -292,7 +310,9 @@ func (d *dataDir) list() []*pb.Matrix {
 	d.mu.Lock()
 	fs := make([]*diskFile, 0, len(d.files))
 	for _, f := range d.files {
-		fs = append(fs, f)
+		if f.info != nil {
+			fs = append(fs, f)
+		}
 	}
 	d.mu.Unlock()
 	sort.Slice(fs, func(i, j int) bool { return fs[i].lastUse.After(fs[j].lastUse) })
@@ -354,10 +374,10 @@ func (s *Server) loadStored(id string) (*item, *pin, error) {
 	return it, pn, nil
 }
 
-// matrixInUse reports whether a queued or running job holds the matrix
-// (a pin on its memory item): the data folder never evicts those.
-func (s *Server) matrixInUse(id string) bool {
-	for _, e := range s.store.snapshot(func(k key) bool { return k.kind == kindMatrix && k.id == id }) {
+// inUse reports whether a queued or running job holds the matrix or
+// vector (a pin on its memory item): the data folder never evicts those.
+func (s *Server) inUse(k key) bool {
+	for _, e := range s.store.snapshot(func(o key) bool { return o == k }) {
 		return e.pins > 0
 	}
 	return false

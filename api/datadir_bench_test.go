@@ -32,7 +32,7 @@ func BenchmarkReopenDataDir(b *testing.B) {
 		id := wire.MatrixID(&a)
 		meta, _ := proto.Marshal(newMatrixEntry(&a, "m", id, wire.CSRBytes(int64(a.Rows), int64(a.NNZ()))).info)
 		if k == 0 {
-			if _, err := openDataDir(dir, DefaultDiskBudget, slog.New(slog.NewTextHandler(io.Discard, nil)), nil); err != nil {
+			if _, err := openDataDir(dir, DefaultDiskBudget, slog.New(slog.NewTextHandler(io.Discard, nil)), func(key) bool { return false }); err != nil {
 				b.Fatal(err)
 			}
 		}
@@ -42,7 +42,7 @@ func BenchmarkReopenDataDir(b *testing.B) {
 	}
 	log := slog.New(slog.NewTextHandler(io.Discard, nil))
 	for b.Loop() {
-		d, err := openDataDir(dir, DefaultDiskBudget, log, nil)
+		d, err := openDataDir(dir, DefaultDiskBudget, log, func(key) bool { return false })
 		if err != nil || len(d.files) != 100 {
 			b.Fatalf("%v, %d matrices", err, len(d.files))
 		}

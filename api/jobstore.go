@@ -368,7 +368,7 @@ func (s *Server) persistResult(j *job, i int, x []float64, res *pb.SolveResult) 
 		return
 	}
 	if j.keep && x != nil {
-		if _, err := csrfile.WriteVector(s.jobsDB.solutionPath(j.id, i), x, ""); err != nil {
+		if _, err := csrfile.WriteVector(s.jobsDB.solutionPath(j.id, i), x, "", nil); err != nil {
 			s.log.Warn("job store: solution not written", "job", j.id, "rhs", i, "error", err.Error())
 		}
 	}

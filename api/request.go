@@ -141,7 +141,11 @@ func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams
 		case *pb.VectorRef_VectorId:
 			it, pn, found := s.store.acquire(key{kind: kindVector, id: src.VectorId})
 			if !found {
-				return nil, notFoundf("%s: no vector %q (upload it first; it may have been evicted)", what, src.VectorId)
+				// Not in memory: the data folder may hold it.
+				var err error
+				if it, pn, err = s.loadVector(src.VectorId, what); err != nil {
+					return nil, err
+				}
 			}
 			p.pins = append(p.pins, pn)
 			x := it.value.(*vectorEntry).x

@@ -98,7 +98,7 @@ func NewServer(cfg Config) (*Server, error) {
 	}
 	s.jobs = newRegistry(cfg.Logger, cfg.Observer, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
 	if cfg.DataDir != "" {
-		if s.data, err = openDataDir(cfg.DataDir, cfg.DiskBudget, cfg.Logger, s.matrixInUse); err != nil {
+		if s.data, err = openDataDir(cfg.DataDir, cfg.DiskBudget, cfg.Logger, s.inUse); err != nil {
 			return nil, err
 		}
 		if s.jobsDB, err = openJobStoreOrQuarantine(cfg.DataDir, cfg.CheckpointEvery, cfg.Logger, s.data); err != nil {

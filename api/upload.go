@@ -363,6 +363,12 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	}
 	id := hex.EncodeToString(h.Sum(nil))
 	info := &pb.VectorInfo{Id: id, Length: n, Name: meta.GetName()}
+	if s.data != nil {
+		// Durable before the reply (datavec.go).
+		if err := s.data.putVector(x, info); err != nil {
+			return fail(err)
+		}
+	}
 	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, 8*n, false, &vectorEntry{x: x, info: info}, nil)
 	s.log.Info("vector upload", "vector", id, "name", meta.GetName(), "outcome", "stored", "already_stored", existed,
 		"length", n, "duration", time.Since(start).String())

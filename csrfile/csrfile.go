@@ -99,7 +99,7 @@ type Header struct {
 	// Meta is what the writer chose to keep beside the arrays (the server
 	// keeps the matrix's description); csrfile does not read it.
 	Meta []byte
-	Size            int64 // the file's size in bytes
+	Size int64 // the file's size in bytes
 }
 
 // Bytes returns the size a file with this header has: the payload of the
@@ -145,15 +145,15 @@ func WriteMatrix(path string, a *sparse.CSR, id string, meta []byte) (string, er
 	return id, err
 }
 
-// WriteVector writes x to path atomically and durably and returns its id
-// (wire.VectorSum, computed when id is "").
-func WriteVector(path string, x []float64, id string) (string, error) {
+// WriteVector writes x and meta to path atomically and durably and returns
+// its id (wire.VectorSum, computed when id is "").
+func WriteVector(path string, x []float64, id string, meta []byte) (string, error) {
 	if id == "" {
 		id = wire.VectorSum(x)
 	}
 	err := atomicfile.WriteDurable(path, func(out io.Writer) error {
 		w := binio.NewWriter(out)
-		writeHeader(w, Header{Kind: Vector, Rows: len(x), Cols: 1, NNZ: len(x), ID: id})
+		writeHeader(w, Header{Kind: Vector, Rows: len(x), Cols: 1, NNZ: len(x), ID: id, Meta: meta})
 		w.Float64s(x)
 		w.EndSection()
 		return w.Flush()

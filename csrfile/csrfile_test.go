@@ -76,7 +76,7 @@ func TestRoundTrip(t *testing.T) {
 
 	x := []float64{1, math.Inf(1), math.Copysign(0, -1), math.SmallestNonzeroFloat64, math.NaN()}
 	p := filepath.Join(t.TempDir(), "v")
-	id, err := WriteVector(p, x, "")
+	id, err := WriteVector(p, x, "", nil)
 	if err != nil || id != wire.VectorSum(x) {
 		t.Fatalf("WriteVector: %s, %v", id, err)
 	}
@@ -193,7 +193,7 @@ func TestNoTempLeft(t *testing.T) {
 	if _, err := WriteMatrix(filepath.Join(dir, "missing", "m.csr"), stencil.Poisson2D(3), "", nil); err == nil {
 		t.Fatal("writing into a missing folder succeeded")
 	}
-	if _, err := WriteVector(filepath.Join(dir, "v"), []float64{1, 2}, ""); err != nil {
+	if _, err := WriteVector(filepath.Join(dir, "v"), []float64{1, 2}, "", nil); err != nil {
 		t.Fatal(err)
 	}
 	ents, _ := os.ReadDir(dir)

@@ -9,8 +9,12 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"syscall"
 	"testing"
 	"time"
+
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
 
 	"github.com/residua/residua/client"
 	"github.com/residua/residua/csrfile"
@@ -295,4 +299,106 @@ func TestCrashLoopJobs(t *testing.T) {
 	}
 	t.Logf("crash loop for jobs: %d kills survived, %d jobs acknowledged and finished (%d right-hand sides of %d unknowns each), %d resumptions from a checkpoint, %d kills inside a file write, %v",
 		kills, len(jobs), 4*len(jobs), a.Rows, resumes, torn, time.Since(start).Round(time.Millisecond))
+}
+
+// TestGracefulRestartUnderLoad: 16 clients solve (8 detached, 8 attached)
+// while the server gets SIGTERM and is restarted. Every detached job
+// finishes after the restart, converged; every attached one either
+// finished before the stop or got a clear status (CANCELED or UNAVAILABLE
+// with a message), and its record says how it ended.
+func TestGracefulRestartUnderLoad(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the binary")
+	}
+	bin := buildBinary(t)
+	data := filepath.Join(t.TempDir(), "data")
+	args := []string{"--data", data, "--checkpoint-every", "50ms", "--shutdown-grace", "100ms"}
+	a := stencil.Poisson3D(30)
+	b := make([]float64, a.Rows)
+	a.MulVec(b, onesVec(a.Cols))
+	srv := startServer(t, bin, args...)
+	c, err := client.Dial(context.Background(), srv.grpc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := c.UploadCSR(context.Background(), a, "block")
+	if err != nil {
+		t.Fatal(err)
+	}
+	req := client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{b, b, b}, Request: solve.Request{Preconditioner: "none", RelTol: 1e-10}}
+	var mu sync.Mutex
+	var detached, attached []string
+	attachedErr := map[string]error{}
+	refused := 0
+	acks := make(chan struct{}, 16)
+	var wg sync.WaitGroup
+	for i := range 16 {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			r := req
+			r.Detach = i%2 == 0
+			once := sync.Once{}
+			out, err := c.Solve(context.Background(), r, func(client.Event) { once.Do(func() { acks <- struct{}{} }) })
+			once.Do(func() { acks <- struct{}{} })
+			mu.Lock()
+			defer mu.Unlock()
+			if err != nil && (out == nil || out.JobID == "") {
+				refused++ // refused before it had an id (the server was stopping)
+			}
+			switch {
+			case r.Detach && err == nil:
+				detached = append(detached, out.JobID)
+			case !r.Detach && out != nil && out.JobID != "":
+				attached = append(attached, out.JobID)
+				attachedErr[out.JobID] = err
+			}
+		}()
+	}
+	// SIGTERM once every client has its job id (its first event), so that
+	// the stop meets 16 accepted jobs, most of them queued or running.
+	for range 16 {
+		select {
+		case <-acks:
+		case <-time.After(60 * time.Second):
+			t.Fatal("the clients did not all get a job id")
+		}
+	}
+	srv.cmd.Process.Signal(syscall.SIGTERM)
+	if err := <-srv.done; err != nil {
+		t.Fatalf("graceful stop: %v\n%s", err, srv.log())
+	}
+	wg.Wait()
+	c.Close()
+	for id, err := range attachedErr {
+		if code := status.Code(err); err != nil && code != codes.Canceled && code != codes.Unavailable {
+			t.Errorf("attached job %s: %v", id, err)
+		}
+	}
+
+	srv = startServer(t, bin, args...)
+	c, err = client.Dial(context.Background(), srv.grpc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer c.Close()
+	for _, id := range detached {
+		ctx, cancel := context.WithTimeout(context.Background(), 90*time.Second)
+		out, err := c.Watch(ctx, id, nil)
+		cancel()
+		if err != nil || out.Outcome != solve.Converged {
+			t.Errorf("detached job %s after the restart: %v, %v", id, out.Outcome, err)
+		}
+	}
+	for _, id := range attached {
+		j, err := c.Job(context.Background(), id)
+		if err != nil || j.GetState().String() != "DONE" || (j.GetOutcome() != "converged" && j.GetError() == "") {
+			t.Errorf("attached job %s after the restart: %v, %v", id, j, err)
+		}
+	}
+	if len(detached)+len(attached)+refused != 16 {
+		t.Errorf("%d detached, %d attached, %d refused: some client got no answer", len(detached), len(attached), refused)
+	}
+	t.Logf("graceful restart: %d detached jobs finished after it, %d attached jobs reported, %d requests refused while stopping",
+		len(detached), len(attached), refused)
 }
