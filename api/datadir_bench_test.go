@@ -1,22 +1,28 @@
 package api
 
 import (
+	"fmt"
 	"io"
 	"log/slog"
 	"path/filepath"
 	"testing"
+	"time"
 
 	"google.golang.org/protobuf/proto"
 
 	"github.com/residua/residua/csrfile"
+	"github.com/residua/residua/krylov"
+	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/sparse/stencil"
 	"github.com/residua/residua/wire"
 )
 
 // BenchmarkReopenDataDir reopens a data folder of 100 stored matrices (3D
-// Poisson of side 30, 2.1 MB each as a csrfile): start-up reads only the
-// headers, so it should take a small fraction of a second whatever the
-// matrices' sizes.
+// Poisson of side 30, 2.1 MB each as a csrfile) and 1000 finished jobs
+// (each with a result and a 300-row history in the job store): the whole
+// start-up of a server on the folder (NewServer and the restoration of the
+// jobs Serve does first). Matrices are loaded lazily, so it should take a
+// small fraction of a second whatever their sizes.
 //
 //	go test -run '^$' -bench 'ReopenDataDir' -benchtime 5x ./api
 func BenchmarkReopenDataDir(b *testing.B) {
@@ -41,10 +47,38 @@ func BenchmarkReopenDataDir(b *testing.B) {
 		}
 	}
 	log := slog.New(slog.NewTextHandler(io.Discard, nil))
-	for b.Loop() {
-		d, err := openDataDir(dir, DefaultDiskBudget, log, func(key) bool { return false })
-		if err != nil || len(d.files) != 100 {
-			b.Fatalf("%v, %d matrices", err, len(d.files))
+	js, err := openJobStore(dir, time.Second, log)
+	if err != nil {
+		b.Fatal(err)
+	}
+	info, _ := proto.Marshal(&pb.Job{Method: "cg", RhsCount: 1, Detached: true})
+	res, _ := proto.Marshal(&pb.SolveResult{Status: "converged", Iterations: 300, Headline: "converged in 300 iterations"})
+	rows := make([]krylov.Progress, 300)
+	for i := range rows {
+		rows[i] = krylov.Progress{Iteration: i, ResidualNorm: 1 / float64(i+1)}
+	}
+	t0 := time.Now()
+	for k := range 1000 {
+		id := fmt.Sprintf("j%015d", k)
+		rec := &jobRecord{ID: id, Created: t0.Add(time.Duration(k)), Info: info, Detached: true, Keep: true,
+			Done: true, Outcome: "converged", Finished: t0, Results: [][]byte{res}}
+		if err := js.put(rec); err != nil {
+			b.Fatal(err)
 		}
+		if err := js.putHistory(id, 0, rows); err != nil {
+			b.Fatal(err)
+		}
+	}
+	js.close()
+	for b.Loop() {
+		s, err := NewServer(Config{DataDir: dir, Logger: log})
+		if err != nil {
+			b.Fatal(err)
+		}
+		s.restoreJobs()
+		if n := len(s.jobs.Jobs()); n != 1000 || len(s.data.files) != 100 {
+			b.Fatalf("%d jobs, %d matrices", n, len(s.data.files))
+		}
+		s.jobsDB.close()
 	}
 }

@@ -15,6 +15,7 @@ import (
 	"time"
 
 	bolt "go.etcd.io/bbolt"
+	bolterrors "go.etcd.io/bbolt/errors"
 	"google.golang.org/protobuf/proto"
 
 	"github.com/residua/residua/checkpoint"
@@ -126,7 +127,7 @@ func openJobStore(root string, every time.Duration, log *slog.Logger) (*jobStore
 // process is an error.
 func openJobStoreOrQuarantine(root string, every time.Duration, log *slog.Logger, d *dataDir) (*jobStore, error) {
 	js, err := openJobStore(root, every, log)
-	if err == nil || errors.Is(err, bolt.ErrTimeout) {
+	if err == nil || errors.Is(err, bolterrors.ErrTimeout) {
 		return js, err
 	}
 	path := filepath.Join(root, "jobs.db")

@@ -44,12 +44,16 @@ endpoints (/api/jobs, /api/jobs/ID, /api/jobs/ID/history,
 Limits are checked before anything is allocated. Sizes accept a unit:
 KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024).
 
---data DIR keeps every uploaded matrix in DIR (written and synced before
-the upload's reply, named by its id) and lists them again after a restart,
-reading each back, checksums verified, on first use; damaged files are moved
-to DIR/quarantine with a log line. --disk bounds the folder (default 64GiB),
-deleting the least recently used matrices no queued or running job uses.
-Without --data nothing is kept across restarts.
+--data DIR keeps the state in DIR: every uploaded matrix and vector
+(written and synced before the upload's reply, named by its id, read back
+with its checksums verified on first use), the job records and histories
+(committed before a job's id is sent), checkpoints of running detached jobs
+every --checkpoint-every, and kept solutions. After a restart finished jobs
+are listed again and queued or running detached jobs continue from their
+last checkpoint. Damaged files are moved to DIR/quarantine with a log line.
+--disk bounds the matrices and vectors (default 64GiB), deleting the least
+recently used that no queued or running job uses. Without --data nothing is
+kept across restarts.
 
 SIGINT or SIGTERM shuts down in order: health goes NOT_SERVING, new work is
 refused, running solves get --shutdown-grace to finish and are then
