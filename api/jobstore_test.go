@@ -92,6 +92,12 @@ func TestJobResumesAfterRestart(t *testing.T) {
 	if err != nil || len(hist.Rows) == 0 || hist.Rows[len(hist.Rows)-1].Iteration != res1.Iterations || hist.Rows[0].Iteration != 0 {
 		t.Errorf("history of the resumed right-hand side: %d rows, %v; want 0 … %d", len(hist.Rows), err, res1.Iterations)
 	}
+	if r := out.Results[1].ResumedFrom; r == nil || *r != 7 {
+		t.Errorf("the resumed right-hand side's result says resumed_from_iteration %v, want 7", r)
+	}
+	if out.Results[0].ResumedFrom != nil {
+		t.Errorf("the restored first right-hand side says it resumed")
+	}
 	if !strings.Contains(h2.logs.String(), "job resumed") || !strings.Contains(h2.logs.String(), "iteration=7") {
 		t.Errorf("no log line saying where the job resumed:\n%s", h2.logs.String())
 	}

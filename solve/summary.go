@@ -170,8 +170,9 @@ type Summary struct {
 	SolutionNote string `json:"solution_note,omitempty"`
 
 	// ResumedFrom is the iteration a resumed solve continued from (its
-	// checkpoint's); absent for a solve that started from x0.
-	// CheckpointFile is the checkpoint the command line kept writing.
+	// checkpoint's: --resume, or a server job resumed after a restart);
+	// absent for a solve that started from x0. CheckpointFile is the
+	// checkpoint the command line kept writing.
 	ResumedFrom    *int   `json:"resumed_from_iteration,omitempty"`
 	CheckpointFile string `json:"checkpoint_file,omitempty"`
 }
