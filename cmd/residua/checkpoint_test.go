@@ -162,14 +162,10 @@ func TestResumeRefusesOther(t *testing.T) {
 	}
 }
 
-// TestCheckpointSignal drives the real binary: SIGINT during a solve with
+// testCheckpointSignal drives the real binary: SIGINT during a solve with
 // --checkpoint, then --resume, gives bitwise the x of an uninterrupted run
 // (the same binary on the same machine, so the same worker count).
-func TestCheckpointSignal(t *testing.T) {
-	if testing.Short() {
-		t.Skip("builds the binary")
-	}
-	bin := buildBinary(t)
+func testCheckpointSignal(t *testing.T, bin string) {
 	dir := t.TempDir()
 	a := genPoisson(t, dir, 40)
 	x1, x2, ck := filepath.Join(dir, "x1.mtx"), filepath.Join(dir, "x2.mtx"), filepath.Join(dir, "state.ck")

@@ -38,7 +38,7 @@ func crashMatrix(k int, side int) *sparse.CSR {
 	return a
 }
 
-// TestCrashLoopUploads starts the real binary with --data, uploads
+// testCrashLoopUploads starts the real binary with --data, uploads
 // matrices from several clients at once, and kills the server with SIGKILL
 // at seeded random moments (during uploads, during the data folder's
 // writes), restarting it each time. After every restart the folder must
@@ -51,10 +51,7 @@ func crashMatrix(k int, side int) *sparse.CSR {
 //
 // The short form (CI) kills 20 times; RESIDUA_CRASH_KILLS sets another
 // count (the long form) and RESIDUA_CRASH_SEED the seed.
-func TestCrashLoopUploads(t *testing.T) {
-	if testing.Short() {
-		t.Skip("builds the binary and restarts it many times")
-	}
+func testCrashLoopUploads(t *testing.T, bin string) {
 	kills, seed := 20, uint64(12)
 	if v, err := strconv.Atoi(os.Getenv("RESIDUA_CRASH_KILLS")); err == nil && v > 0 {
 		kills = v
@@ -63,7 +60,6 @@ func TestCrashLoopUploads(t *testing.T) {
 		seed = v
 	}
 	rng := rand.New(rand.NewPCG(seed, 7))
-	bin := buildBinary(t)
 	dir := t.TempDir()
 	data := filepath.Join(dir, "data")
 
@@ -182,7 +178,7 @@ func TestCrashLoopUploads(t *testing.T) {
 		kills, len(acked), float64(ackedBytes)/1e6, torn, time.Since(start).Round(time.Millisecond))
 }
 
-// TestCrashLoopJobs is the crash loop for jobs: detached solves (four
+// testCrashLoopJobs is the crash loop for jobs: detached solves (four
 // right-hand sides each, checkpoints every 20 ms) are submitted while the
 // server is killed with SIGKILL at seeded random moments and restarted.
 // Every job whose id was acknowledged must reach an outcome after the
@@ -191,11 +187,8 @@ func TestCrashLoopUploads(t *testing.T) {
 // matrix (‖b − A·x‖ ≤ rtol·‖b‖, with a factor 2 for the rounding of the
 // recomputation itself: common practice). The store must open cleanly
 // every time and no temporary file may be left. RESIDUA_CRASH_KILLS and
-// RESIDUA_CRASH_SEED as for TestCrashLoopUploads.
-func TestCrashLoopJobs(t *testing.T) {
-	if testing.Short() {
-		t.Skip("builds the binary and restarts it many times")
-	}
+// RESIDUA_CRASH_SEED as for testCrashLoopUploads.
+func testCrashLoopJobs(t *testing.T, bin string) {
 	kills, seed := 20, uint64(21)
 	if v, err := strconv.Atoi(os.Getenv("RESIDUA_CRASH_KILLS")); err == nil && v > 0 {
 		kills = v
@@ -204,7 +197,6 @@ func TestCrashLoopJobs(t *testing.T) {
 		seed = v
 	}
 	rng := rand.New(rand.NewPCG(seed, 9))
-	bin := buildBinary(t)
 	data := filepath.Join(t.TempDir(), "data")
 	args := []string{"--data", data, "--checkpoint-every", "20ms"}
 	const rtol = 1e-9
@@ -301,16 +293,12 @@ func TestCrashLoopJobs(t *testing.T) {
 		kills, len(jobs), 4*len(jobs), a.Rows, resumes, torn, time.Since(start).Round(time.Millisecond))
 }
 
-// TestGracefulRestartUnderLoad: 16 clients solve (8 detached, 8 attached)
+// testGracefulRestartUnderLoad: 16 clients solve (8 detached, 8 attached)
 // while the server gets SIGTERM and is restarted. Every detached job
 // finishes after the restart, converged; every attached one either
 // finished before the stop or got a clear status (CANCELED or UNAVAILABLE
 // with a message), and its record says how it ended.
-func TestGracefulRestartUnderLoad(t *testing.T) {
-	if testing.Short() {
-		t.Skip("builds the binary")
-	}
-	bin := buildBinary(t)
+func testGracefulRestartUnderLoad(t *testing.T, bin string) {
 	data := filepath.Join(t.TempDir(), "data")
 	args := []string{"--data", data, "--checkpoint-every", "50ms", "--shutdown-grace", "100ms"}
 	a := stencil.Poisson3D(30)
@@ -401,4 +389,18 @@ func TestGracefulRestartUnderLoad(t *testing.T) {
 	}
 	t.Logf("graceful restart: %d detached jobs finished after it, %d attached jobs reported, %d requests refused while stopping",
 		len(detached), len(attached), refused)
+}
+
+// TestDurableBinary runs the tests of the real binary's durability on one
+// build of it: the crash loops, the graceful restart and the checkpoint
+// of a local solve under SIGINT.
+func TestDurableBinary(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the binary and restarts it many times")
+	}
+	bin := buildBinary(t)
+	t.Run("checkpoint-signal", func(t *testing.T) { testCheckpointSignal(t, bin) })
+	t.Run("crash-loop-uploads", func(t *testing.T) { testCrashLoopUploads(t, bin) })
+	t.Run("crash-loop-jobs", func(t *testing.T) { testCrashLoopJobs(t, bin) })
+	t.Run("graceful-restart", func(t *testing.T) { testGracefulRestartUnderLoad(t, bin) })
 }
