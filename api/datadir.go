@@ -46,9 +46,10 @@ type dataDir struct {
 	// vector.
 	inUse func(k key) bool
 
-	mu    sync.Mutex // guards files and used
-	files map[string]*diskFile
-	used  int64
+	mu       sync.Mutex // guards files, jobFiles and used
+	files    map[string]*diskFile
+	jobFiles map[string]int64 // path → bytes of the job files (see reserveFile)
+	used     int64
 }
 
 // diskFile is one stored matrix or vector on disk. Vectors are keyed
@@ -79,6 +80,7 @@ func openDataDir(root string, budget int64, log *slog.Logger, inUse func(key) bo
 		root: root, matrices: filepath.Join(root, "matrices"), vectors: filepath.Join(root, "vectors"),
 		quarantine: filepath.Join(root, "quarantine"),
 		budget:     budget, log: log, inUse: inUse, files: make(map[string]*diskFile),
+		jobFiles: make(map[string]int64),
 	}
 	for _, dir := range []string{d.matrices, d.vectors, d.quarantine} {
 		if err := os.MkdirAll(dir, 0o755); err != nil {
@@ -130,6 +132,7 @@ func openDataDir(root string, budget int64, log *slog.Logger, inUse func(key) bo
 	if err := d.openVectors(); err != nil {
 		return nil, err
 	}
+	d.countJobFiles(filepath.Join(root, "jobs"))
 	log.Info("data folder opened", "folder", root, "files", len(d.files), "bytes", d.used,
 		"disk_budget_bytes", budget, "duration", time.Since(start).String())
 	return d, nil
@@ -381,4 +384,52 @@ func (s *Server) inUse(k key) bool {
 		return e.pins > 0
 	}
 	return false
+}
+
+// The job files (checkpoints and kept solutions, jobstore.go) count
+// against the same disk budget: a write reserves its size first, making
+// room by evicting idle matrices and vectors, and a file that cannot fit
+// is not written (the job goes on; a log line says so). They are not
+// evicted themselves: checkpoints go when their right-hand side ends,
+// solutions when their job is forgotten.
+
+// reserveFile accounts for the file at path taking size bytes (replacing
+// what it took before).
+func (d *dataDir) reserveFile(path string, size int64, what string) error {
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	delta := size - d.jobFiles[path]
+	if delta > 0 {
+		if err := d.makeRoomLocked(delta, what); err != nil {
+			return err
+		}
+	}
+	d.used += delta
+	d.jobFiles[path] = size
+	return nil
+}
+
+// releaseFile removes path and its accounting.
+func (d *dataDir) releaseFile(path string) {
+	os.Remove(path)
+	d.mu.Lock()
+	d.used -= d.jobFiles[path]
+	delete(d.jobFiles, path)
+	d.mu.Unlock()
+}
+
+// countJobFiles accounts for the job files found at start-up (temporary
+// ones are swept by the job store).
+func (d *dataDir) countJobFiles(dir string) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return
+	}
+	for _, e := range ents {
+		if fi, err := e.Info(); err == nil && e.Type().IsRegular() && !atomicfile.IsTemp(e.Name()) {
+			path := filepath.Join(dir, e.Name())
+			d.jobFiles[path] = fi.Size()
+			d.used += fi.Size()
+		}
+	}
 }

@@ -57,6 +57,7 @@ const DefaultCheckpointEvery = 30 * time.Second
 // whose client's stream died with the server, is recorded as cancelled,
 // saying so.
 type jobStore struct {
+	data  *dataDir // the disk budget the job files count against
 	db    *bolt.DB
 	dir   string
 	log   *slog.Logger
@@ -127,6 +128,9 @@ func openJobStore(root string, every time.Duration, log *slog.Logger) (*jobStore
 // process is an error.
 func openJobStoreOrQuarantine(root string, every time.Duration, log *slog.Logger, d *dataDir) (*jobStore, error) {
 	js, err := openJobStore(root, every, log)
+	if err == nil {
+		js.data = d
+	}
 	if err == nil || errors.Is(err, bolterrors.ErrTimeout) {
 		return js, err
 	}
@@ -135,10 +139,30 @@ func openJobStoreOrQuarantine(root string, every time.Duration, log *slog.Logger
 		return nil, err
 	}
 	d.quarantineFile(path, err.Error())
-	return openJobStore(root, every, log)
+	if js, err = openJobStore(root, every, log); err == nil {
+		js.data = d
+	}
+	return js, err
 }
 
 func (js *jobStore) close() error { return js.db.Close() }
+
+// reserve accounts a job file of size bytes in the disk budget.
+func (js *jobStore) reserve(path string, size int64, what string) error {
+	if js.data == nil {
+		return nil
+	}
+	return js.data.reserveFile(path, size, what)
+}
+
+// removeFile deletes a job file and its accounting.
+func (js *jobStore) removeFile(path string) {
+	if js.data == nil {
+		os.Remove(path)
+		return
+	}
+	js.data.releaseFile(path)
+}
 
 func (js *jobStore) checkpointPath(id string, rhs int) string {
 	return filepath.Join(js.dir, id+"."+strconv.Itoa(rhs)+".ck")
@@ -214,8 +238,8 @@ func (js *jobStore) remove(id string, nrhs int) {
 		js.log.Error("job store: deleting a record", "job", id, "error", err.Error())
 	}
 	for i := range nrhs {
-		os.Remove(js.checkpointPath(id, i))
-		os.Remove(js.solutionPath(id, i))
+		js.removeFile(js.checkpointPath(id, i))
+		js.removeFile(js.solutionPath(id, i))
 	}
 }
 
@@ -346,7 +370,21 @@ func (s *Server) durable(j *job, p *jobParams, i int, b []float64) solve.Durable
 	d.Checkpoint = &krylov.Checkpoint{Every: s.jobsDB.every, Save: func(st *krylov.State) error {
 		f := &checkpoint.File{MatrixID: p.matrixID, RHSID: rhsID, Request: p.req, Written: time.Now(),
 			History: rowsUpTo(log.Snapshot().Rows, st.Iteration), State: st}
-		if err := checkpoint.Write(path, f); err != nil {
+		// Reserve what the file will take (the vectors, the history rows,
+		// and headers and checksums well within 64 KiB), then what it took.
+		est := int64(40*len(f.History) + 64<<10)
+		for _, v := range st.Vectors {
+			est += 8 * int64(len(v))
+		}
+		if err := s.jobsDB.reserve(path, est, "the checkpoint of job "+j.id); err != nil {
+			s.log.Warn("job store: checkpoint not written (the job goes on)", "job", j.id, "rhs", i, "error", err.Error())
+			return nil
+		}
+		err := checkpoint.Write(path, f)
+		if fi, serr := os.Stat(path); serr == nil {
+			_ = s.jobsDB.reserve(path, fi.Size(), "")
+		}
+		if err != nil {
 			s.log.Warn("job store: checkpoint not written (the job goes on)", "job", j.id, "rhs", i, "error", err.Error())
 		}
 		return nil
@@ -369,7 +407,11 @@ func (s *Server) persistResult(j *job, i int, x []float64, res *pb.SolveResult) 
 		return
 	}
 	if j.keep && x != nil {
-		if _, err := csrfile.WriteVector(s.jobsDB.solutionPath(j.id, i), x, "", nil); err != nil {
+		path, id := s.jobsDB.solutionPath(j.id, i), wire.VectorSum(x)
+		if err := s.jobsDB.reserve(path, csrfile.Bytes(csrfile.Vector, len(x), len(x), id, nil), "the solution of job "+j.id); err != nil {
+			s.log.Warn("job store: solution not kept on disk (it stays downloadable until a restart)", "job", j.id, "rhs", i, "error", err.Error())
+		} else if _, err := csrfile.WriteVector(path, x, id, nil); err != nil {
+			s.jobsDB.removeFile(path)
 			s.log.Warn("job store: solution not written", "job", j.id, "rhs", i, "error", err.Error())
 		}
 	}
@@ -387,7 +429,7 @@ func (s *Server) persistResult(j *job, i int, x []float64, res *pb.SolveResult) 
 	}); err != nil {
 		s.log.Warn("job store: result not recorded", "job", j.id, "rhs", i, "error", err.Error())
 	}
-	os.Remove(s.jobsDB.checkpointPath(j.id, i))
+	s.jobsDB.removeFile(s.jobsDB.checkpointPath(j.id, i))
 }
 
 // persistEnd records how a job ended, unless a shutdown interrupted a

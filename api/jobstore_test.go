@@ -10,11 +10,15 @@ import (
 	"testing"
 	"time"
 
+	"google.golang.org/protobuf/proto"
+
 	"github.com/residua/residua/client"
+	"github.com/residua/residua/csrfile"
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/precond"
 	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse/stencil"
+	"github.com/residua/residua/wire"
 )
 
 func bitwise(x, y []float64) bool {
@@ -225,5 +229,40 @@ func TestJobStoreDamaged(t *testing.T) {
 	}
 	if x := solveByID(t, c3, m.GetId(), b); relResidual(a, b, x) > 1e-9 {
 		t.Error("solve after the store was quarantined")
+	}
+}
+
+// TestJobFilesInBudget: kept solutions count against the disk budget, and
+// the matrix a running job uses is never evicted to make room for them:
+// with a budget that holds the matrix and nothing more, the solution is
+// not written to disk (a log line says so), stays downloadable from
+// memory, and the matrix stays.
+func TestJobFilesInBudget(t *testing.T) {
+	dir := t.TempDir()
+	a := stencil.Poisson2D(30)
+	id := wire.MatrixID(a)
+	meta, _ := proto.Marshal(newMatrixEntry(a, "plate", id, wire.CSRBytes(int64(a.Rows), int64(a.NNZ()))).info)
+	budget := csrfile.Bytes(csrfile.Matrix, a.Rows, a.NNZ(), id, meta) + 100
+	h := startServer(t, Config{DataDir: dir, DiskBudget: budget})
+	c := h.dial(t)
+	m, err := c.UploadCSR(context.Background(), a, "plate")
+	if err != nil {
+		t.Fatal(err)
+	}
+	out, err := c.Solve(context.Background(), client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{onesRHS(a)}, Detach: true}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := c.Watch(context.Background(), out.JobID, nil); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := c.DownloadSolution(context.Background(), out.JobID, 0); err != nil {
+		t.Errorf("solution from memory: %v", err)
+	}
+	if !strings.Contains(h.logs.String(), "solution not kept on disk") {
+		t.Errorf("no log line for the solution over the budget:\n%s", h.logs.String())
+	}
+	if _, err := os.Stat(filepath.Join(dir, "matrices", m.GetId()+".csr")); err != nil {
+		t.Errorf("the running job's matrix was evicted: %v", err)
 	}
 }
