@@ -118,6 +118,19 @@ type Config struct {
 	// metadata with INVALID_ARGUMENT, because their row pointers cost 8
 	// bytes a row however short the upload.
 	AllowMostlyEmpty bool
+	// DataDir, when set, is the data folder: uploaded matrices are written
+	// there (by content id, fsynced) before the upload's reply, listed
+	// again at start-up and read back, checksums verified, on first use
+	// (see datadir.go). Default "": nothing is kept across restarts.
+	DataDir string
+	// DiskBudget bounds the bytes of the data folder's matrices; to make
+	// room the least recently used are deleted, never one a queued or
+	// running job uses. Default 64 GiB.
+	DiskBudget int64
+	// CheckpointEvery is the wall time between two checkpoints of a
+	// running detached job with a data folder (also written when a
+	// shutdown cancels it). Default 30 s.
+	CheckpointEvery time.Duration
 }
 
 // withDefaults returns c with zero fields replaced by their defaults, or an
@@ -143,6 +156,7 @@ func (c Config) withDefaults() (Config, error) {
 		{"ShutdownGrace", int64(c.ShutdownGrace)}, {"StopTimeout", int64(c.StopTimeout)},
 		{"MaxJobIterations", int64(c.MaxJobIterations)}, {"MaxJobTime", int64(c.MaxJobTime)},
 		{"UploadIdleTimeout", int64(c.UploadIdleTimeout)}, {"ProtectRecent", int64(c.ProtectRecent)},
+		{"DiskBudget", c.DiskBudget}, {"CheckpointEvery", int64(c.CheckpointEvery)},
 	} {
 		if err := neg(f.name, f.v); err != nil {
 			return c, err
@@ -166,6 +180,10 @@ func (c Config) withDefaults() (Config, error) {
 	defInt(&c.MaxQueued, DefaultMaxQueued)
 	def(&c.MemoryBudget, DefaultMemoryBudget)
 	defInt(&c.MaxJobsKept, DefaultMaxJobsKept)
+	def(&c.DiskBudget, DefaultDiskBudget)
+	if c.CheckpointEvery == 0 {
+		c.CheckpointEvery = DefaultCheckpointEvery
+	}
 	if c.ShutdownGrace == 0 {
 		c.ShutdownGrace = DefaultShutdownGrace
 	}

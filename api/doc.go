@@ -81,6 +81,19 @@
 // metadata. A matrix's id is the SHA-256 of its dimensions and CSR
 // arrays, so the same matrix is stored once.
 //
+// # The data folder
+//
+// With Config.DataDir the state survives restarts and crashes (README,
+// "The data folder"): datadir.go and datavec.go keep uploaded matrices and
+// vectors as csrfiles named by id, written before the upload's reply,
+// listed from their headers at start-up and read back, verified, on first
+// use, under a disk budget with the store's eviction rule; jobstore.go
+// keeps job records and histories in go.etcd.io/bbolt (committed before a
+// job's id is sent), checkpoints of running detached jobs and their kept
+// solutions, and at start-up restores finished jobs and runs queued and
+// running detached ones again from their last checkpoints. Damaged files are
+// quarantined with a log line.
+//
 // # Errors
 //
 // Handlers return Go errors wrapping the named reasons of this package

@@ -29,15 +29,29 @@ func (s *Server) Solve(req *pb.SolveRequest, stream pb.Solver_SolveServer) error
 	}
 	sub := j.subscribe()
 	defer sub.Close()
-	if err := s.jobs.add(j); err != nil {
+	// With a data folder the record is on disk before the id is sent.
+	if err := s.persistQueued(j, req); err != nil {
 		p.release()
 		j.runnerPin.Release()
 		j.streamPin.Release()
 		return err
 	}
+	if err := s.jobs.add(j); err != nil {
+		p.release()
+		j.runnerPin.Release()
+		j.streamPin.Release()
+		if s.jobsDB != nil {
+			s.jobsDB.remove(j.id, len(p.rhs))
+		}
+		return err
+	}
 	s.log.Info("job queued", "job", j.id, "matrix", p.matrixID, "rows", p.m.a.Rows, "cols", p.m.a.Cols, "nonzeros", p.m.a.NNZ(),
 		"rhs", len(p.rhs), "method", string(p.req.Method), "preconditioner", p.req.Preconditioner, "detached", req.GetDetach())
-	s.jobs.start(j, func() (solve.Outcome, error) { return s.runJob(j, p) })
+	s.jobs.start(j, func() (solve.Outcome, error) {
+		o, err := s.runJob(j, p)
+		s.persistEnd(j, o, err)
+		return o, err
+	})
 
 	ctx := stream.Context()
 	if req.GetDetach() {
@@ -121,6 +135,10 @@ func sendVector(x []float64, rhs int32, per int, send func(*pb.VectorChunk) erro
 func (s *Server) forgetJob(j *job) {
 	j.dropSolutions("the job was forgotten")
 	s.store.remove(key{kind: kindJob, id: j.id})
+	if s.jobsDB != nil {
+		// The expiry of kept solutions: they go with the job's record.
+		s.jobsDB.remove(j.id, len(j.logs))
+	}
 }
 
 // Watch implements the Watch RPC.
@@ -184,7 +202,7 @@ func (s *Server) DownloadSolution(req *pb.DownloadSolutionRequest, stream pb.Sol
 	if !j.keep {
 		return notFoundf("job %s did not keep its solution (it was streamed; set keep_solution or detach)", j.id)
 	}
-	x, err := j.solution(int(req.GetRhs()))
+	x, err := s.solutionOf(j, int(req.GetRhs()))
 	if err != nil {
 		return err
 	}

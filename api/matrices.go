@@ -41,10 +41,20 @@ type vectorEntry struct {
 // ListMatrices implements the ListMatrices RPC.
 func (s *Server) ListMatrices(ctx context.Context, _ *pb.ListMatricesRequest) (*pb.ListMatricesResponse, error) {
 	out := &pb.ListMatricesResponse{}
+	inMemory := map[string]bool{}
 	for _, e := range s.store.snapshot(func(k key) bool { return k.kind == kindMatrix }) {
 		m := cloneMatrix(e.value.(*matrixEntry).info)
 		m.JobsUsing = int32(e.pins)
 		out.Matrices = append(out.Matrices, m)
+		inMemory[m.Id] = true
+	}
+	if s.data != nil {
+		// Those only on disk: loaded on first use.
+		for _, m := range s.data.list() {
+			if !inMemory[m.Id] {
+				out.Matrices = append(out.Matrices, m)
+			}
+		}
 	}
 	return out, nil
 }
@@ -54,6 +64,14 @@ func (s *Server) ListMatrices(ctx context.Context, _ *pb.ListMatricesRequest) (*
 // solves with it.
 func (s *Server) GetMatrix(ctx context.Context, req *pb.GetMatrixRequest) (*pb.Matrix, error) {
 	it, ok := s.store.touch(key{kind: kindMatrix, id: req.GetId()})
+	if !ok && s.data != nil && validID(req.GetId()) && s.data.has(req.GetId()) {
+		for _, m := range s.data.list() {
+			if m.Id == req.GetId() {
+				m.AlreadyStored = true
+				return m, nil
+			}
+		}
+	}
 	if !ok {
 		return nil, notFoundf("no matrix %q", req.GetId())
 	}
@@ -77,6 +95,11 @@ func (s *Server) DeleteMatrix(ctx context.Context, req *pb.DeleteMatrixRequest) 
 	freed, ok, err := s.store.remove(key{kind: kindMatrix, id: id})
 	if err != nil {
 		return nil, fmt.Errorf("matrix %s: %w", id, err)
+	}
+	if s.data != nil {
+		if _, onDisk := s.data.remove(id); onDisk {
+			ok = true
+		}
 	}
 	if !ok {
 		return nil, notFoundf("no matrix %q", id)

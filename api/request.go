@@ -32,6 +32,9 @@ type jobParams struct {
 	every    int
 	interval time.Duration
 	pins     []*pin // the matrix, its transpose and stored vectors, released when the job ends
+	// done holds the results of the right-hand sides a job resumed after
+	// a restart had finished before it (jobstore.go).
+	done []*pb.SolveResult
 }
 
 // release gives back what the parameters pinned.
@@ -56,6 +59,12 @@ func fieldError(err error) error {
 // stored vectors pinned, inline vectors decoded, the job's vectors
 // reserved in the memory budget.
 func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
+	return s.newJobWithID(req, "")
+}
+
+// newJobWithID is newJob under a given id (a job resumed after a restart);
+// "" draws a new one.
+func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams, error) {
 	p := &jobParams{matrixID: req.GetMatrixId()}
 	ok := false
 	defer func() {
@@ -76,7 +85,10 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}
 	it, pn, found := s.store.acquire(key{kind: kindMatrix, id: p.matrixID})
 	if !found {
-		return nil, nil, notFoundf("no matrix %q (upload it first; it may have been evicted or deleted)", p.matrixID)
+		// Not in memory: the data folder may hold it (datadir.go).
+		if it, pn, err = s.loadStored(p.matrixID); err != nil {
+			return nil, nil, err
+		}
 	}
 	p.pins = append(p.pins, pn)
 	p.m = it.value.(*matrixEntry)
@@ -134,7 +146,11 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 		case *pb.VectorRef_VectorId:
 			it, pn, found := s.store.acquire(key{kind: kindVector, id: src.VectorId})
 			if !found {
-				return nil, notFoundf("%s: no vector %q (upload it first; it may have been evicted)", what, src.VectorId)
+				// Not in memory: the data folder may hold it.
+				var err error
+				if it, pn, err = s.loadVector(src.VectorId, what); err != nil {
+					return nil, err
+				}
 			}
 			p.pins = append(p.pins, pn)
 			x := it.value.(*vectorEntry).x
@@ -175,7 +191,9 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}
 
 	keep := req.GetKeepSolution() || req.GetDetach()
-	id := newJobID()
+	if id == "" {
+		id = newJobID()
+	}
 	// The job's vectors: the solutions, the inline vectors it decoded and
 	// the method's work vectors.
 	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)

@@ -69,6 +69,12 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 	iterating := time.Now()
 	outcomes := make([]solve.Outcome, 0, len(p.rhs))
 	for i, b := range p.rhs {
+		if i < len(p.done) {
+			// Solved before a restart (jobstore.go).
+			s.restoreRHS(j, i, p.done[i])
+			outcomes = append(outcomes, solve.Outcome(p.done[i].GetStatus()))
+			continue
+		}
 		x := make([]float64, p.m.a.Cols)
 		rec := &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
 		// What remains of the job's time ceiling (at least a nanosecond:
@@ -78,9 +84,19 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 		if t := p.req.TimeLimit; t > 0 && t < left {
 			run.Request.TimeLimit = t
 		}
-		sum, solveErr := run.Solve(j.ctx, b, p.x0[i], x, rec)
+		sum, solveErr := run.SolveDurable(j.ctx, b, p.x0[i], x, rec, s.durable(j, p, i, b))
 		sum.RHSIndex, sum.MatrixID, sum.FromCache = i, p.matrixID, &fromCache
-		j.deliver(i, x, wire.Result(&sum))
+		if solve.Outcome(sum.Status) != solve.TimeLimit {
+			// The job's ceiling did not bind: the summary states the time
+			// limit the request set (0: none), as a local solve's does;
+			// the ceiling itself is in the accepted event.
+			sum.TimeLimitSeconds = solve.Seconds(p.req.TimeLimit)
+		}
+		out := wire.Result(&sum)
+		j.deliver(i, x, out)
+		if solve.Outcome(sum.Status) != solve.Cancelled {
+			s.persistResult(j, i, x, out)
+		}
 		if s.obs != nil {
 			s.obs.IterationsDone(sum.Iterations)
 		}

@@ -66,6 +66,10 @@ type Server struct {
 	obs    Observer // nil: none
 	// uploaded counts the bytes received by all uploads (for metrics).
 	uploaded atomic.Int64
+	// data is the data folder (Config.DataDir) and jobsDB its job store;
+	// nil without one.
+	data   *dataDir
+	jobsDB *jobStore
 
 	mu sync.Mutex // guards the fields below
 	// building holds the preconditioners being set up, by cache key, so
@@ -93,6 +97,14 @@ func NewServer(cfg Config) (*Server, error) {
 		obs:      cfg.Observer,
 	}
 	s.jobs = newRegistry(cfg.Logger, cfg.Observer, cfg.MaxConcurrentSolves, cfg.MaxQueued, cfg.MaxJobsKept)
+	if cfg.DataDir != "" {
+		if s.data, err = openDataDir(cfg.DataDir, cfg.DiskBudget, cfg.Logger, s.inUse); err != nil {
+			return nil, err
+		}
+		if s.jobsDB, err = openJobStoreOrQuarantine(cfg.DataDir, cfg.CheckpointEvery, cfg.Logger, s.data); err != nil {
+			return nil, err
+		}
+	}
 	s.jobs.onForget = s.forgetJob
 	if cfg.TokenFile != "" {
 		if s.token, err = ReadToken(cfg.TokenFile); err != nil {
@@ -199,6 +211,7 @@ func (s *Server) Serve(ctx context.Context, lis net.Listener) error {
 		"max_job_iterations", s.cfg.MaxJobIterations, "max_job_time", s.cfg.MaxJobTime.String(),
 		"upload_idle_timeout", s.cfg.UploadIdleTimeout.String(), "protect_recent", s.cfg.ProtectRecent.String(),
 		"allow_mostly_empty", s.cfg.AllowMostlyEmpty)
+	s.restoreJobs()
 	serveErr := make(chan error, 1)
 	go func() { serveErr <- s.grpc.Serve(lis) }()
 	var err error
@@ -230,7 +243,7 @@ func (s *Server) shutdown() {
 	if err := s.jobs.wait(graceCtx); err != nil {
 		q, r := s.jobs.Counts()
 		s.log.Warn("grace period over; cancelling jobs", "queued", q, "running", r)
-		s.jobs.cancelAll(fmt.Errorf("server shutting down: %w", context.Canceled))
+		s.jobs.cancelAll(fmt.Errorf("%w: %w", errStopping, context.Canceled))
 		// The solvers check their context every iteration; wait for them.
 		_ = s.jobs.wait(context.Background())
 	}
@@ -244,6 +257,11 @@ func (s *Server) shutdown() {
 		s.log.Warn("graceful stop timed out; stopping forcibly", "timeout", s.cfg.StopTimeout.String())
 		s.grpc.Stop()
 		<-stopped
+	}
+	if s.jobsDB != nil {
+		if err := s.jobsDB.close(); err != nil {
+			s.log.Error("closing the job store", "error", err.Error())
+		}
 	}
 	s.log.Info("stopped", "duration", time.Since(start).String())
 }

@@ -284,22 +284,15 @@ func (s *Server) UploadMatrix(stream pb.Solver_UploadMatrixServer) error {
 		return s.uploadFailed(name, cr, start, orRecv(cr, err))
 	}
 
-	// The content hash and the inspect report each read the whole matrix;
-	// they run side by side.
-	idc := make(chan string, 1)
-	go func() { idc <- wire.MatrixID(a) }()
-	e := &matrixEntry{a: a}
-	e.info = &pb.Matrix{
-		Name: name,
-		Rows: int64(a.Rows), Cols: int64(a.Cols), Nonzeros: int64(a.NNZ()),
-		Symmetry: "general", Bytes: reserved,
+	e := newMatrixEntry(a, name, "", reserved)
+	id := e.info.Id
+	if s.data != nil {
+		// Durable before the reply: the reply means the matrix survives.
+		if err := s.data.put(id, a, e.info); err != nil {
+			s.store.release(reserved)
+			return s.uploadFailed(name, cr, start, err)
+		}
 	}
-	e.info.InspectJson, e.symmetric, e.exactSym, e.asymmetry = inspect(a)
-	if e.symmetric {
-		e.info.Symmetry = "symmetric"
-	}
-	id := <-idc
-	e.info.Id = id
 	it, _, existed := s.store.insert(key{kind: kindMatrix, id: id}, reserved, false, e, func() { s.matrixEvicted(id) })
 	s.store.noteUpload(-reserved)
 	out := cloneMatrix(it.value.(*matrixEntry).info)
@@ -541,6 +534,12 @@ func (s *Server) UploadVector(stream pb.Solver_UploadVectorServer) error {
 	}
 	id := hex.EncodeToString(h.Sum(nil))
 	info := &pb.VectorInfo{Id: id, Length: n, Name: meta.GetName()}
+	if s.data != nil {
+		// Durable before the reply (datavec.go).
+		if err := s.data.putVector(x, info); err != nil {
+			return fail(err)
+		}
+	}
 	it, _, existed := s.store.insert(key{kind: kindVector, id: id}, held, false, &vectorEntry{x: x, info: info}, nil)
 	s.store.noteUpload(-held)
 	s.log.Info("vector upload", "vector", id, "name", meta.GetName(), "outcome", "stored", "already_stored", existed,

@@ -211,6 +211,16 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 		res.Preconditioner = "none"
 	}
 	w.lan.reset(st.s.MaxIter)
+	if rs := st.s.Resume; rs != nil {
+		if err := w.checkResume(rs, b, m != nil); err != nil {
+			res.Solve = time.Since(st.start)
+			if st.s.Recorder != nil {
+				st.s.Recorder.Finish(&res)
+			}
+			return res, err
+		}
+		st.start = st.start.Add(-rs.Elapsed)
+	}
 
 	op := newCGOperator(a)
 	status, err := w.iterate(ctx, &op, b, x, m, &st)
@@ -256,7 +266,7 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m Preconditioner, st *cgState) (Status, error) {
 	s := &st.s
 	n := len(b)
-	r, p, q := w.r[:n], w.p[:n], w.q[:n]
+	r, p := w.r[:n], w.p[:n]
 	z := r
 	if m != nil {
 		z = w.z[:n]
@@ -279,6 +289,9 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		return Converged, nil
 	}
 	tol := max(s.RelTol*st.bnorm, s.AbsTol)
+	if s.Resume != nil {
+		return w.loop(ctx, op, b, x, m, st, tol, w.restore(s.Resume, x, st))
+	}
 
 	// r₀ = b − A·x₀; its product is not an iteration.
 	var rr float64
@@ -314,18 +327,48 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		return Breakdown, err
 	}
 	copy(p, z)
+	return w.loop(ctx, op, b, x, m, st, tol, cgCarry{rho: rho, best: rnorm})
+}
 
-	best := rnorm // smallest true residual norm so far
-	strikes := 0
+// cgCarry is what CG's loop carries from one iteration to the next besides
+// the vectors and the cgState.
+type cgCarry struct {
+	rho     float64 // rᵀz
+	best    float64 // smallest true residual norm so far
+	strikes int     // stagnation strikes (see cgStagnationStrikes)
+}
+
+// loop runs CG's iterations from the state at the top of the loop: x, r, p
+// current, c carried, and w.lan holding the tridiagonal so far.
+func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Preconditioner, st *cgState, tol float64, c cgCarry) (Status, error) {
+	s := &st.s
+	n := len(b)
+	r, p, q := w.r[:n], w.p[:n], w.q[:n]
+	z := r
+	if m != nil {
+		z = w.z[:n]
+	}
+	var rr, rnorm float64
+	rho, best, strikes := c.rho, c.best, c.strikes
+	ck := newCheckpointer(s.Checkpoint, time.Now())
 	for {
 		if st.iter >= s.MaxIter {
 			return IterationLimit, nil
 		}
 		if err := ctx.Err(); err != nil {
+			// A cancelled solve saves its state first: nothing is lost.
+			if serr := w.checkpoint(&ck, x, st, m != nil, cgCarry{rho, best, strikes}); serr != nil {
+				return Cancelled, serr
+			}
 			return Cancelled, err
 		}
 		if s.TimeLimit > 0 && time.Since(st.start) >= s.TimeLimit {
 			return TimeLimit, nil
+		}
+		if ck.due() {
+			if err := w.checkpoint(&ck, x, st, m != nil, cgCarry{rho, best, strikes}); err != nil {
+				return Cancelled, err
+			}
 		}
 
 		pq := op.mulVecDot(q, p)

@@ -158,6 +158,35 @@
 // sparse's kernels are at a fixed worker count), the same solve gives
 // bitwise identical x, history and Result (apart from the timings).
 //
+// # Checkpoints and resume
+//
+// A solve with Settings.Checkpoint (LSQSettings.Checkpoint) hands its full
+// recurrence State to Checkpoint.Save every Checkpoint.Every of wall time,
+// whenever Checkpoint.Now delivers, and once when its context is cancelled,
+// always at the start of an iteration, where the recurrence is consistent:
+// for CG the iterate x (whose fused update has been applied), the residual
+// r, the direction p, ρ = rᵀz, the stagnation bookkeeping, the residual
+// norms the epilogue reports, the Lanczos tridiagonal so far, the iteration
+// and product counts and the elapsed time; for LSQR and CGLS their vectors
+// and every scalar the loop carries (the layouts are listed in cg_state.go
+// and lsq_state.go). The state's vectors are the solve's own, lent for the
+// duration of Save, so a checkpoint costs no copy and, once the State's
+// small slices exist, no allocation; the check between saves is one clock
+// read per iteration.
+//
+// Settings.Resume continues a solve from such a state: the same operator,
+// preconditioner, right-hand side and settings give bitwise the same
+// iterates, progress rows (from Iteration+1 on) and Result as the
+// uninterrupted solve at the same worker count, because nothing the next
+// iteration reads is recomputed differently. What the methods can check
+// themselves (method, dimensions, ‖b‖₂ bit for bit, whether a
+// preconditioner is present, λ) they check, refusing a state that does not
+// fit with an error wrapping ErrResume before anything is computed; that the
+// matrix and the settings are the same is the caller's to check (the
+// command line compares the matrix id and the request stored beside the
+// state). State.Encode and DecodeState give a state a versioned byte form
+// with a CRC-32C per section (package internal/binio).
+//
 // # Panics
 //
 // The methods panic, with a message beginning "krylov:", on programmer's

@@ -77,6 +77,11 @@ type LSQSettings struct {
 	Method LSQMethod
 	// Recorder receives the progress; nil records nothing.
 	Recorder Recorder `json:"-"`
+	// Checkpoint and Resume work as in Settings: states of the iteration
+	// asked for from time to time, and a saved state to continue from
+	// (X0 is then ignored).
+	Checkpoint *Checkpoint `json:"-"`
+	Resume     *State      `json:"-"`
 }
 
 // LSQResult is the part of a Result that only a least-squares solve has
@@ -179,6 +184,7 @@ func LSQ(ctx context.Context, a TransOperator, b, x []float64, s LSQSettings) (R
 		ctx: ctx, start: start, a: a, m: m, n: n, b: b, x: x, x0: s.X0,
 		damp: s.Damp, atol: s.ATol, btol: s.BTol, s: s,
 	}
+	p.ck = newCheckpointer(s.Checkpoint, start)
 	res := Result{LSQ: &LSQResult{}}
 
 	// Column norms: asked of the operator whenever it can give them, so
@@ -248,6 +254,8 @@ type lsqProblem struct {
 	s     LSQSettings
 
 	products int // products with A or Aᵀ so far
+
+	ck checkpointer // the checkpoints asked for by s.Checkpoint
 
 	// Stagnation bookkeeping for the true check (see verify).
 	checks    int     // failed true checks in a row without progress

@@ -38,53 +38,80 @@ func (p *lsqProblem) cgls(res Result) (Result, error) {
 	tn := make([]float64, n)  // t = D·p, then Aᵀr
 	p.z = z
 
-	p.bnorm = math.Sqrt(lsqNorm2(b))
-	var xx, zz float64
-	if p.x0 != nil {
-		p.mulVec(tm, p.x0)
-		for i, bi := range b {
-			r[i] = bi - tm[i]
+	// What the loop carries from one iteration to the next (see
+	// cglsSave for the checkpoint layout).
+	var gamma, beta, alphaOld, betaOld, anorm2, ddnorm, anorm, cond float64
+	var rr, xx, zz, gg float64
+	first := 1 // the first iteration to run
+	if rs := p.s.Resume; rs != nil {
+		if err := rs.check("cgls", m, n, cglsStateScalars, cglsStateInts, m, n, n, n); err != nil {
+			return p.refuse(res, err)
 		}
-		for j, xj := range p.x0 {
-			z[j] = xj / d[j]
-			zz += z[j] * z[j]
-			xx += xj * xj
+		if err := p.checkResume(rs, cglsStateScalars-3); err != nil {
+			return p.refuse(res, err)
 		}
+		for i, v := range [][]float64{r, s, dir, z} {
+			copy(v, rs.Vectors[i])
+		}
+		c := rs.Scalars
+		gamma, beta, alphaOld, betaOld, anorm2, ddnorm, anorm, cond = c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]
+		rr, xx, zz, gg = c[8], c[9], c[10], c[11]
+		first = rs.Iteration + 1
 	} else {
-		copy(r, b)
+		p.bnorm = math.Sqrt(lsqNorm2(b))
+		if p.x0 != nil {
+			p.mulVec(tm, p.x0)
+			for i, bi := range b {
+				r[i] = bi - tm[i]
+			}
+			for j, xj := range p.x0 {
+				z[j] = xj / d[j]
+				zz += z[j] * z[j]
+				xx += xj * xj
+			}
+		} else {
+			copy(r, b)
+		}
+		writeX(x, d, z)
+		rr = lsqNorm2(r)
+		if !lsqFinite(rr) {
+			return p.breakdown(res, 0, "‖b − A·x0‖", math.Sqrt(rr), tm, tn, 0, 0)
+		}
+		if rr+lam2*xx == 0 {
+			return p.endAtStart(res, tm, tn)
+		}
+		p.mulVecTrans(tn, r)
+		for j, xj := range x {
+			g := tn[j] - lam2*xj
+			gg += g * g
+			sj := d[j] * g
+			s[j] = sj
+			gamma += sj * sj
+		}
+		if err := p.record(0, math.Sqrt(rr), math.Sqrt(gg)); err != nil {
+			return p.end(res, Cancelled, err, 0, 0, 0, tm, tn)
+		}
+		if !lsqFinite(gamma) {
+			return p.breakdown(res, 0, "‖Aᵀr0‖", math.Sqrt(gamma), tm, tn, 0, 0)
+		}
+		if gamma == 0 {
+			return p.endAtStart(res, tm, tn)
+		}
 	}
-	writeX(x, d, z)
-	rr := lsqNorm2(r)
-	if !lsqFinite(rr) {
-		return p.breakdown(res, 0, "‖b − A·x0‖", math.Sqrt(rr), tm, tn, 0, 0)
-	}
-	if rr+lam2*xx == 0 {
-		return p.endAtStart(res, tm, tn)
-	}
-	p.mulVecTrans(tn, r)
-	var gamma, gg float64
-	for j, xj := range x {
-		g := tn[j] - lam2*xj
-		gg += g * g
-		sj := d[j] * g
-		s[j] = sj
-		gamma += sj * sj
-	}
-	if err := p.record(0, math.Sqrt(rr), math.Sqrt(gg)); err != nil {
-		return p.end(res, Cancelled, err, 0, 0, 0, tm, tn)
-	}
-	if !lsqFinite(gamma) {
-		return p.breakdown(res, 0, "‖Aᵀr0‖", math.Sqrt(gamma), tm, tn, 0, 0)
-	}
-	if gamma == 0 {
-		return p.endAtStart(res, tm, tn)
-	}
-
-	var beta, alphaOld, betaOld float64
-	var anorm2, ddnorm, anorm, cond float64
-	for it := 1; it <= p.s.MaxIter; it++ {
+	for it := first; it <= p.s.MaxIter; it++ {
 		if st, err := p.interrupted(done); st != 0 {
+			if st == Cancelled {
+				// A cancelled solve saves its state first: nothing is lost.
+				if serr := p.cglsSave(it-1, [cglsStateScalars - 3]float64{gamma, beta, alphaOld, betaOld, anorm2, ddnorm, anorm, cond, rr, xx, zz, gg}, r, s, dir, z); serr != nil {
+					err = serr
+				}
+			}
 			return p.end(res, st, err, it-1, anorm, cond, tm, tn)
+		}
+		if p.ck.due() {
+			if err := p.cglsSave(it-1, [cglsStateScalars - 3]float64{gamma, beta, alphaOld, betaOld, anorm2, ddnorm, anorm, cond, rr, xx, zz, gg}, r, s, dir, z); err != nil {
+				return p.end(res, Cancelled, err, it-1, anorm, cond, tm, tn)
+			}
 		}
 		// p = s + β·p and t = D·p (β = 0 at the first iteration).
 		var tt, pp float64

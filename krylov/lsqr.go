@@ -37,85 +37,115 @@ func (p *lsqProblem) lsqr(res Result) (Result, error) {
 	}
 	p.z = z
 
-	// Iteration 0: r0 = b − A·x0 and β1·u1 = r̄0.
-	p.bnorm = math.Sqrt(lsqNorm2(b))
-	if p.x0 != nil {
-		p.mulVec(tm, p.x0)
-		for i, bi := range b {
-			u[i] = bi - tm[i]
+	// What the loop carries from one iteration to the next (see
+	// lsqrSave for the checkpoint layout).
+	var alpha, beta, su, sv, phibar, rhobar, anorm2, ddnorm, anorm, cond float64
+	var a2, g2, xx float64
+	first := 1 // the first iteration to run
+	if rs := p.s.Resume; rs != nil {
+		if err := rs.check("lsqr", m, n, lsqrStateScalars, lsqrStateInts, m, n, n, n, n, -1); err != nil {
+			return p.refuse(res, err)
 		}
-		for j, xj := range p.x0 {
-			z[j] = xj / d[j]
+		if err := p.checkResume(rs, lsqrStateScalars-3); err != nil {
+			return p.refuse(res, err)
 		}
+		if len(rs.Vectors[5]) != len(u2) {
+			return p.refuse(res, resumeErr("lsqr state damping rows of length %d, want %d", len(rs.Vectors[5]), len(u2)))
+		}
+		for i, v := range [][]float64{u, vh, w, z, tn, u2} {
+			copy(v, rs.Vectors[i])
+		}
+		c := rs.Scalars
+		alpha, su, sv, phibar, rhobar, anorm2, ddnorm, anorm, cond = c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7], c[8]
+		first = rs.Iteration + 1
 	} else {
-		copy(u, b)
-	}
-	rr := lsqNorm2(u)
-	var xx float64
-	if p.x0 != nil {
-		xx = lsqNorm2(p.x0)
-	}
-	if damped && p.x0 != nil {
-		for j, xj := range p.x0 {
-			u2[j] = -lam * xj
+		// Iteration 0: r0 = b − A·x0 and β1·u1 = r̄0.
+		p.bnorm = math.Sqrt(lsqNorm2(b))
+		if p.x0 != nil {
+			p.mulVec(tm, p.x0)
+			for i, bi := range b {
+				u[i] = bi - tm[i]
+			}
+			for j, xj := range p.x0 {
+				z[j] = xj / d[j]
+			}
+		} else {
+			copy(u, b)
 		}
-	}
-	beta := math.Sqrt(rr + lam*lam*xx)
-	writeX(x, d, z)
-	if !lsqFinite(beta) {
-		return p.breakdown(res, 0, "‖b − A·x0‖", beta, tm, tn, 0, 0)
-	}
-	if beta == 0 {
-		// b̄ = Ā·z0: x0 solves the problem exactly (b = 0 and x0 = 0 in
-		// particular). No iteration is needed.
-		return p.endAtStart(res, tm, tn)
-	}
-	su := 1 / beta
-
-	// α1·v1 = Āᵀu1 = D·(Aᵀu + λu2)/β1, kept as v̂ = α1·D⁻¹v1.
-	p.mulVecTrans(tn, u)
-	var a2, g2 float64
-	for j := range vh {
-		e := tn[j]
-		if damped {
-			e += lam * u2[j]
+		rr := lsqNorm2(u)
+		if p.x0 != nil {
+			xx = lsqNorm2(p.x0)
 		}
-		e *= su
-		vh[j] = e
-		g2 += e * e
-		de := d[j] * e
-		a2 += de * de
-	}
-	alpha := math.Sqrt(a2)
-	// ‖Aᵀr0 − λ²x0‖ = β1·‖D⁻¹·(α1v1)‖.
-	if err := p.record(0, math.Sqrt(rr), beta*math.Sqrt(g2)); err != nil {
-		return p.end(res, Cancelled, err, 0, 0, 0, tm, tn)
-	}
-	if !lsqFinite(alpha) {
-		return p.breakdown(res, 0, "‖Aᵀr0‖", alpha, tm, tn, 0, 0)
-	}
-	if alpha == 0 {
-		// Āᵀr̄0 = 0: x0 is already a minimiser.
-		return p.endAtStart(res, tm, tn)
-	}
-	sv := 1 / alpha
-
-	// w1 = v1, and the first product's input tn = D·v1.
-	for j := range w {
-		v := sv * d[j] * vh[j]
-		w[j] = v
-		tn[j] = d[j] * v
-		if damped {
-			u2[j] = lam*tn[j] - alpha*su*u2[j]
+		if damped && p.x0 != nil {
+			for j, xj := range p.x0 {
+				u2[j] = -lam * xj
+			}
 		}
-	}
-	phibar, rhobar := beta, alpha
-	var anorm2, ddnorm float64
-	var anorm, cond float64
+		beta = math.Sqrt(rr + lam*lam*xx)
+		writeX(x, d, z)
+		if !lsqFinite(beta) {
+			return p.breakdown(res, 0, "‖b − A·x0‖", beta, tm, tn, 0, 0)
+		}
+		if beta == 0 {
+			// b̄ = Ā·z0: x0 solves the problem exactly (b = 0 and x0 = 0 in
+			// particular). No iteration is needed.
+			return p.endAtStart(res, tm, tn)
+		}
+		su = 1 / beta
 
-	for it := 1; it <= p.s.MaxIter; it++ {
+		// α1·v1 = Āᵀu1 = D·(Aᵀu + λu2)/β1, kept as v̂ = α1·D⁻¹v1.
+		p.mulVecTrans(tn, u)
+		for j := range vh {
+			e := tn[j]
+			if damped {
+				e += lam * u2[j]
+			}
+			e *= su
+			vh[j] = e
+			g2 += e * e
+			de := d[j] * e
+			a2 += de * de
+		}
+		alpha = math.Sqrt(a2)
+		// ‖Aᵀr0 − λ²x0‖ = β1·‖D⁻¹·(α1v1)‖.
+		if err := p.record(0, math.Sqrt(rr), beta*math.Sqrt(g2)); err != nil {
+			return p.end(res, Cancelled, err, 0, 0, 0, tm, tn)
+		}
+		if !lsqFinite(alpha) {
+			return p.breakdown(res, 0, "‖Aᵀr0‖", alpha, tm, tn, 0, 0)
+		}
+		if alpha == 0 {
+			// Āᵀr̄0 = 0: x0 is already a minimiser.
+			return p.endAtStart(res, tm, tn)
+		}
+		sv = 1 / alpha
+
+		// w1 = v1, and the first product's input tn = D·v1.
+		for j := range w {
+			v := sv * d[j] * vh[j]
+			w[j] = v
+			tn[j] = d[j] * v
+			if damped {
+				u2[j] = lam*tn[j] - alpha*su*u2[j]
+			}
+		}
+		phibar, rhobar = beta, alpha
+	}
+
+	for it := first; it <= p.s.MaxIter; it++ {
 		if st, err := p.interrupted(done); st != 0 {
+			if st == Cancelled {
+				// A cancelled solve saves its state first: nothing is lost.
+				if serr := p.lsqrSave(it-1, [lsqrStateScalars - 3]float64{alpha, su, sv, phibar, rhobar, anorm2, ddnorm, anorm, cond}, u, vh, w, z, tn, u2); serr != nil {
+					err = serr
+				}
+			}
 			return p.end(res, st, err, it-1, anorm, cond, tm, tn)
+		}
+		if p.ck.due() {
+			if err := p.lsqrSave(it-1, [lsqrStateScalars - 3]float64{alpha, su, sv, phibar, rhobar, anorm2, ddnorm, anorm, cond}, u, vh, w, z, tn, u2); err != nil {
+				return p.end(res, Cancelled, err, it-1, anorm, cond, tm, tn)
+			}
 		}
 		// β_{i+1}·u_{i+1} = Ā·v_i − α_i·u_i (PS 1982, eq. (3.2)). The lower
 		// block was updated at the end of the previous iteration.

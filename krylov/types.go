@@ -165,6 +165,17 @@ type Settings struct {
 	RefreshEvery int
 	// Recorder receives the progress; nil records nothing.
 	Recorder Recorder `json:"-"`
+	// Checkpoint, when not nil, is asked for the solve's state from time
+	// to time (see Checkpoint). Default nil: no checkpoints.
+	Checkpoint *Checkpoint `json:"-"`
+	// Resume, when not nil, continues the solve from a State that a
+	// Checkpoint of the same solve saved (same operator, preconditioner,
+	// right-hand side and settings), instead of starting from X0: the
+	// iterates, progress rows and result are then bitwise those of the
+	// uninterrupted solve at the same worker count. A state of another
+	// method, size or right-hand side is refused with an error wrapping
+	// ErrResume, before anything is computed. It is never modified.
+	Resume *State `json:"-"`
 }
 
 // Result describes a finished solve, by any method: conjugate gradients

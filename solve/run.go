@@ -98,6 +98,11 @@ func (s *Setup) Bytes() int64 {
 // failure), which the summary also states. It panics on vectors of the
 // wrong length.
 func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Recorder) (Summary, error) {
+	return s.SolveDurable(ctx, b, x0, x, rec, Durable{})
+}
+
+// SolveDurable is Solve with checkpoints and resume (see Durable).
+func (s *Setup) SolveDurable(ctx context.Context, b, x0, x []float64, rec krylov.Recorder, d Durable) (Summary, error) {
 	a, req := s.Matrix.A, s.Request
 	sum := s.Summary()
 	var res krylov.Result
@@ -110,6 +115,7 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 		res, err = krylov.LSQ(ctx, a, b, x, krylov.LSQSettings{
 			Damp: req.Damp, ATol: req.ATol, BTol: req.BTol, MaxIter: req.MaxIter, TimeLimit: req.TimeLimit,
 			X0: x0, Scaling: s.Scaling, Method: method, Recorder: rec,
+			Checkpoint: d.Checkpoint, Resume: d.Resume,
 		})
 	} else {
 		var m krylov.Preconditioner
@@ -119,9 +125,14 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 		res, err = krylov.CG(ctx, a, b, x, m, krylov.Settings{
 			RelTol: req.RelTol, AbsTol: req.AbsTol, MaxIter: req.MaxIter, TimeLimit: req.TimeLimit,
 			RefreshEvery: req.RefreshEvery, X0: x0, Recorder: rec,
+			Checkpoint: d.Checkpoint, Resume: d.Resume,
 		})
 	}
 	fill(&sum, &res, err, s.zeroDiag)
+	if d.Resume != nil && !errors.Is(err, krylov.ErrResume) {
+		it := d.Resume.Iteration
+		sum.ResumedFrom = &it
+	}
 	return sum, err
 }
 

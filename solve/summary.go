@@ -171,6 +171,13 @@ type Summary struct {
 	HistoryFile  string `json:"history_file,omitempty"`
 	PlotFile     string `json:"plot_file,omitempty"`
 	SolutionNote string `json:"solution_note,omitempty"`
+
+	// ResumedFrom is the iteration a resumed solve continued from (its
+	// checkpoint's: --resume, or a server job resumed after a restart);
+	// absent for a solve that started from x0. CheckpointFile is the
+	// checkpoint the command line kept writing.
+	ResumedFrom    *int   `json:"resumed_from_iteration,omitempty"`
+	CheckpointFile string `json:"checkpoint_file,omitempty"`
 }
 
 // LeastSquares reports whether s describes a least-squares solve.

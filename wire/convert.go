@@ -42,6 +42,10 @@ func Result(s *solve.Summary) *pb.SolveResult {
 	for _, c := range s.ZeroColumns {
 		r.ZeroColumns = append(r.ZeroColumns, int64(c))
 	}
+	if s.ResumedFrom != nil {
+		it := int32(*s.ResumedFrom)
+		r.ResumedFromIteration = &it
+	}
 	return r
 }
 
@@ -76,6 +80,10 @@ func Summary(r *pb.SolveResult) solve.Summary {
 	}
 	for _, c := range r.GetZeroColumns() {
 		s.ZeroColumns = append(s.ZeroColumns, int(c))
+	}
+	if r.ResumedFromIteration != nil {
+		it := int(r.GetResumedFromIteration())
+		s.ResumedFrom = &it
 	}
 	return s
 }

@@ -45,6 +45,7 @@ func TestPackLayout(t *testing.T) {
 var frontEndOnly = map[string]bool{
 	"RHS": true, "Server": true, "JobID": true, "MatrixUploaded": true, "ReadSeconds": true, "UploadSeconds": true,
 	"ErrorVsOnes": true, "SolutionFile": true, "HistoryFile": true, "PlotFile": true, "SolutionNote": true,
+	"CheckpointFile": true,
 }
 
 // fillAll sets every exported field of v to a distinct non-zero value.
@@ -66,7 +67,7 @@ func fillAll(v reflect.Value, seed *int) {
 			switch p.Elem().Kind() {
 			case reflect.Float64:
 				p.Elem().SetFloat(float64(*seed) + 0.25)
-			case reflect.Int64:
+			case reflect.Int64, reflect.Int:
 				p.Elem().SetInt(int64(*seed))
 			case reflect.Bool:
 				p.Elem().SetBool(true)

@@ -31,8 +31,8 @@ Right-hand side: -b FILE; else a bundle's own NAME_b.mtx; else b = A·1 (a
 consistent system: x = 1 solves it, and is the unique least-squares
 solution when A has full column rank).
 
-Display, summary, --json, --history, --plot, -o and --server (with
---detach) behave as for solve; the JSON summary adds residual_norm
+Display, summary, --json, --history, --plot, -o, --checkpoint and --resume,
+and --server (with --detach) behave as for solve; the JSON summary adds residual_norm
 (‖b − A·x‖) and normal_residual_norm (‖Aᵀ(b − A·x) − damp²·x‖).`
 
 func runLSQ(ctx context.Context, e *env, args []string) (err error) {
@@ -48,6 +48,7 @@ func runLSQ(ctx context.Context, e *env, args []string) (err error) {
 	f.StringVar(&o.precond, "precond", "auto", "column scaling `kind`: auto, none or colscale")
 	f.StringVar(&method, "method", "auto", "iteration `method`: auto (LSQR), lsqr or cgls")
 	addOutputFlags(f, o)
+	addCheckpointFlags(f, &o.ck)
 	so := &serverOpts{}
 	addServerFlags(f, so)
 	detach := f.Bool("detach", false, "with --server: start the job, print its id and return (the job keeps its solution for 'residua watch JOB -o x.mtx')")
@@ -73,6 +74,9 @@ func runLSQ(ctx context.Context, e *env, args []string) (err error) {
 		return err
 	}
 	so.resolve()
+	if err := o.ck.check(f, so.addr != ""); err != nil {
+		return err
+	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)
 	}

@@ -127,13 +127,16 @@ func summaryLines(w io.Writer, r *solve.Summary) {
 		timeLine += fmt.Sprintf(", upload %s", fmtSec(*r.UploadSeconds))
 	}
 	fmt.Fprintf(w, "  time              %s\n", timeLine)
-	for _, f := range []struct{ label, path string }{{"solution", r.SolutionFile}, {"history", r.HistoryFile}, {"plot", r.PlotFile}} {
+	for _, f := range []struct{ label, path string }{{"solution", r.SolutionFile}, {"history", r.HistoryFile}, {"plot", r.PlotFile}, {"checkpoint", r.CheckpointFile}} {
 		if f.path != "" {
 			fmt.Fprintf(w, "  %-17s %s\n", f.label, f.path)
 		}
 	}
 	if r.SolutionNote != "" {
 		fmt.Fprintf(w, "  solution          %s\n", r.SolutionNote)
+	}
+	if r.ResumedFrom != nil {
+		fmt.Fprintf(w, "  resumed           from the checkpoint's iteration %d\n", *r.ResumedFrom)
 	}
 }
 

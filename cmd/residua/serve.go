@@ -54,6 +54,17 @@ request, which is refused instead.
 Limits are checked before anything is allocated. Sizes accept a unit:
 KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024).
 
+--data DIR keeps the state in DIR: every uploaded matrix and vector
+(written and synced before the upload's reply, named by its id, read back
+with its checksums verified on first use), the job records and histories
+(committed before a job's id is sent), checkpoints of running detached jobs
+every --checkpoint-every, and kept solutions. After a restart finished jobs
+are listed again and queued or running detached jobs continue from their
+last checkpoint. Damaged files are moved to DIR/quarantine with a log line.
+--disk bounds the matrices and vectors (default 64GiB), deleting the least
+recently used that no queued or running job uses. Without --data nothing is
+kept across restarts.
+
 SIGINT or SIGTERM shuts down in order: health goes NOT_SERVING, new work is
 refused, running solves get --shutdown-grace to finish and are then
 cancelled, open streams get --stop-timeout to close, then the servers stop.`
@@ -63,6 +74,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	var httpAddr, metricsAddr string
 	uploadBytes := byteSize(api.DefaultMaxUploadBytes)
 	memory := byteSize(api.DefaultMemoryBudget)
+	disk := byteSize(api.DefaultDiskBudget)
 	f := newFlags("serve", "residua serve [--listen 127.0.0.1:7447] [--http 127.0.0.1:7448] [limits] [--token-file F] [--tls-cert C --tls-key K]", serveAbout)
 	f.StringVar(&cfg.Listen, "listen", api.DefaultListen, "gRPC `address` to listen on")
 	f.StringVar(&httpAddr, "http", "", "also serve the watch page and /metrics on this `address` (default off); with --token-file they need the token")
@@ -85,6 +97,9 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	f.DurationVar(&cfg.UploadIdleTimeout, "upload-idle-timeout", api.DefaultUploadIdleTimeout, "drop an upload whose client sends nothing for this long, releasing its memory")
 	f.DurationVar(&cfg.ProtectRecent, "protect-recent", api.DefaultProtectRecent, "never evict a matrix, vector or kept solution used within this long; refuse the request that needs the room instead")
 	f.BoolVar(&cfg.AllowMostlyEmpty, "allow-mostly-empty", false, "accept matrices with more than half of their rows or columns empty (refused by default: their row pointers cost 8 bytes a row however short the upload)")
+	f.StringVar(&cfg.DataDir, "data", "", "keep uploaded matrices in this `folder` across restarts (default: nothing is kept)")
+	f.DurationVar(&cfg.CheckpointEvery, "checkpoint-every", api.DefaultCheckpointEvery, "with --data: wall time between two checkpoints of a running detached job")
+	f.Var(&disk, "disk", "disk budget in `bytes` for the --data folder's matrices; idle ones are deleted least recently used first")
 	pos, err := f.parse(e, args)
 	if err != nil {
 		return err
@@ -92,10 +107,16 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	if len(pos) != 0 {
 		return usageErrorf("serve: takes no arguments, got %q", pos)
 	}
+	cfg.DiskBudget = int64(disk)
+	if cfg.DataDir == "" {
+		fmt.Fprintln(e.stderr, "residua: state is not kept across restarts (no --data folder)")
+	} else {
+		fmt.Fprintf(e.stderr, "residua: state is kept in %s across restarts (matrices, jobs, histories, kept solutions; uploaded vectors are not)\n", cfg.DataDir)
+	}
 	cfg.MaxUploadBytes, cfg.MemoryBudget = int64(uploadBytes), int64(memory)
 	for name, v := range map[string]int64{"max-rows": int64(cfg.MaxRows), "max-nonzeros": cfg.MaxNonzeros, "max-rhs": int64(cfg.MaxRHS),
 		"max-solves": int64(cfg.MaxConcurrentSolves), "max-queued": int64(cfg.MaxQueued), "max-jobs-kept": int64(cfg.MaxJobsKept),
-		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget,
+		"shutdown-grace": int64(cfg.ShutdownGrace), "stop-timeout": int64(cfg.StopTimeout), "checkpoint-every": int64(cfg.CheckpointEvery), "max-upload-bytes": cfg.MaxUploadBytes, "memory": cfg.MemoryBudget,
 		"max-job-iterations": int64(cfg.MaxJobIterations), "max-job-time": int64(cfg.MaxJobTime), "upload-idle-timeout": int64(cfg.UploadIdleTimeout),
 		"protect-recent": int64(cfg.ProtectRecent)} {
 		if v < 0 {

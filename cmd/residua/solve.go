@@ -50,6 +50,13 @@ The solution (-o) is written only when the solve converged, atomically; the
 history (--history, .csv or .json lines) and the picture (--plot, .svg or
 .png) are written whatever the outcome, since they show what happened.
 
+With --checkpoint FILE the solve's full state (the iterate and the
+method's recurrence, the settings, the history so far) is written to FILE
+every --checkpoint-every (default 30s) and when SIGINT or SIGTERM stops it;
+the same command with --resume FILE continues it, giving bitwise the x and
+history an uninterrupted run gives on this machine. A checkpoint of another
+matrix, right-hand side or setting is refused, naming what differs.
+
 With --server ADDR (or $RESIDUA_SERVER) the solve runs on a residua server
 (see 'residua serve'): the matrix is uploaded named after its file, and the
 flags, display, summary, outputs and exit statuses are those of a local
@@ -71,6 +78,7 @@ type solveOpts struct {
 	// printed: the command has written its answer on stdout (a summary,
 	// or a detached job's id), so a later error adds nothing there.
 	printed bool
+	ck      ckptOpts // solve and lsq only (see checkpoint.go)
 }
 
 // addRunFlags registers the tolerance flags of the conjugate-gradient
@@ -141,6 +149,7 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
 	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
 	addRunFlags(f, o)
+	addCheckpointFlags(f, &o.ck)
 	so := &serverOpts{}
 	addServerFlags(f, so)
 	detach := f.Bool("detach", false, "with --server: start the job, print its id and return (the job keeps its solution for 'residua watch JOB -o x.mtx')")
@@ -160,6 +169,9 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 		return err
 	}
 	so.resolve()
+	if err := o.ck.check(f, so.addr != ""); err != nil {
+		return err
+	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)
 	}
@@ -315,6 +327,10 @@ func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *s
 		return err
 	}
 	ones, rhs := p.onesSolution(req)
+	ck, err := openCheckpoint(e, &o.ck, p, req)
+	if err != nil {
+		return err
+	}
 	setup, err := solve.Prepare(m, req)
 	if err != nil {
 		sum := solve.Failure(m, req, err)
@@ -332,7 +348,11 @@ func solveLocal(ctx context.Context, e *env, p *problem, req solve.Request, o *s
 			return err
 		}
 		x := make([]float64, p.a.Cols)
-		sum, solveErr := setup.Solve(ctx, b, x0[j], x, rec)
+		if rec, err = ck.attach(rec); err != nil { // ck: one column only (openCheckpoint)
+			return errors.Join(err, finish(&solve.Summary{}))
+		}
+		sum, solveErr := setup.SolveDurable(ctx, b, x0[j], x, rec, ck.durable())
+		ck.report(&sum)
 		sum.RHS, sum.RHSIndex, sum.ReadSeconds = p.rhsOf(j, rhs), j, solve.Seconds(p.read)
 		if ones {
 			sum.ErrorVsOnes = solve.NumPtr(maxErrorVsOnes(x))

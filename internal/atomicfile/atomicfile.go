@@ -11,6 +11,7 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"strings"
 )
 
 // File is a file being written atomically. Write to it, then Commit to put
@@ -28,7 +29,7 @@ func Create(path string) (*File, error) {
 	if dir == "" {
 		dir = "."
 	}
-	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
+	tmp, err := os.CreateTemp(dir, "."+base+tempMark+"*")
 	if err != nil {
 		return nil, err
 	}
@@ -62,11 +63,62 @@ func (f *File) Commit() error {
 		os.Remove(f.tmp.Name())
 		return err
 	}
-	if d, derr := os.Open(filepath.Dir(f.path)); derr == nil {
-		_ = d.Sync()
-		d.Close()
-	}
+	_ = syncDir(filepath.Dir(f.path))
 	return nil
+}
+
+// CommitDurable is Commit for files a service promises to keep (stored
+// matrices, checkpoints, job solutions): it also reports a failure to sync
+// the folder, since until the folder is synced a crash can lose the rename.
+// The file is in place even when the folder sync fails.
+func (f *File) CommitDurable() error {
+	if err := f.Commit(); err != nil {
+		return err
+	}
+	return syncDir(filepath.Dir(f.path))
+}
+
+func syncDir(dir string) error {
+	d, err := os.Open(dir)
+	if err != nil {
+		return err
+	}
+	err = d.Sync()
+	if cerr := d.Close(); err == nil {
+		err = cerr
+	}
+	return err
+}
+
+// tempMark is in the name of every temporary file, between the
+// destination's name (after a leading dot) and a random suffix.
+const tempMark = ".tmp-"
+
+// IsTemp reports whether name (a base name) is one of this package's
+// temporary files, left behind by a process killed before Commit.
+func IsTemp(name string) bool {
+	return strings.HasPrefix(name, ".") && strings.Contains(name, tempMark)
+}
+
+// RemoveTemps removes the temporary files a killed writer left in dir
+// (start-up of a data folder calls it) and returns their names. A
+// temporary file is never the only copy of anything: the destination was
+// either renamed in place (then the temporary file is gone) or not yet.
+func RemoveTemps(dir string) ([]string, error) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return nil, err
+	}
+	var gone []string
+	for _, e := range ents {
+		if e.Type().IsRegular() && IsTemp(e.Name()) {
+			if err := os.Remove(filepath.Join(dir, e.Name())); err != nil && !errors.Is(err, os.ErrNotExist) {
+				return gone, err
+			}
+			gone = append(gone, e.Name())
+		}
+	}
+	return gone, nil
 }
 
 // Abort closes and removes the temporary file, leaving the destination as
@@ -93,4 +145,17 @@ func Write(path string, write func(w io.Writer) error) error {
 		return err
 	}
 	return f.Commit()
+}
+
+// WriteDurable is Write with CommitDurable.
+func WriteDurable(path string, write func(w io.Writer) error) error {
+	f, err := Create(path)
+	if err != nil {
+		return err
+	}
+	defer f.Abort()
+	if err := write(f); err != nil {
+		return err
+	}
+	return f.CommitDurable()
 }

@@ -84,3 +84,30 @@ func TestAbortAndCommitOnce(t *testing.T) {
 		t.Error("Create in a missing folder succeeded")
 	}
 }
+
+// TestRemoveTemps: a writer that never commits (a killed process) leaves a
+// temporary file that IsTemp recognises and RemoveTemps sweeps, and
+// nothing else is touched.
+func TestRemoveTemps(t *testing.T) {
+	dir := t.TempDir()
+	keep := filepath.Join(dir, "m.csr")
+	if err := WriteDurable(keep, func(w io.Writer) error { _, err := w.Write([]byte("kept")); return err }); err != nil {
+		t.Fatal(err)
+	}
+	f, err := Create(filepath.Join(dir, "n.csr"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	f.Write([]byte("torn"))
+	f.tmp.Close() // as a killed process would: no Commit, no Abort
+	gone, err := RemoveTemps(dir)
+	if err != nil || len(gone) != 1 || !IsTemp(gone[0]) {
+		t.Fatalf("RemoveTemps: %v, %v", gone, err)
+	}
+	if names := readDir(t, dir); len(names) != 1 || names[0] != "m.csr" {
+		t.Fatalf("left %v, want only m.csr", names)
+	}
+	if IsTemp("m.csr") || IsTemp(".hidden") {
+		t.Error("IsTemp took a plain file for a temporary one")
+	}
+}

@@ -1853,13 +1853,18 @@ type SolveResult struct {
 	// What can be done about a failure or a breakdown, in words.
 	Advice string `protobuf:"bytes,41,opt,name=advice,proto3" json:"advice,omitempty"`
 	// The matrix: its name, id and shape.
-	Matrix        string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
-	MatrixId      string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
-	Rows          int64  `protobuf:"varint,34,opt,name=rows,proto3" json:"rows,omitempty"`
-	Cols          int64  `protobuf:"varint,35,opt,name=cols,proto3" json:"cols,omitempty"`
-	Nonzeros      int64  `protobuf:"varint,36,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Matrix   string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
+	MatrixId string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
+	Rows     int64  `protobuf:"varint,34,opt,name=rows,proto3" json:"rows,omitempty"`
+	Cols     int64  `protobuf:"varint,35,opt,name=cols,proto3" json:"cols,omitempty"`
+	Nonzeros int64  `protobuf:"varint,36,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
+	// Set when the solve continued from a checkpoint (a job resumed after
+	// a server restart): the iteration it continued from. Its history holds
+	// the rows before it from the checkpoint and the rows after from the
+	// resumed run.
+	ResumedFromIteration *int32 `protobuf:"varint,42,opt,name=resumed_from_iteration,json=resumedFromIteration,proto3,oneof" json:"resumed_from_iteration,omitempty"`
+	unknownFields        protoimpl.UnknownFields
+	sizeCache            protoimpl.SizeCache
 }
 
 func (x *SolveResult) Reset() {
@@ -2175,6 +2180,13 @@ func (x *SolveResult) GetCols() int64 {
 func (x *SolveResult) GetNonzeros() int64 {
 	if x != nil {
 		return x.Nonzeros
+	}
+	return 0
+}
+
+func (x *SolveResult) GetResumedFromIteration() int32 {
+	if x != nil && x.ResumedFromIteration != nil {
+		return *x.ResumedFromIteration
 	}
 	return 0
 }
@@ -3176,7 +3188,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
 	"\x05_rtolB\a\n" +
 	"\x05_btolB\a\n" +
-	"\x05_damp\"\xb8\r\n" +
+	"\x05_damp\"\x8e\x0e\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -3227,7 +3239,8 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\tmatrix_id\x18! \x01(\tR\bmatrixId\x12\x12\n" +
 	"\x04rows\x18\" \x01(\x03R\x04rows\x12\x12\n" +
 	"\x04cols\x18# \x01(\x03R\x04cols\x12\x1a\n" +
-	"\bnonzeros\x18$ \x01(\x03R\bnonzerosB\x10\n" +
+	"\bnonzeros\x18$ \x01(\x03R\bnonzeros\x129\n" +
+	"\x16resumed_from_iteration\x18* \x01(\x05H\vR\x14resumedFromIteration\x88\x01\x01B\x10\n" +
 	"\x0e_residual_normB\x1a\n" +
 	"\x18_recursive_residual_normB\x1e\n" +
 	"\x1c_recursive_relative_residualB\b\n" +
@@ -3238,7 +3251,8 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x15_normal_residual_normB\t\n" +
 	"\a_x_normB\x12\n" +
 	"\x10_a_norm_estimateB\x19\n" +
-	"\x17_forward_error_estimate\"\x8f\x01\n" +
+	"\x17_forward_error_estimateB\x19\n" +
+	"\x17_resumed_from_iteration\"\x8f\x01\n" +
 	"\vVectorChunk\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x16\n" +
 	"\x06length\x18\x02 \x01(\x03R\x06length\x12\x16\n" +

@@ -15,10 +15,11 @@ QUEUED: JobState
 RUNNING: JobState
 
 class Accepted(_message.Message):
-    __slots__ = ["detached", "from_cache", "matrix_id", "method", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "rhs_count", "setup_seconds", "shift", "tries"]
+    __slots__ = ["detached", "from_cache", "matrix_id", "max_iter_ceiling", "method", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "rhs_count", "setup_seconds", "shift", "time_ceiling_seconds", "tries"]
     DETACHED_FIELD_NUMBER: _ClassVar[int]
     FROM_CACHE_FIELD_NUMBER: _ClassVar[int]
     MATRIX_ID_FIELD_NUMBER: _ClassVar[int]
+    MAX_ITER_CEILING_FIELD_NUMBER: _ClassVar[int]
     METHOD_FIELD_NUMBER: _ClassVar[int]
     PRECONDITIONER_BYTES_FIELD_NUMBER: _ClassVar[int]
     PRECONDITIONER_FIELD_NUMBER: _ClassVar[int]
@@ -26,10 +27,12 @@ class Accepted(_message.Message):
     RHS_COUNT_FIELD_NUMBER: _ClassVar[int]
     SETUP_SECONDS_FIELD_NUMBER: _ClassVar[int]
     SHIFT_FIELD_NUMBER: _ClassVar[int]
+    TIME_CEILING_SECONDS_FIELD_NUMBER: _ClassVar[int]
     TRIES_FIELD_NUMBER: _ClassVar[int]
     detached: bool
     from_cache: bool
     matrix_id: str
+    max_iter_ceiling: int
     method: str
     preconditioner: str
     preconditioner_bytes: int
@@ -37,8 +40,9 @@ class Accepted(_message.Message):
     rhs_count: int
     setup_seconds: float
     shift: float
+    time_ceiling_seconds: float
     tries: int
-    def __init__(self, matrix_id: _Optional[str] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., tries: _Optional[int] = ..., from_cache: bool = ..., setup_seconds: _Optional[float] = ..., preconditioner_bytes: _Optional[int] = ..., rhs_count: _Optional[int] = ..., detached: bool = ...) -> None: ...
+    def __init__(self, matrix_id: _Optional[str] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., tries: _Optional[int] = ..., from_cache: bool = ..., setup_seconds: _Optional[float] = ..., preconditioner_bytes: _Optional[int] = ..., rhs_count: _Optional[int] = ..., detached: bool = ..., max_iter_ceiling: _Optional[int] = ..., time_ceiling_seconds: _Optional[float] = ...) -> None: ...
 
 class CancelJobRequest(_message.Message):
     __slots__ = ["job_id"]
@@ -323,7 +327,7 @@ class SolveRequest(_message.Message):
     def __init__(self, matrix_id: _Optional[str] = ..., rhs: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., x0: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit: _Optional[_Union[_duration_pb2.Duration, _Mapping]] = ..., refresh_every: _Optional[int] = ..., progress: _Optional[_Union[ProgressPolicy, _Mapping]] = ..., detach: bool = ..., keep_solution: bool = ..., label: _Optional[str] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ..., least_squares: bool = ...) -> None: ...
 
 class SolveResult(_message.Message):
-    __slots__ = ["a_norm_estimate", "advice", "cols", "cond", "converged", "error", "forward_error_estimate", "forward_error_note", "from_cache", "headline", "iterations", "lambda_max", "lambda_min", "matrix", "matrix_id", "method", "nonzeros", "normal_residual_norm", "per_iteration_seconds", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "recursive_relative_residual", "recursive_residual_norm", "relative_residual", "residual_norm", "rhs", "rhs_norm", "rows", "settings", "setup_seconds", "shift", "shift_tries", "solve_seconds", "status", "stopped_by", "true_residual_norm", "warning", "warning_text", "x_norm", "zero_columns"]
+    __slots__ = ["a_norm_estimate", "advice", "cols", "cond", "converged", "error", "forward_error_estimate", "forward_error_note", "from_cache", "headline", "iterations", "lambda_max", "lambda_min", "matrix", "matrix_id", "method", "nonzeros", "normal_residual_norm", "per_iteration_seconds", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "recursive_relative_residual", "recursive_residual_norm", "relative_residual", "residual_norm", "resumed_from_iteration", "rhs", "rhs_norm", "rows", "settings", "setup_seconds", "shift", "shift_tries", "solve_seconds", "status", "stopped_by", "true_residual_norm", "warning", "warning_text", "x_norm", "zero_columns"]
     ADVICE_FIELD_NUMBER: _ClassVar[int]
     A_NORM_ESTIMATE_FIELD_NUMBER: _ClassVar[int]
     COLS_FIELD_NUMBER: _ClassVar[int]
@@ -350,6 +354,7 @@ class SolveResult(_message.Message):
     RECURSIVE_RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
     RELATIVE_RESIDUAL_FIELD_NUMBER: _ClassVar[int]
     RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
+    RESUMED_FROM_ITERATION_FIELD_NUMBER: _ClassVar[int]
     RHS_FIELD_NUMBER: _ClassVar[int]
     RHS_NORM_FIELD_NUMBER: _ClassVar[int]
     ROWS_FIELD_NUMBER: _ClassVar[int]
@@ -391,6 +396,7 @@ class SolveResult(_message.Message):
     recursive_residual_norm: float
     relative_residual: float
     residual_norm: float
+    resumed_from_iteration: int
     rhs: int
     rhs_norm: float
     rows: int
@@ -406,7 +412,7 @@ class SolveResult(_message.Message):
     warning_text: str
     x_norm: float
     zero_columns: _containers.RepeatedScalarFieldContainer[int]
-    def __init__(self, rhs: _Optional[int] = ..., converged: bool = ..., status: _Optional[str] = ..., headline: _Optional[str] = ..., method: _Optional[str] = ..., iterations: _Optional[int] = ..., relative_residual: _Optional[float] = ..., residual_norm: _Optional[float] = ..., true_residual_norm: _Optional[float] = ..., rhs_norm: _Optional[float] = ..., recursive_residual_norm: _Optional[float] = ..., recursive_relative_residual: _Optional[float] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., shift_tries: _Optional[int] = ..., preconditioner_bytes: _Optional[int] = ..., setup_seconds: _Optional[float] = ..., solve_seconds: _Optional[float] = ..., per_iteration_seconds: _Optional[float] = ..., lambda_min: _Optional[float] = ..., lambda_max: _Optional[float] = ..., cond: _Optional[float] = ..., settings: _Optional[_Union[Settings, _Mapping]] = ..., from_cache: bool = ..., error: _Optional[str] = ..., normal_residual_norm: _Optional[float] = ..., x_norm: _Optional[float] = ..., a_norm_estimate: _Optional[float] = ..., stopped_by: _Optional[str] = ..., zero_columns: _Optional[_Iterable[int]] = ..., forward_error_estimate: _Optional[float] = ..., forward_error_note: _Optional[str] = ..., warning: _Optional[str] = ..., warning_text: _Optional[str] = ..., advice: _Optional[str] = ..., matrix: _Optional[str] = ..., matrix_id: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ...) -> None: ...
+    def __init__(self, rhs: _Optional[int] = ..., converged: bool = ..., status: _Optional[str] = ..., headline: _Optional[str] = ..., method: _Optional[str] = ..., iterations: _Optional[int] = ..., relative_residual: _Optional[float] = ..., residual_norm: _Optional[float] = ..., true_residual_norm: _Optional[float] = ..., rhs_norm: _Optional[float] = ..., recursive_residual_norm: _Optional[float] = ..., recursive_relative_residual: _Optional[float] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., shift_tries: _Optional[int] = ..., preconditioner_bytes: _Optional[int] = ..., setup_seconds: _Optional[float] = ..., solve_seconds: _Optional[float] = ..., per_iteration_seconds: _Optional[float] = ..., lambda_min: _Optional[float] = ..., lambda_max: _Optional[float] = ..., cond: _Optional[float] = ..., settings: _Optional[_Union[Settings, _Mapping]] = ..., from_cache: bool = ..., error: _Optional[str] = ..., normal_residual_norm: _Optional[float] = ..., x_norm: _Optional[float] = ..., a_norm_estimate: _Optional[float] = ..., stopped_by: _Optional[str] = ..., zero_columns: _Optional[_Iterable[int]] = ..., forward_error_estimate: _Optional[float] = ..., forward_error_note: _Optional[str] = ..., warning: _Optional[str] = ..., warning_text: _Optional[str] = ..., advice: _Optional[str] = ..., matrix: _Optional[str] = ..., matrix_id: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ..., resumed_from_iteration: _Optional[int] = ...) -> None: ...
 
 class UploadMatrixRequest(_message.Message):
     __slots__ = ["chunk", "metadata"]

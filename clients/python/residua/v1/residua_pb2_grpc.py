@@ -103,7 +103,16 @@ class SolverServicer(object):
         limit, when the dimensions or nonzeros declared (the Matrix Market size
         line, or the CSR_RAW metadata) exceed the server's limits (checked
         before anything is allocated), or when the matrix does not fit the
-        memory budget.
+        memory budget (whose message names what holds it). Also
+        INVALID_ARGUMENT, at the size line or metadata, for a matrix under
+        which more than half the rows or columns must be empty (unless the
+        server runs with --allow-mostly-empty), for any gzip error, and for an
+        expected_sha256 that is not 64 hex digits (at the metadata); and
+        DEADLINE_EXCEEDED when the client sends nothing for the server's
+        upload idle timeout. Metadata alone reserves no memory: a CSR_RAW
+        upload's arrays grow as their bytes arrive (the server holds at most 8
+        times what was sent), a Matrix Market upload is charged at its size
+        line.
         """
         context.set_code(grpc.StatusCode.UNIMPLEMENTED)
         context.set_details('Method not implemented!')
@@ -191,7 +200,12 @@ class SolverServicer(object):
         stream with OK, and the client re-attaches with Watch, stops the job
         with CancelJob and fetches the solutions with DownloadSolution.
 
-        There is no server-side deadline: use time_limit for a time budget.
+        The server has ceilings (serve --max-job-iterations, --max-job-time):
+        each right-hand side's iterations and the job's wall time are capped
+        at them, a request's max_iter and time_limit can only lower them, and
+        the accepted event says what they are. A request with more right-hand
+        sides or starting guesses than the server's limit is refused
+        (RESOURCE_EXHAUSTED) having decoded no more than one past the limit.
         """
         context.set_code(grpc.StatusCode.UNIMPLEMENTED)
         context.set_details('Method not implemented!')
