@@ -16,7 +16,7 @@ type setupEntry struct {
 
 // setupKey keys a set-up by the matrix and the settings it was built with.
 func setupKey(matrixID string, r solve.Request) key {
-	return key{kind: kindSetup, id: matrixID, sub: r.Preconditioner}
+	return key{kind: kindSetup, id: matrixID, sub: r.SetupKey()}
 }
 
 // prepare returns the job's set-up, pinned: for least squares made now

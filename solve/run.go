@@ -26,6 +26,9 @@ type Setup struct {
 	ScalingReason string
 	// Matrix is the matrix the set-up is for.
 	Matrix Matrix
+	// MethodReason says why the automatic method chose what it did (empty
+	// when the method was asked for).
+	MethodReason string
 
 	zeroDiag int // a system's zero diagonal entries (see zeroDiagonal)
 }
@@ -63,11 +66,9 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 	}
 	s.zeroDiag = zeroDiagonal(m.A)
 	kind, _ := precond.ParseKind(req.Preconditioner)
-	c, err := precond.New(m.A, kind)
-	if err != nil {
-		return nil, &SetupError{Preconditioner: req.Preconditioner, Err: err}
+	if err := s.prepareSystem(kind); err != nil {
+		return nil, err
 	}
-	s.Choice = c
 	return s, nil
 }
 
@@ -99,16 +100,13 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 			X0: x0, Scaling: s.Scaling, Method: method, Recorder: rec,
 		})
 	} else {
-		var m krylov.Preconditioner
-		if s.Choice.M != nil {
-			m = s.Choice.M
-		}
-		res, err = krylov.CG(ctx, a, b, x, m, krylov.Settings{
-			RelTol: req.RelTol, AbsTol: req.AbsTol, MaxIter: req.MaxIter, TimeLimit: req.TimeLimit,
-			RefreshEvery: req.RefreshEvery, X0: x0, Recorder: rec,
-		})
+		res, err = s.solveSystem(ctx, b, x0, x, rec, &sum)
 	}
-	fill(&sum, &res, err, s.zeroDiag)
+	zeroDiag := s.zeroDiag
+	if Method(sum.Method) == MINRES {
+		zeroDiag = 0 // zero diagonal entries are no sign of singularity for an indefinite A
+	}
+	fill(&sum, &res, err, zeroDiag)
 	return sum, err
 }
 
@@ -117,7 +115,7 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 // shift, memory and set-up time. A server announces it before iterating.
 func (s *Setup) Summary() Summary {
 	a := s.Matrix.A
-	sum := Summary{Matrix: s.Matrix.Name, Rows: a.Rows, Cols: a.Cols, Nonzeros: a.NNZ(), Method: string(s.Request.Method)}
+	sum := Summary{Matrix: s.Matrix.Name, Rows: a.Rows, Cols: a.Cols, Nonzeros: a.NNZ(), Method: string(s.Request.Method), MethodReason: s.MethodReason}
 	if s.Request.LeastSquares {
 		sum.Preconditioner = s.Scaling.String()
 		sum.PreconditionerReason = s.Scaling.String() + ": " + s.ScalingReason
@@ -156,6 +154,7 @@ func fill(sum *Summary, r *krylov.Result, err error, zeroDiag int) {
 		sum.RelTol, sum.AbsTol = NumPtr(st.RelTol), Num(st.AbsTol)
 		sum.MaxIter, sum.TimeLimitSeconds, sum.RefreshEvery = st.MaxIter, Seconds(st.TimeLimit), st.RefreshEvery
 	}
+	fillMINRES(sum, r)
 	if err != nil && r.Status != krylov.Cancelled {
 		sum.Error = trimPackage(err).Error()
 	}

@@ -168,6 +168,11 @@ type Summary struct {
 	HistoryFile  string `json:"history_file,omitempty"`
 	PlotFile     string `json:"plot_file,omitempty"`
 	SolutionNote string `json:"solution_note,omitempty"`
+
+	// MethodReason says why the automatic method chose Method for a
+	// system ("minres: A is symmetric but not positive definite ...", or a
+	// conjugate gradients breakdown that handed over to MINRES).
+	MethodReason string `json:"method_reason,omitempty"`
 }
 
 // LeastSquares reports whether s describes a least-squares solve.
@@ -210,6 +215,9 @@ func Headline(s *Summary) string {
 		return fmt.Sprintf("stopped without converging at the time limit of %s, after %s of %s: %s%s",
 			fmtDuration(float64(s.TimeLimitSeconds)), its, method, res, tolerance)
 	case Stagnated:
+		if s.Warning == WarnSingular && Method(s.Method) == MINRES {
+			return fmt.Sprintf("stopped after %s of %s: A is singular and b outside its range, %s is the least-squares level (see the warning)", its, method, res)
+		}
 		return fmt.Sprintf("stagnated after %s of %s: %s, and rounding keeps it from falling further%s", its, method, res, tolerance)
 	case Cancelled:
 		return fmt.Sprintf("cancelled after %s of %s: %s", its, method, res)

@@ -38,6 +38,7 @@ func Result(s *solve.Summary) *pb.SolveResult {
 		ForwardErrorEstimate: f64(s.ForwardErrorEstimate), ForwardErrorNote: s.ForwardErrorNote,
 		Warning: s.Warning, WarningText: s.WarningText,
 		Matrix: s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
+		MethodReason: s.MethodReason,
 	}
 	for _, c := range s.ZeroColumns {
 		r.ZeroColumns = append(r.ZeroColumns, int64(c))
@@ -73,6 +74,7 @@ func Summary(r *pb.SolveResult) solve.Summary {
 		ForwardErrorEstimate: num(r.ForwardErrorEstimate), ForwardErrorNote: r.GetForwardErrorNote(),
 		Warning: r.GetWarning(), WarningText: r.GetWarningText(),
 		Matrix: r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
+		MethodReason: r.GetMethodReason(),
 	}
 	for _, c := range r.GetZeroColumns() {
 		s.ZeroColumns = append(s.ZeroColumns, int(c))

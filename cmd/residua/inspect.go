@@ -148,12 +148,12 @@ func verdict(r *sparse.Report) string {
 		_, why := solve.Symmetry(*r)
 		return strings.TrimPrefix(why, "is ") + "; CG needs a symmetric positive definite matrix, 'residua lsq' solves the normal equations"
 	case !r.Diagonal.Positive:
-		return fmt.Sprintf("symmetric, but %d diagonal entries are zero and %d negative: not positive definite, CG cannot be used",
+		return fmt.Sprintf("symmetric, but %d diagonal entries are zero and %d negative: not positive definite, CG cannot be used; MINRES can ('residua solve --method minres', which the automatic method picks for it; a zero (2,2) block takes --precond block)",
 			r.Diagonal.Zero, r.Diagonal.Negative)
 	case r.GershgorinLow > 0:
 		return "symmetric with positive diagonal: CG can be tried (the Gershgorin interval proves it positive definite)"
 	}
-	return "symmetric with positive diagonal: CG can be tried"
+	return "symmetric with positive diagonal: CG can be tried; if it breaks down, the matrix is indefinite and MINRES solves it ('--method minres'; the automatic method switches by itself)"
 }
 
 func (in *inspection) writeText(w io.Writer) {

@@ -54,6 +54,9 @@ func writeSummary(w io.Writer, r *solve.Summary) {
 	if r.FromCache != nil && *r.FromCache && !r.LeastSquares() {
 		pc += ", reused from the server's cache"
 	}
+	if r.MethodReason != "" {
+		fmt.Fprintf(w, "  method            %s\n", r.MethodReason)
+	}
 	fmt.Fprintf(w, "  preconditioner    %s\n", pc)
 	if r.Status == string(solve.SetupFailed) || r.Status == string(solve.Refused) {
 		return

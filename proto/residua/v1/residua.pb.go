@@ -1043,12 +1043,19 @@ type SolveRequest struct {
 	// definite A), or a least-squares method for any A, square or
 	// rectangular, solving min ‖A·x − b‖₂² + damp²·‖x‖₂² with products by A
 	// and Aᵀ only: "lsqr" (Paige and Saunders, ACM TOMS 8(1), 1982) or "cgls"
-	// (Björck, Numerical Methods for Least Squares Problems, 1996, §7.4).
-	// For least squares, b has as many entries as A has rows, x0 and x as
+	// (Björck, Numerical Methods for Least Squares Problems, 1996, §7.4);
+	// or "minres" (Paige and Saunders, SIAM J. Numer. Anal. 12(4), 1975) for
+	// a symmetric A that need not be definite, such as a saddle-point
+	// matrix. "auto" runs MINRES for a system when A's diagonal has an entry
+	// ≤ 0 or conjugate gradients breaks down (SolveResult.method_reason says
+	// which). For least squares, b has as many entries as A has rows, x0 and x as
 	// many as A has columns.
 	Method string `protobuf:"bytes,4,opt,name=method,proto3" json:"method,omitempty"`
 	// The preconditioner. For "cg": "auto" (default when empty), "none", or
-	// a kind of the server's precond package ("jacobi", "ic0"). For least
+	// a kind of the server's precond package ("jacobi", "ic0"). For
+	// "minres" also "block", the block-diagonal preconditioner of a
+	// saddle-point matrix with a zero (2,2) block; "jacobi" is then Jacobi
+	// on |diag(A)|. For least
 	// squares, the column scaling: "auto" (default: "colscale" when A has at
 	// least as many rows as columns, else "none"), "colscale" or "none".
 	Preconditioner string `protobuf:"bytes,5,opt,name=preconditioner,proto3" json:"preconditioner,omitempty"`
@@ -1829,11 +1836,16 @@ type SolveResult struct {
 	Warning              string   `protobuf:"bytes,39,opt,name=warning,proto3" json:"warning,omitempty"`
 	WarningText          string   `protobuf:"bytes,40,opt,name=warning_text,json=warningText,proto3" json:"warning_text,omitempty"`
 	// The matrix: its name, id and shape.
-	Matrix        string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
-	MatrixId      string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
-	Rows          int64  `protobuf:"varint,34,opt,name=rows,proto3" json:"rows,omitempty"`
-	Cols          int64  `protobuf:"varint,35,opt,name=cols,proto3" json:"cols,omitempty"`
-	Nonzeros      int64  `protobuf:"varint,36,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
+	Matrix   string `protobuf:"bytes,32,opt,name=matrix,proto3" json:"matrix,omitempty"`
+	MatrixId string `protobuf:"bytes,33,opt,name=matrix_id,json=matrixId,proto3" json:"matrix_id,omitempty"`
+	Rows     int64  `protobuf:"varint,34,opt,name=rows,proto3" json:"rows,omitempty"`
+	Cols     int64  `protobuf:"varint,35,opt,name=cols,proto3" json:"cols,omitempty"`
+	Nonzeros int64  `protobuf:"varint,36,opt,name=nonzeros,proto3" json:"nonzeros,omitempty"`
+	// Why the automatic method chose the method that ran, for a system: for
+	// instance "minres: A is symmetric but not positive definite (a(3,3) =
+	// -1 ≤ 0) ..." or a conjugate gradients breakdown that handed over to
+	// MINRES; empty when the method was asked for.
+	MethodReason  string `protobuf:"bytes,45,opt,name=method_reason,json=methodReason,proto3" json:"method_reason,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -2146,6 +2158,13 @@ func (x *SolveResult) GetNonzeros() int64 {
 		return x.Nonzeros
 	}
 	return 0
+}
+
+func (x *SolveResult) GetMethodReason() string {
+	if x != nil {
+		return x.MethodReason
+	}
+	return ""
 }
 
 // VectorChunk is a piece of a solution vector.
@@ -3143,7 +3162,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
 	"\x05_rtolB\a\n" +
 	"\x05_btolB\a\n" +
-	"\x05_damp\"\xa0\r\n" +
+	"\x05_damp\"\xc5\r\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -3193,7 +3212,8 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\tmatrix_id\x18! \x01(\tR\bmatrixId\x12\x12\n" +
 	"\x04rows\x18\" \x01(\x03R\x04rows\x12\x12\n" +
 	"\x04cols\x18# \x01(\x03R\x04cols\x12\x1a\n" +
-	"\bnonzeros\x18$ \x01(\x03R\bnonzerosB\x10\n" +
+	"\bnonzeros\x18$ \x01(\x03R\bnonzeros\x12#\n" +
+	"\rmethod_reason\x18- \x01(\tR\fmethodReasonB\x10\n" +
 	"\x0e_residual_normB\x1a\n" +
 	"\x18_recursive_residual_normB\x1e\n" +
 	"\x1c_recursive_relative_residualB\b\n" +
