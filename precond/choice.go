@@ -73,6 +73,10 @@ func New(a *sparse.CSR, kind Kind) (*Choice, error) {
 	case KindAuto:
 		c, err = auto(a)
 	case KindBlock:
+		if a.Rows == 0 && a.Cols == 0 {
+			c = &Choice{Kind: KindBlock, Reason: "block: an empty matrix has nothing to precondition"}
+			break
+		}
 		var bd *BlockDiagonal
 		bd, err = NewBlockDiagonal(a, BlockOptions{})
 		if err == nil {
