@@ -291,3 +291,19 @@ func addCSR(a, c *sparse.CSR) *sparse.CSR {
 	}
 	return out
 }
+
+// NewJacobiDiagonal returns the Jacobi preconditioner M = diag(d) for an
+// operator whose diagonal d is known without a stored matrix (the
+// normal-equations operator's Σ_j b_ij²·d_j + δ, sparse.Normal.Diagonal). It
+// refuses a zero, negative or non-finite entry with a *DiagonalError naming
+// the first such row. d is copied.
+func NewJacobiDiagonal(d []float64) (*Jacobi, error) {
+	inv := make([]float64, len(d))
+	for i, v := range d {
+		if err := checkDiagonal(i, v, true); err != nil {
+			return nil, err
+		}
+		inv[i] = 1 / v
+	}
+	return &Jacobi{inv: inv}, nil
+}

@@ -100,7 +100,11 @@ func (s *Setup) prepareSystem(kind precond.Kind) error {
 // with the same (SPD) preconditioner; the progress continues, numbered on
 // from CG's iterations, and the summary's method is minres with the reason.
 func (s *Setup) solveSystem(ctx context.Context, b, x0, x []float64, rec krylov.Recorder, sum *Summary) (krylov.Result, error) {
-	a, req := s.Matrix.A, s.Request
+	var a krylov.Operator = s.Matrix.A
+	if s.op != nil {
+		a = s.op
+	}
+	req := s.Request
 	var m krylov.Preconditioner
 	if s.Choice.M != nil {
 		m = s.Choice.M

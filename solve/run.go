@@ -31,6 +31,11 @@ type Setup struct {
 	MethodReason string
 
 	zeroDiag int // a system's zero diagonal entries (see zeroDiagonal)
+
+	// A normal-equations set-up (PrepareNormal): the operator that
+	// replaces Matrix.A, and what the summary reports of it.
+	op     krylov.Operator
+	normal *normalInfo
 }
 
 // SetupError is a preconditioner that could not be built. It wraps the
@@ -116,6 +121,9 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 func (s *Setup) Summary() Summary {
 	a := s.Matrix.A
 	sum := Summary{Matrix: s.Matrix.Name, Rows: a.Rows, Cols: a.Cols, Nonzeros: a.NNZ(), Method: string(s.Request.Method), MethodReason: s.MethodReason}
+	if s.normal != nil {
+		s.normal.describe(&sum)
+	}
 	if s.Request.LeastSquares {
 		sum.Preconditioner = s.Scaling.String()
 		sum.PreconditionerReason = s.Scaling.String() + ": " + s.ScalingReason

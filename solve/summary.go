@@ -173,6 +173,14 @@ type Summary struct {
 	// system ("minres: A is symmetric but not positive definite ...", or a
 	// conjugate gradients breakdown that handed over to MINRES).
 	MethodReason string `json:"method_reason,omitempty"`
+
+	// Normal-equations solves only (B·D·Bᵀ + δI)·y = r: the operator in
+	// words, the spread of the weights max d/min d (+Inf when a weight is
+	// zero), which is what makes these systems ill-conditioned near an
+	// interior-point optimum, and δ.
+	Operator       string `json:"operator,omitempty"`
+	WeightRatio    *Num   `json:"weight_ratio,omitempty"`
+	Regularization *Num   `json:"regularization,omitempty"`
 }
 
 // LeastSquares reports whether s describes a least-squares solve.
