@@ -79,7 +79,7 @@ func TestNormalAgainstDense(t *testing.T) {
 		}
 		ref := normalDense(b, c.d, c.delta)
 		bound := normalDense(absB, c.d, c.delta) // Σ|terms| per entry
-		const gamma = 1e-14                       // ≈ nε for at most 120 terms, with slack
+		const gamma = 1e-14                      // ≈ nε for at most 120 terms, with slack
 		// Column by column: N·e_k.
 		y, col := make([]float64, 40), make([]float64, 40)
 		for k := range 40 {

@@ -140,6 +140,9 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
 	f.StringVar(&o.method, "method", "auto", "iteration `method`: auto (CG, or MINRES when A's diagonal or a CG breakdown shows it is not positive definite), cg, or minres (any symmetric A)")
 	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi (with minres: on |diag(A)|), ic0, or block (minres on a saddle-point matrix with a zero (2,2) block)")
+	no := &normalOpts{}
+	f.StringVar(&no.weights, "weights", "", "solve the normal equations (B·diag(d)·Bᵀ + δI)·y = r instead: the matrix file is B, this vector `file` holds d (one weight ≥ 0 per column of B), -b holds r (default r = N·1)")
+	f.Float64Var(&no.reg, "reg", 0, "with --weights: the regularisation δ ≥ 0 added to the diagonal of B·diag(d)·Bᵀ")
 	addRunFlags(f, o)
 	so := &serverOpts{}
 	addServerFlags(f, so)
@@ -162,6 +165,15 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	so.resolve()
+	if no.weights == "" && no.reg != 0 {
+		return usageErrorf("solve: --reg applies with --weights (the normal equations) only")
+	}
+	if no.weights != "" {
+		if so.addr != "" {
+			return usageErrorf("solve: --weights runs locally only: the service does not take normal-equations weights yet")
+		}
+		return solveNormal(ctx, e, pos[0], req, o, no)
+	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)
 	}
