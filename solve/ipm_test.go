@@ -268,5 +268,3 @@ func TestInteriorPointLP(t *testing.T) {
 			p.name, res.obj, ref, res.iterations, res.solves, res.worstRelres, res.maxWeightSum)
 	}
 }
-
-
