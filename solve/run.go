@@ -112,6 +112,9 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 		zeroDiag = 0 // zero diagonal entries are no sign of singularity for an indefinite A
 	}
 	fill(&sum, &res, err, zeroDiag)
+	if Method(sum.Method) == MINRES && sum.ForwardErrorEstimate != nil {
+		sum.ForwardErrorNote = "κ·‖r‖/‖b‖ with κ = max |θ|/min |θ| over MINRES's Ritz values θ (of the preconditioned operator when there is a preconditioner): for an indefinite matrix an estimate of the condition number, not a bound, so the error may exceed this estimate"
+	}
 	return sum, err
 }
 

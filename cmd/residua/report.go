@@ -87,8 +87,12 @@ func writeSummary(w io.Writer, r *solve.Summary) {
 		if r.Preconditioner != "none" {
 			of = "the preconditioned operator"
 		}
-		fmt.Fprintf(w, "  condition         ≈ %s (Lanczos estimate for %s, from below; λ in [%s, %s])\n",
-			solve.Sci(float64(r.CondEstimate)), of, solve.Sci(float64(*r.LambdaMin)), solve.Sci(num(r.LambdaMax)))
+		how := "from below"
+		if solve.Method(r.Method) == solve.MINRES {
+			how = "max |θ|/min |θ| over the Ritz values θ, an estimate, not a bound, for an indefinite matrix"
+		}
+		fmt.Fprintf(w, "  condition         ≈ %s (Lanczos estimate for %s, %s; λ in [%s, %s])\n",
+			solve.Sci(float64(r.CondEstimate)), of, how, solve.Sci(float64(*r.LambdaMin)), solve.Sci(num(r.LambdaMax)))
 	case r.CondEstimate > 0:
 		of := "A"
 		if r.Preconditioner == "colscale" {
