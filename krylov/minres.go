@@ -242,10 +242,11 @@ func (w *minresWork) normalResidual(op *cgOperator, b []float64, unprecond bool,
 // ẑ_j = M⁻¹v̂_j = σ_j·z_j with σ_j = τ_j·γ_j = √(v̂_jᵀẑ_j) and z_j of unit
 // M-norm; then τ_{j+1} = σ_j. The update directions are kept the same way,
 // w_j = ω_j·ŵ_j, and x += c·η·w_j is added in the sweep that later
-// overwrites ŵ_j (sparse.Step), or before x is needed. Per iteration: one
-// product (fused with ẑᵀA·ẑ), the direction sweep (Step) and one Axpy, the
-// Lanczos sweep (Triad and AxpyDot, or Axpy and the preconditioner's
-// PreconditionDot).
+// overwrites ŵ_j (sparse.Step3), or before x is needed. Per iteration: one
+// product fused with ẑᵀA·ẑ, one sparse.Step3 (x and the direction: six
+// vector accesses) and one sparse.TriadDot (the Lanczos vector and its
+// norm: four), plus the preconditioner: ten vector accesses besides the
+// product against CG's eight (BENCHMARKS.md has the measured ratio).
 func (w *minresWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m Preconditioner, st *cgState, mr *MINRESResult) (Status, error) {
 	s := &st.s
 	n := len(b)
@@ -359,20 +360,14 @@ func (w *minresWork) iterate(ctx context.Context, op *cgOperator, b, x []float64
 
 		// ŵ_{j+1} = ẑ_j − α₃·σ·ω_{j−1}·ŵ_{j−1} − α₂·σ·ω_j·ŵ_j, into ŵ_{j−1}'s
 		// storage, adding ŵ_{j−1}'s pending share to x in the same sweep.
-		sparse.Step(x, dOld.v, z, dOld.pending, -a3*sigma*dOld.omega)
-		if dCur.omega != 0 {
-			sparse.Axpy(dOld.v, -a2*sigma*dCur.omega, dCur.v)
-		}
+		sparse.Step3(x, dOld.v, z, dCur.v, dOld.pending, -a3*sigma*dOld.omega, -a2*sigma*dCur.omega)
 		dOld.pending = 0
 
 		// v̂_{j+1} = q − δ·v̂_j − (γ_j·σ_j/σ_{j−1})·v̂_{j−1}, into v̂_{j−1}'s
 		// storage (v̂₀ = 0), and ρ = v̂ᵀM⁻¹v̂.
 		coef := gammaCur * sigma / (tauPrev * gammaPrev)
-		sparse.Triad(vPrev, q, vPrev, -coef)
-		if m == nil {
-			rho = sparse.AxpyDot(vPrev, -delta, vCur)
-		} else {
-			sparse.Axpy(vPrev, -delta, vCur)
+		rho = sparse.TriadDot(vPrev, q, vCur, -coef, -delta)
+		if m != nil {
 			rho = cgPrecondition(m, z, vPrev)
 		}
 		if !(rho >= 0) || math.IsInf(rho, 1) {
