@@ -97,4 +97,3 @@ func BenchmarkKKTPreconditioners(b *testing.B) {
 		})
 	}
 }
-
