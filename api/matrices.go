@@ -3,6 +3,7 @@ package api
 import (
 	"context"
 	"fmt"
+	"sync"
 
 	"google.golang.org/protobuf/proto"
 
@@ -25,6 +26,17 @@ type matrixEntry struct {
 	// exactSym: A equals Aᵀ bit for bit, so products by Aᵀ need no
 	// transpose (sparse uses A itself).
 	exactSym bool
+
+	// normalOnce makes normal, what normal-equations solves with this
+	// matrix as B share across requests (the pattern of B·Bᵀ).
+	normalOnce sync.Once
+	normal     *solve.NormalCache
+}
+
+// normalCache returns the entry's normal-equations cache, made on first use.
+func (e *matrixEntry) normalCache() *solve.NormalCache {
+	e.normalOnce.Do(func() { e.normal = solve.NewNormalCache(e.a) })
+	return e.normal
 }
 
 // solveMatrix is the entry as the solve layer checks it.

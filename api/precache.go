@@ -29,6 +29,13 @@ func (s *Server) prepare(ctx context.Context, p *jobParams) (setup *solve.Setup,
 		setup, err := solve.Prepare(p.m.solveMatrix(), p.req)
 		return setup, nil, false, err
 	}
+	if p.weights != nil {
+		// A normal-equations set-up depends on this request's weights: made
+		// now, never cached; what does not depend on them (B's transpose,
+		// the pattern of B·Bᵀ) is kept with the matrix.
+		setup, err := solve.PrepareNormal(p.m.solveMatrix(), p.req, solve.Weights{D: p.weights, Delta: p.reg}, p.m.normalCache())
+		return setup, nil, false, err
+	}
 	k := setupKey(p.matrixID, p.req)
 	for {
 		if it, pn, ok := s.store.acquire(k); ok {

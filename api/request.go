@@ -31,7 +31,20 @@ type jobParams struct {
 	x0       [][]float64 // nil entries: start from zero
 	every    int
 	interval time.Duration
-	pins     []*pin // the matrix, its transpose and stored vectors, released when the job ends
+	// weights, for a normal-equations job (SolveRequest.weights): the
+	// matrix is B; reg is δ.
+	weights []float64
+	reg     float64
+	pins    []*pin // the matrix, its transpose and stored vectors, released when the job ends
+}
+
+// solutionLen is the length of the job's solutions: A's columns, or for
+// the normal equations (B·D·Bᵀ + δI)·y = b, B's rows.
+func (p *jobParams) solutionLen() int {
+	if p.weights != nil {
+		return p.m.a.Rows
+	}
+	return p.m.a.Cols
 }
 
 // release gives back what the parameters pinned.
@@ -81,10 +94,20 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	p.pins = append(p.pins, pn)
 	p.m = it.value.(*matrixEntry)
 	a := p.m.a
-	if err := r.Applies(p.m.solveMatrix()); err != nil {
-		return nil, nil, err
+	normal := req.GetWeights() != nil
+	switch {
+	case normal && r.LeastSquares:
+		return nil, nil, invalidf("method: %s solves least squares; the normal equations (B·D·Bᵀ + reg·I)·y = b are a symmetric system (cg or minres)", r.Method)
+	case normal && (!(req.GetReg() >= 0) || math.IsInf(req.GetReg(), 0)):
+		return nil, nil, invalidf("reg: %v must be a finite number ≥ 0", req.GetReg())
+	case normal:
+		// B may have any shape: the operator B·D·Bᵀ is square and symmetric.
+	default:
+		if err := r.Applies(p.m.solveMatrix()); err != nil {
+			return nil, nil, err
+		}
 	}
-	if r.LeastSquares && !p.m.exactSym {
+	if (r.LeastSquares || normal) && !p.m.exactSym {
 		// The products by Aᵀ use a transpose that the matrix keeps after
 		// the first one: account for it, pinned for the job, and let it go
 		// if it is evicted later.
@@ -148,8 +171,20 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 		p.rhs = append(p.rhs, b)
 	}
 	p.x0 = make([][]float64, nrhs)
+	x0Len, x0Dim := ncols, "columns"
+	if normal {
+		x0Len, x0Dim = n, "rows"
+		w, err := resolve(req.GetWeights(), "weights", ncols, "columns")
+		if err != nil {
+			return nil, nil, err
+		}
+		if i := firstNegative(w); i >= 0 {
+			return nil, nil, invalidf("weights: entry %d is %g; weights must be ≥ 0", i, w[i])
+		}
+		p.weights, p.reg = w, req.GetReg()
+	}
 	for i, ref := range req.GetX0() {
-		x, err := resolve(ref, fmt.Sprintf("starting guess %d", i), ncols, "columns")
+		x, err := resolve(ref, fmt.Sprintf("starting guess %d", i), x0Len, x0Dim)
 		if err != nil {
 			return nil, nil, err
 		}
@@ -174,6 +209,11 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	// The job's vectors: the solutions, the inline vectors it decoded and
 	// the method's work vectors.
 	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)
+	if normal {
+		// The operator's scaled copy of Bᵀ's values, its scratch vector and
+		// the Jacobi diagonal.
+		mem += 8*int64(a.NNZ()) + 8*int64(ncols) + 8*int64(n)
+	}
 	if err := s.store.reserve(mem, "job "+id); err != nil {
 		return nil, nil, err
 	}
@@ -203,6 +243,16 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	}
 	ok = true
 	return j, p, nil
+}
+
+// firstNegative returns the index of x's first negative entry, or −1.
+func firstNegative(x []float64) int {
+	for i, v := range x {
+		if v < 0 {
+			return i
+		}
+	}
+	return -1
 }
 
 // checkPolicy refuses a progress policy with negative or malformed rules.

@@ -39,6 +39,7 @@ func Result(s *solve.Summary) *pb.SolveResult {
 		Warning: s.Warning, WarningText: s.WarningText,
 		Matrix: s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
 		MethodReason: s.MethodReason,
+		Operator:     s.Operator, WeightRatio: f64(s.WeightRatio), Regularization: f64(s.Regularization),
 	}
 	for _, c := range s.ZeroColumns {
 		r.ZeroColumns = append(r.ZeroColumns, int64(c))
@@ -75,6 +76,7 @@ func Summary(r *pb.SolveResult) solve.Summary {
 		Warning: r.GetWarning(), WarningText: r.GetWarningText(),
 		Matrix: r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
 		MethodReason: r.GetMethodReason(),
+		Operator:     r.GetOperator(), WeightRatio: num(r.WeightRatio), Regularization: num(r.Regularization),
 	}
 	for _, c := range r.GetZeroColumns() {
 		s.ZeroColumns = append(s.ZeroColumns, int(c))
