@@ -40,7 +40,7 @@ func normalWeights(n, k int) []float64 {
 // new weights each, as an interior-point loop does, checking each answer
 // against the same solve run in-process (bit for bit: the kernels are
 // deterministic) and returning the per-request wall time and set-up time.
-func normalSequence(tb testing.TB, c *client.Client, b *sparse.CSR, precond string, requests int) (total, setup time.Duration) {
+func normalSequence(tb testing.TB, c *client.Client, b *sparse.CSR, precond string, requests int) (total, setup time.Duration, iters int) {
 	ctx := context.Background()
 	info, err := c.UploadCSR(ctx, b, "B")
 	if err != nil {
@@ -61,6 +61,7 @@ func normalSequence(tb testing.TB, c *client.Client, b *sparse.CSR, precond stri
 			tb.Fatalf("request %d: %v (%d results)", k, err, len(out.Results))
 		}
 		sum := out.Results[0]
+		iters += sum.Iterations
 		setup += time.Duration(float64(sum.SetupSeconds) * float64(time.Second))
 		if sum.WeightRatio == nil || sum.Operator == "" {
 			tb.Fatalf("request %d: summary lacks the normal-equations fields: %+v", k, sum)
@@ -82,7 +83,7 @@ func normalSequence(tb testing.TB, c *client.Client, b *sparse.CSR, precond stri
 			}
 		}
 	}
-	return total, setup
+	return total, setup, iters
 }
 
 // TestNormalSequence: B is uploaded once; 30 requests carry new weights
@@ -94,7 +95,7 @@ func TestNormalSequence(t *testing.T) {
 	c := h.dial(t)
 	b := stencil.Constraints(200, 800, 4, 3)
 	for _, pc := range []string{"jacobi", "ic0"} {
-		total, setup := normalSequence(t, c, b, pc, 30)
+		total, setup, _ := normalSequence(t, c, b, pc, 30)
 		t.Logf("%s: 30 requests in %v, %v per request, set-up %.0f%% of it", pc, total, total/30, 100*setup.Seconds()/total.Seconds())
 	}
 	info, err := c.UploadCSR(context.Background(), b, "B")
@@ -116,19 +117,23 @@ func TestNormalSequence(t *testing.T) {
 // BenchmarkNormalSequence is the 30-request interior-point sequence on a
 // larger B (a random full-rank 50 000 × 200 000 constraint matrix, eight
 // entries per row), over the in-process gRPC connection: time per request
-// and the share of the preconditioner set-up in it.
+// and the share of the preconditioner set-up in it (the first ic0 request
+// includes the symbolic product), and CG iterations per request. The time
+// per request is the client's Solve call: the weights' and right-hand
+// side's transfer, the job, the solution's return.
 func BenchmarkNormalSequence(b *testing.B) {
 	c := benchServer(b, Config{})
 	bm := stencil.Constraints(50000, 200000, 8, 7)
 	for _, pc := range []string{"jacobi", "ic0"} {
 		b.Run(pc, func(b *testing.B) {
 			var total, setup time.Duration
+			iters := 0
 			for range b.N {
-				tt, ss := normalSequence(b, c, bm, pc, 30)
-				total += tt
-				setup += ss
+				tt, ss, it := normalSequence(b, c, bm, pc, 30)
+				total, setup, iters = total+tt, setup+ss, iters+it
 			}
 			b.ReportMetric(total.Seconds()/float64(30*b.N)*1e3, "ms/request")
+			b.ReportMetric(float64(iters)/float64(30*b.N), "iters/request")
 			b.ReportMetric(setup.Seconds()/total.Seconds(), "setup-share")
 		})
 	}
