@@ -40,6 +40,9 @@ func minresChoice(a *sparse.CSR, kind precond.Kind) (*precond.Choice, error) {
 	case precond.KindJacobi:
 		j, err := precond.NewAbsJacobi(a)
 		if err != nil {
+			if sp := precond.ZeroBlockSplit(a); sp < a.Rows {
+				return nil, fmt.Errorf("%w; rows %d…%d form a zero (2,2) block, which the block preconditioner (block) is for", err, sp+1, a.Rows)
+			}
 			return nil, err
 		}
 		c = &precond.Choice{Kind: precond.KindJacobi, M: j, Bytes: j.Bytes(), Reason: "jacobi: as requested, on |diag(A)| (MINRES needs a positive definite preconditioner)"}

@@ -5,7 +5,10 @@
 // a matrix's structure and numerics (Analyze) before a solve. Mul,
 // MulTrans and Galerkin form sparse matrix-matrix products (C = A·B,
 // Aᵀ·B, Pᵀ·A·P) for set-up work such as multigrid coarse operators and
-// Schur complements; spgemm.go explains their two passes.
+// Schur complements; spgemm.go explains their two passes. Normal and
+// NormalAssembly are the normal-equations operator B·diag(d)·Bᵀ + δ·I of an
+// interior-point step, matrix-free or assembled on a pattern computed once
+// (normal.go); TriadDot and Step3 are MINRES's fused sweeps (minres_vec.go).
 //
 // # Storage
 //
