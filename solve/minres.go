@@ -26,6 +26,27 @@ func indefiniteSign(a *sparse.CSR) (int, string) {
 	return -1, ""
 }
 
+// zeroRows counts the rows of a that store no nonzero value: such a row
+// makes A singular whatever its other entries (for MINRES, whose matrices
+// may have zero diagonal entries in nonzero rows, the count replaces
+// zeroDiagonal's as the sign of singularity).
+func zeroRows(a *sparse.CSR) int {
+	n := 0
+	for i := range a.Rows {
+		empty := true
+		for _, v := range a.Val[a.RowPtr[i]:a.RowPtr[i+1]] {
+			if v != 0 {
+				empty = false
+				break
+			}
+		}
+		if empty {
+			n++
+		}
+	}
+	return n
+}
+
 // minresChoice builds MINRES's preconditioner, which must be SPD although
 // A is not: "jacobi" is Jacobi on |diag(A)|, "block" the saddle-point
 // block-diagonal one, "ic0" IC(0) (which fails on most indefinite
@@ -84,6 +105,7 @@ func (s *Setup) prepareSystem(kind precond.Kind) error {
 			s.MethodReason = "cg: A is symmetric with a positive diagonal; MINRES takes over if conjugate gradients breaks down"
 		}
 	}
+	s.zeroRows = zeroRows(a)
 	var c *precond.Choice
 	var err error
 	if s.Request.Method == MINRES {

@@ -140,6 +140,18 @@ func (r Request) Validate() (Request, error) {
 	return r, nil
 }
 
+// MethodAsked returns the method as the user asked for it: Auto when
+// Validate resolved Method from Auto (which may still become MINRES when
+// the matrix is seen), else Method. A front end that sends a validated
+// request on (to a server) sends this, so that the automatic choice is
+// made where the matrix is.
+func (r Request) MethodAsked() Method {
+	if r.auto {
+		return Auto
+	}
+	return r.Method
+}
+
 // SetupKey names what a set-up built for the validated request r depends
 // on besides the matrix: the method (with whether it was chosen
 // automatically, since the automatic choice may switch to MINRES) and the

@@ -31,6 +31,7 @@ type Setup struct {
 	MethodReason string
 
 	zeroDiag int // a system's zero diagonal entries (see zeroDiagonal)
+	zeroRows int // a system's rows without a nonzero value (see zeroRows)
 
 	// A normal-equations set-up (PrepareNormal): the operator that
 	// replaces Matrix.A, and what the summary reports of it.
@@ -108,8 +109,10 @@ func (s *Setup) Solve(ctx context.Context, b, x0, x []float64, rec krylov.Record
 		res, err = s.solveSystem(ctx, b, x0, x, rec, &sum)
 	}
 	zeroDiag := s.zeroDiag
-	if Method(sum.Method) == MINRES {
-		zeroDiag = 0 // zero diagonal entries are no sign of singularity for an indefinite A
+	if Method(sum.Method) == MINRES && s.normal == nil {
+		// A zero diagonal entry is no sign of singularity for an
+		// indefinite A (a saddle point has many); a zero row is.
+		zeroDiag = s.zeroRows
 	}
 	fill(&sum, &res, err, zeroDiag)
 	if Method(sum.Method) == MINRES && sum.ForwardErrorEstimate != nil {

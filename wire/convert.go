@@ -121,7 +121,7 @@ func Row(p *pb.Progress) krylov.Progress {
 // the progress policy, detach) is the caller's.
 func FillRequest(dst *pb.SolveRequest, r solve.Request) {
 	dst.LeastSquares = r.LeastSquares
-	dst.Method = string(r.Method)
+	dst.Method = string(r.MethodAsked())
 	dst.Preconditioner = r.Preconditioner
 	dst.Rtol, dst.Btol, dst.Damp = r.RelTol, r.BTol, r.Damp
 	dst.Atol = r.AbsTol
