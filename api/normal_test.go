@@ -138,3 +138,40 @@ func BenchmarkNormalSequence(b *testing.B) {
 		})
 	}
 }
+
+// TestNormalMemoryBound: IC(0) of B·D·Bᵀ is refused with
+// RESOURCE_EXHAUSTED when its bound exceeds the memory budget (a B with one
+// dense column makes B·D·Bᵀ dense: 3000² entries), while Jacobi, which
+// never forms it, still runs.
+func TestNormalMemoryBound(t *testing.T) {
+	h := startServer(t, Config{MemoryBudget: 64 << 20})
+	c := h.dial(t)
+	m := 3000
+	ii, jj, vv := make([]int32, 0, 2*m), make([]int32, 0, 2*m), make([]float64, 0, 2*m)
+	for i := range m {
+		ii, jj, vv = append(ii, int32(i), int32(i)), append(jj, 0, int32(i+1)), append(vv, 1, 2)
+	}
+	b, _, err := sparse.FromTriplets(m, m+1, ii, jj, vv, sparse.BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	info, err := c.UploadCSR(context.Background(), b, "dense column")
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := normalWeights(m+1, 4)
+	rhs := make([]float64, m)
+	for i := range rhs {
+		rhs[i] = 1
+	}
+	_, err = c.Solve(context.Background(), client.SolveRequest{MatrixID: info.GetId(), B: [][]float64{rhs}, Weights: d,
+		Request: solve.Request{Preconditioner: "ic0"}}, nil)
+	if status.Code(err) != codes.ResourceExhausted {
+		t.Errorf("ic0 on a dense B·D·Bᵀ: %v, want RESOURCE_EXHAUSTED", err)
+	}
+	out, err := c.Solve(context.Background(), client.SolveRequest{MatrixID: info.GetId(), B: [][]float64{rhs}, Weights: d,
+		Request: solve.Request{Preconditioner: "jacobi"}}, nil)
+	if err != nil || !out.Results[0].Converged {
+		t.Errorf("jacobi: %v", err)
+	}
+}

@@ -35,7 +35,8 @@ type jobParams struct {
 	// matrix is B; reg is δ.
 	weights []float64
 	reg     float64
-	pins    []*pin // the matrix, its transpose and stored vectors, released when the job ends
+
+	pins []*pin // the matrix, its transpose and stored vectors, released when the job ends
 }
 
 // solutionLen is the length of the job's solutions: A's columns, or for
@@ -211,8 +212,14 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)
 	if normal {
 		// The operator's scaled copy of Bᵀ's values, its scratch vector and
-		// the Jacobi diagonal.
+		// the Jacobi diagonal; for IC(0), the assembled B·D·Bᵀ and its
+		// factor, whose size B alone decides and which can be far larger
+		// than B (one dense column makes it dense): a client's B cannot
+		// make the server allocate beyond its budget.
 		mem += 8*int64(a.NNZ()) + 8*int64(ncols) + 8*int64(n)
+		if r.Preconditioner == "ic0" {
+			mem += normalAssemblyBytes(a)
+		}
 	}
 	if err := s.store.reserve(mem, "job "+id); err != nil {
 		return nil, nil, err
