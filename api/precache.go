@@ -36,7 +36,19 @@ func (s *Server) prepare(ctx context.Context, p *jobParams) (setup *solve.Setup,
 		// now, never cached; what does not depend on them (B's transpose,
 		// the pattern of B·Bᵀ) is kept with the matrix. The job's memory
 		// reservation covers IC(0)'s assembly (normalAssemblyBytes).
-		setup, err := solve.PrepareNormal(p.m.solveMatrix(), p.req, solve.Weights{D: p.weights, Delta: p.reg}, p.m.normalCache())
+		cache := p.m.normalCache()
+		setup, err := solve.PrepareNormal(p.m.solveMatrix(), p.req, solve.Weights{D: p.weights, Delta: p.reg}, cache)
+		if n := cache.PatternBytes(); err == nil && n > 0 {
+			// The kept pattern outlives the job: account for it in the
+			// store, evictable (it is rebuilt when needed again), removed
+			// with the matrix.
+			k := key{kind: kindSetup, id: p.matrixID, sub: "normal-equations pattern"}
+			if _, pn, found := s.store.acquire(k); found {
+				pn.Release()
+			} else if s.store.reserve(n, "the pattern of B·Bᵀ") == nil {
+				s.store.insert(k, n, false, nil, p.m.dropNormal)
+			}
+		}
 		return setup, nil, false, err
 	}
 	k := setupKey(p.matrixID, p.req)

@@ -33,6 +33,7 @@ type Weights struct {
 type NormalCache struct {
 	b    *sparse.CSR
 	once sync.Once
+	mu   sync.Mutex // guards asm's publication for PatternBytes
 	asm  *sparse.NormalAssembly
 	// PatternSeconds is the time the one symbolic product took (zero
 	// until it ran).
@@ -48,11 +49,25 @@ func (c *NormalCache) assembly() (*sparse.NormalAssembly, bool) {
 	made := false
 	c.once.Do(func() {
 		start := time.Now()
-		c.asm = sparse.NewNormalAssembly(c.b)
+		asm := sparse.NewNormalAssembly(c.b)
+		c.mu.Lock()
+		c.asm = asm
+		c.mu.Unlock()
 		c.patternTime = time.Since(start)
 		made = true
 	})
 	return c.asm, made
+}
+
+// PatternBytes returns the memory the kept pattern holds: zero until a
+// solve with IC(0) made it.
+func (c *NormalCache) PatternBytes() int64 {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if c.asm == nil {
+		return 0
+	}
+	return int64(c.asm.NNZ())*4 + int64(c.b.Rows+1)*8
 }
 
 // normalInfo is what a normal-equations set-up reports.

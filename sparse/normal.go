@@ -161,7 +161,7 @@ func (o *Normal) Diagonal(dst []float64) []float64 {
 // count, so the result is bitwise reproducible.
 type NormalAssembly struct {
 	b, bt *CSR
-	n     *CSR // the pattern (its values stay zero)
+	n     *CSR // the pattern: row pointers and column indices, no values
 }
 
 // NewNormalAssembly computes the pattern of B·Bᵀ + I. It panics if b's
@@ -195,7 +195,6 @@ func NewNormalAssembly(b *CSR) *NormalAssembly {
 		}
 		n.RowPtr[i+1] = len(n.ColIdx)
 	}
-	n.Val = make([]float64, len(n.ColIdx))
 	return &NormalAssembly{b: b, bt: bt, n: n}
 }
 
