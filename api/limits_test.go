@@ -181,7 +181,8 @@ func TestUploadLimits(t *testing.T) {
 }
 
 // TestNotSPD: a symmetric matrix that is not positive definite fails
-// with FAILED_PRECONDITION; a nonsymmetric one is refused for CG.
+// with FAILED_PRECONDITION when CG is asked for, and is solved by MINRES
+// under the automatic method; a nonsymmetric one is refused for CG.
 func TestNotSPD(t *testing.T) {
 	h := startServer(t, Config{})
 	c := h.dial(t)
@@ -193,7 +194,7 @@ func TestNotSPD(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Request: solve.Request{Preconditioner: "none"}}, nil)
+	out, err := c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Request: solve.Request{Method: solve.CG, Preconditioner: "none"}}, nil)
 	if status.Code(err) != codes.FailedPrecondition {
 		t.Fatalf("%v, want FAILED_PRECONDITION", err)
 	}
@@ -205,7 +206,13 @@ func TestNotSPD(t *testing.T) {
 	// job goes from queued to its one result (saying what failed) and
 	// finished, without an accepted event.
 	var kinds []string
-	out, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Request: solve.Request{Preconditioner: "jacobi"}},
+	// The automatic method sees the negative diagonal entry and runs MINRES
+	// (with Jacobi on |diag(A)|), whose answer (1, −1) is exact here.
+	out, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}}, nil)
+	if err != nil || out.Results[0].Method != "minres" || !out.Results[0].Converged || out.Results[0].MethodReason == "" {
+		t.Errorf("auto on an indefinite matrix: %v, %+v", err, out.Results)
+	}
+	out, err = c.Solve(ctx, client.SolveRequest{MatrixID: m.GetId(), B: [][]float64{{1, 1}}, Request: solve.Request{Method: solve.CG, Preconditioner: "jacobi"}},
 		func(e client.Event) {
 			switch {
 			case e.Queued != nil:

@@ -3,6 +3,7 @@ package api
 import (
 	"context"
 	"fmt"
+	"sync"
 
 	"google.golang.org/protobuf/proto"
 
@@ -25,6 +26,29 @@ type matrixEntry struct {
 	// exactSym: A equals Aᵀ bit for bit, so products by Aᵀ need no
 	// transpose (sparse uses A itself).
 	exactSym bool
+
+	// normal is what normal-equations solves with this matrix as B share
+	// across requests (the pattern of B·Bᵀ), made on first use and dropped
+	// when the store evicts its accounting item; normalMu guards it.
+	normalMu sync.Mutex
+	normal   *solve.NormalCache
+}
+
+// normalCache returns the entry's normal-equations cache, made on first use.
+func (e *matrixEntry) normalCache() *solve.NormalCache {
+	e.normalMu.Lock()
+	defer e.normalMu.Unlock()
+	if e.normal == nil {
+		e.normal = solve.NewNormalCache(e.a)
+	}
+	return e.normal
+}
+
+// dropNormal forgets the normal-equations cache (the store evicted it).
+func (e *matrixEntry) dropNormal() {
+	e.normalMu.Lock()
+	e.normal = nil
+	e.normalMu.Unlock()
 }
 
 // solveMatrix is the entry as the solve layer checks it.

@@ -3,6 +3,8 @@ package api
 import (
 	"context"
 
+	"github.com/residua/residua/sparse"
+
 	"github.com/residua/residua/solve"
 )
 
@@ -16,7 +18,7 @@ type setupEntry struct {
 
 // setupKey keys a set-up by the matrix and the settings it was built with.
 func setupKey(matrixID string, r solve.Request) key {
-	return key{kind: kindSetup, id: matrixID, sub: r.Preconditioner}
+	return key{kind: kindSetup, id: matrixID, sub: r.SetupKey()}
 }
 
 // prepare returns the job's set-up, pinned: for least squares made now
@@ -27,6 +29,26 @@ func setupKey(matrixID string, r solve.Request) key {
 func (s *Server) prepare(ctx context.Context, p *jobParams) (setup *solve.Setup, pn *pin, fromCache bool, err error) {
 	if p.req.LeastSquares {
 		setup, err := solve.Prepare(p.m.solveMatrix(), p.req)
+		return setup, nil, false, err
+	}
+	if p.weights != nil {
+		// A normal-equations set-up depends on this request's weights: made
+		// now, never cached; what does not depend on them (B's transpose,
+		// the pattern of B·Bᵀ) is kept with the matrix. The job's memory
+		// reservation covers IC(0)'s assembly (normalAssemblyBytes).
+		cache := p.m.normalCache()
+		setup, err := solve.PrepareNormal(p.m.solveMatrix(), p.req, solve.Weights{D: p.weights, Delta: p.reg}, cache)
+		if n := cache.PatternBytes(); err == nil && n > 0 {
+			// The kept pattern outlives the job: account for it in the
+			// store, evictable (it is rebuilt when needed again), removed
+			// with the matrix.
+			k := key{kind: kindSetup, id: p.matrixID, sub: "normal-equations pattern"}
+			if _, pn, found := s.store.acquire(k); found {
+				pn.Release()
+			} else if s.store.reserve(n, "the pattern of B·Bᵀ") == nil {
+				s.store.insert(k, n, false, nil, p.m.dropNormal)
+			}
+		}
 		return setup, nil, false, err
 	}
 	k := setupKey(p.matrixID, p.req)
@@ -90,4 +112,24 @@ func (s *Server) prepare(ctx context.Context, p *jobParams) (setup *solve.Setup,
 func (s *Server) matrixEvicted(id string) {
 	freed := s.store.removeWhere(func(k key) bool { return k.id == id && (k.kind == kindSetup || k.kind == kindTranspose) })
 	s.log.Info("matrix removed", "matrix", id, "preconditioner_bytes_freed", freed)
+}
+
+// normalAssemblyBytes bounds the memory IC(0) of B·D·Bᵀ + δI takes: its
+// entries are at most min(Σ_j c_j², m²) for column counts c_j of B (each
+// pair of entries in a column makes one product), and each costs its
+// pattern (4 + 8 for the row pointers' share), its value (8), and the
+// factor and its transpose (IC(0) keeps the lower triangle twice: about
+// 12 more), 40 bytes in all, with three vectors of m.
+func normalAssemblyBytes(b *sparse.CSR) int64 {
+	counts := make([]int64, b.Cols)
+	for _, j := range b.ColIdx[:b.NNZ()] {
+		counts[j]++
+	}
+	var entries int64
+	for _, c := range counts {
+		entries += c * c
+	}
+	m := int64(b.Rows)
+	entries = min(entries+m, m*m)
+	return 40*entries + 24*m
 }

@@ -31,10 +31,24 @@ type jobParams struct {
 	x0       [][]float64 // nil entries: start from zero
 	every    int
 	interval time.Duration
-	pins     []*pin // the matrix, its transpose and stored vectors, released when the job ends
+	// weights, for a normal-equations job (SolveRequest.weights): the
+	// matrix is B; reg is δ.
+	weights []float64
+	reg     float64
+
+	pins []*pin // the matrix, its transpose and stored vectors, released when the job ends
 	// done holds the results of the right-hand sides a job resumed after
 	// a restart had finished before it (jobstore.go).
 	done []*pb.SolveResult
+}
+
+// solutionLen is the length of the job's solutions: A's columns, or for
+// the normal equations (B·D·Bᵀ + δI)·y = b, B's rows.
+func (p *jobParams) solutionLen() int {
+	if p.weights != nil {
+		return p.m.a.Rows
+	}
+	return p.m.a.Cols
 }
 
 // release gives back what the parameters pinned.
@@ -93,10 +107,20 @@ func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams
 	p.pins = append(p.pins, pn)
 	p.m = it.value.(*matrixEntry)
 	a := p.m.a
-	if err := r.Applies(p.m.solveMatrix()); err != nil {
-		return nil, nil, err
+	normal := req.GetWeights() != nil
+	switch {
+	case normal && r.LeastSquares:
+		return nil, nil, invalidf("method: %s solves least squares; the normal equations (B·D·Bᵀ + reg·I)·y = b are a symmetric system (cg or minres)", r.Method)
+	case normal && (!(req.GetReg() >= 0) || math.IsInf(req.GetReg(), 0)):
+		return nil, nil, invalidf("reg: %v must be a finite number ≥ 0", req.GetReg())
+	case normal:
+		// B may have any shape: the operator B·D·Bᵀ is square and symmetric.
+	default:
+		if err := r.Applies(p.m.solveMatrix()); err != nil {
+			return nil, nil, err
+		}
 	}
-	if r.LeastSquares && !p.m.exactSym {
+	if (r.LeastSquares || normal) && !p.m.exactSym {
 		// The products by Aᵀ use a transpose that the matrix keeps after
 		// the first one: account for it, pinned for the job, and let it go
 		// if it is evicted later.
@@ -169,8 +193,20 @@ func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams
 		p.rhs = append(p.rhs, b)
 	}
 	p.x0 = make([][]float64, nrhs)
+	x0Len, x0Dim := ncols, "columns"
+	if normal {
+		x0Len, x0Dim = n, "rows"
+		w, err := resolve(req.GetWeights(), "weights", ncols, "columns")
+		if err != nil {
+			return nil, nil, err
+		}
+		if i := firstNegative(w); i >= 0 {
+			return nil, nil, invalidf("weights: entry %d is %g; weights must be ≥ 0", i, w[i])
+		}
+		p.weights, p.reg = w, req.GetReg()
+	}
 	for i, ref := range req.GetX0() {
-		x, err := resolve(ref, fmt.Sprintf("starting guess %d", i), ncols, "columns")
+		x, err := resolve(ref, fmt.Sprintf("starting guess %d", i), x0Len, x0Dim)
 		if err != nil {
 			return nil, nil, err
 		}
@@ -197,6 +233,17 @@ func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams
 	// The job's vectors: the solutions, the inline vectors it decoded and
 	// the method's work vectors.
 	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)
+	if normal {
+		// The operator's scaled copy of Bᵀ's values, its scratch vector and
+		// the Jacobi diagonal; for IC(0), the assembled B·D·Bᵀ and its
+		// factor, whose size B alone decides and which can be far larger
+		// than B (one dense column makes it dense): a client's B cannot
+		// make the server allocate beyond its budget.
+		mem += 8*int64(a.NNZ()) + 8*int64(ncols) + 8*int64(n)
+		if r.Preconditioner == "ic0" {
+			mem += normalAssemblyBytes(a)
+		}
+	}
 	if err := s.store.reserve(mem, "job "+id); err != nil {
 		return nil, nil, err
 	}
@@ -226,6 +273,16 @@ func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams
 	}
 	ok = true
 	return j, p, nil
+}
+
+// firstNegative returns the index of x's first negative entry, or −1.
+func firstNegative(x []float64) int {
+	for i, v := range x {
+		if v < 0 {
+			return i
+		}
+	}
+	return -1
 }
 
 // checkPolicy refuses a progress policy with negative or malformed rules.

@@ -18,7 +18,7 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 		p.release()
 		// The work vectors are gone; the solutions stay accounted while
 		// kept (or until the attached stream has sent them).
-		s.store.shrink(j.mem, 8*int64(p.m.a.Cols)*int64(len(p.rhs)))
+		s.store.shrink(j.mem, 8*int64(p.solutionLen())*int64(len(p.rhs)))
 		j.runnerPin.Release()
 		attrs := []any{"job", j.id, "matrix", p.matrixID, "state", string(solve.Done), "outcome", string(outcome),
 			"duration", time.Since(start).String()}
@@ -75,7 +75,7 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 			outcomes = append(outcomes, solve.Outcome(p.done[i].GetStatus()))
 			continue
 		}
-		x := make([]float64, p.m.a.Cols)
+		x := make([]float64, p.solutionLen())
 		rec := &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
 		// What remains of the job's time ceiling (at least a nanosecond:
 		// zero would mean no limit) bounds this right-hand side's.

@@ -52,6 +52,13 @@ type SolveRequest struct {
 	KeepSolution bool
 	// Label is shown in job lists.
 	Label string
+	// Weights, when not nil, make the matrix B and the job solve the
+	// normal equations (B·diag(Weights)·Bᵀ + Reg·I)·y = b (see the
+	// SolveRequest message's weights field): one weight ≥ 0 per column
+	// of B, b and X0 of B's row count. Upload B once and send new weights
+	// with each request.
+	Weights []float64
+	Reg     float64
 }
 
 // Event is one event of a job, as a Solve or Watch call delivers it to its
@@ -137,6 +144,13 @@ func (c *Client) Solve(ctx context.Context, req SolveRequest, onEvent func(Event
 			return nil, err
 		}
 		preq.X0 = append(preq.X0, r)
+	}
+	if req.Weights != nil {
+		r, err := ref(req.Weights, "weights")
+		if err != nil {
+			return nil, err
+		}
+		preq.Weights, preq.Reg = r, req.Reg
 	}
 	stream, err := c.rpc.Solve(ctx, preq)
 	if err != nil {

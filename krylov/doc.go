@@ -60,6 +60,26 @@
 // loop had not just done so). A wall-time budget (Settings.TimeLimit) is a
 // status, TimeLimit, while a context deadline is a cancellation.
 //
+// # Symmetric indefinite systems: MINRES
+//
+// MINRES (Paige and Saunders, SIAM J. Numer. Anal. 12(4), 1975; the
+// preconditioned form of Elman, Silvester and Wathen, Finite Elements and
+// Fast Iterative Solvers, 2nd ed., 2014, §4.2) solves A·x = b for a
+// symmetric A that need not be definite (saddle-point and KKT matrices,
+// shifted operators), with an optional SPD preconditioner. It keeps CG's
+// contract: the same Settings, the stopping test confirmed on the true
+// residual, the statuses and errors above, the Recorder, no allocation per
+// iteration. Its own residual is monotone (it minimises ‖r‖_{M⁻¹} over the
+// Krylov space) but not recursively updated as a vector, so there is no
+// residual replacement: a true residual that stops following the
+// recursion ends the solve as Stagnated (three strikes, as CG). A singular
+// system with b outside the range of A is detected and reported in
+// Result.MINRES (Singular, with ‖A·r‖/(‖A‖‖r‖)) with status Stagnated,
+// never as converged; the rules are beside minresStrikes in minres.go. An
+// indefinite preconditioner (vᵀM⁻¹v < 0) is a breakdown wrapping
+// ErrPreconditionerNotSPD. On an SPD matrix MINRES needs about as many
+// iterations as CG, each a little dearer (BENCHMARKS.md).
+//
 // # Least squares
 //
 // LSQ solves the damped least-squares problem

@@ -144,3 +144,51 @@ func sturmCount(d, e []float64, x, pivmin float64) int {
 		q = d[i+1] - x - e[i]*e[i]/q
 	}
 }
+
+// addEntry appends the diagonal entry d of the next row of T, for a method
+// that has the Lanczos tridiagonal directly (MINRES: T(j, j) = δ_j).
+func (l *lanczos) addEntry(d float64) {
+	if l.k >= len(l.diag) {
+		return
+	}
+	l.diag[l.k] = d
+	l.k++
+}
+
+// addOff sets the off-diagonal entry linking the last row of T to the next
+// one (MINRES: T(j, j+1) = γ_{j+1}).
+func (l *lanczos) addOff(e float64) {
+	if l.k == 0 || l.k >= len(l.diag) {
+		return
+	}
+	l.off[l.k-1] = e
+}
+
+// smallestMagnitude returns the smallest |eigenvalue| of the tridiagonal
+// collected so far: the smaller in magnitude of the largest negative and
+// the smallest non-negative eigenvalue, found by bisection from the number
+// of eigenvalues below zero (Sylvester's law of inertia, as sturmCount).
+// Zero when k < 2.
+func (l *lanczos) smallestMagnitude() float64 {
+	if l.k < 2 {
+		return 0
+	}
+	d, e := l.diag[:l.k], l.off[:l.k-1]
+	lo, hi := tridiagExtremes(d, e)
+	span := max(math.Abs(lo), math.Abs(hi))
+	glo, ghi := lo-span-1, hi+span+1 // encloses the spectrum
+	var emax2 float64
+	for _, v := range e {
+		emax2 = max(emax2, v*v)
+	}
+	pivmin := 0x1p-1022 * max(1, emax2)
+	neg := sturmCount(d, e, 0, pivmin)
+	small := math.Inf(1)
+	if neg > 0 {
+		small = math.Abs(kthEigen(d, e, neg, glo, ghi, pivmin))
+	}
+	if neg < len(d) {
+		small = min(small, math.Abs(kthEigen(d, e, neg+1, glo, ghi, pivmin)))
+	}
+	return small
+}

@@ -231,4 +231,6 @@ type Result struct {
 	Settings Settings
 	// LSQ holds what only a least-squares solve reports; nil for CG.
 	LSQ *LSQResult
+	// MINRES holds what only MINRES reports; nil for the other methods.
+	MINRES *MINRESResult
 }

@@ -72,8 +72,20 @@ func New(a *sparse.CSR, kind Kind) (*Choice, error) {
 		}
 	case KindAuto:
 		c, err = auto(a)
+	case KindBlock:
+		if a.Rows == 0 && a.Cols == 0 {
+			c = &Choice{Kind: KindBlock, Reason: "block: an empty matrix has nothing to precondition"}
+			break
+		}
+		var bd *BlockDiagonal
+		bd, err = NewBlockDiagonal(a, BlockOptions{})
+		if err == nil {
+			c = &Choice{Kind: KindBlock, M: bd, Bytes: bd.Bytes(), Reason: fmt.Sprintf(
+				"block: as requested; saddle-point split %d + %d (zero trailing block), H by %s, Schur complement C + B·diag(H)⁻¹·Bᵀ by %s",
+				bd.Split(), a.Rows-bd.Split(), bd.HChoice.Reason, bd.SChoice.Reason)}
+		}
 	default:
-		return nil, fmt.Errorf("precond: unknown preconditioner kind %q (want one of none, jacobi, ic0, auto)", string(kind))
+		return nil, fmt.Errorf("precond: unknown preconditioner kind %q (want one of none, jacobi, ic0, auto, block)", string(kind))
 	}
 	if err != nil {
 		return nil, err

@@ -18,10 +18,13 @@ const (
 	// KindAuto: chosen from the matrix by the rule in the package
 	// documentation.
 	KindAuto Kind = "auto"
+	// KindBlock: the block-diagonal preconditioner of a saddle-point matrix
+	// with a zero (2,2) block (type BlockDiagonal), for MINRES.
+	KindBlock Kind = "block"
 )
 
 // Kinds lists every kind in the order the documentation gives them.
-var Kinds = []Kind{KindNone, KindJacobi, KindIC0, KindAuto}
+var Kinds = []Kind{KindNone, KindJacobi, KindIC0, KindAuto, KindBlock}
 
 // ParseKind returns the Kind named s. It accepts exactly the names above
 // and returns an error that lists them for anything else.
@@ -31,5 +34,5 @@ func ParseKind(s string) (Kind, error) {
 			return k, nil
 		}
 	}
-	return "", fmt.Errorf("precond: unknown preconditioner %q (want one of none, jacobi, ic0, auto)", s)
+	return "", fmt.Errorf("precond: unknown preconditioner %q (want one of none, jacobi, ic0, auto, block)", s)
 }

@@ -16,6 +16,12 @@
 //   - Summary: the outcome of one solve, whose JSON encoding is the schema
 //     documented in the README (the CLI's --json, the client's result, the
 //     server's result message through package wire, and the page's jobs).
+//   - MINRES for a symmetric matrix that is not positive definite: asked
+//     for (MINRES), or chosen by Auto from the diagonal's signs or a CG
+//     breakdown, with Summary.MethodReason saying why (minres.go).
+//   - PrepareNormal: the normal equations (B·diag(d)·Bᵀ + δI)·y = r with new
+//     weights every solve, matrix-free, the pattern of B·Bᵀ kept in a
+//     NormalCache for IC(0) (normal.go).
 //   - State and Outcome: the words for where a job is (queued, running,
 //     done) and how a solve ended (converged, iteration-limit, ...,
 //     setup-failed), used verbatim by every front end, the logs and the

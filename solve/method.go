@@ -8,8 +8,10 @@ import "fmt"
 type Method string
 
 const (
-	// Auto lets residua choose: conjugate gradients for a system,
-	// LSQR for least squares.
+	// Auto lets residua choose: conjugate gradients for a system (MINRES
+	// when the matrix shows it is not positive definite: a diagonal entry
+	// that is not positive, or a breakdown of conjugate gradients), LSQR
+	// for least squares.
 	Auto Method = "auto"
 	// CG is conjugate gradients, preconditioned or not, for a symmetric
 	// positive definite A (krylov.CG).
@@ -20,10 +22,14 @@ const (
 	// CGLS is conjugate gradients on the normal equations without forming
 	// them, for least squares (krylov.CGLS).
 	CGLS Method = "cgls"
+	// MINRES is the minimum residual method of Paige and Saunders for a
+	// symmetric A that need not be definite (krylov.MINRES), with an SPD
+	// preconditioner.
+	MINRES Method = "minres"
 )
 
 // Methods lists the methods in the order the documentation gives them.
-var Methods = []Method{Auto, CG, LSQR, CGLS}
+var Methods = []Method{Auto, CG, LSQR, CGLS, MINRES}
 
 // ParseMethod returns the Method named s; the empty string is Auto. It
 // accepts exactly the names above and returns an error listing them for
@@ -37,7 +43,7 @@ func ParseMethod(s string) (Method, error) {
 			return m, nil
 		}
 	}
-	return "", fmt.Errorf("unknown method %q (want auto, cg, lsqr or cgls)", s)
+	return "", fmt.Errorf("unknown method %q (want auto, cg, lsqr, cgls or minres)", s)
 }
 
 // LeastSquares reports whether m solves least-squares problems.
@@ -56,6 +62,11 @@ func (m Method) Name(precond bool) string {
 		return "LSQR"
 	case CGLS:
 		return "CGLS"
+	case MINRES:
+		if precond {
+			return "preconditioned MINRES"
+		}
+		return "MINRES"
 	case Auto, "":
 		return "the automatic choice"
 	}

@@ -45,6 +45,10 @@ type Request struct {
 	// to watch the recursive one's drift; default 50; negative turns the
 	// periodic refresh off.
 	RefreshEvery int
+
+	// auto records that Validate resolved Method from Auto, so that
+	// Prepare may still switch a system to MINRES (see Auto).
+	auto bool
 }
 
 // FieldError is a request setting that Validate refused. Field is the
@@ -86,8 +90,11 @@ func (r Request) Validate() (Request, error) {
 		m = LSQR
 	case m == Auto:
 		m = CG
+		r.auto = true
 	case m == CG && r.LeastSquares:
 		return r, fieldErr("method", "cg solves systems; least squares uses lsqr or cgls")
+	case m == MINRES && r.LeastSquares:
+		return r, fieldErr("method", "minres solves symmetric systems; least squares uses lsqr or cgls")
 	}
 	r.Method = m
 	if r.Preconditioner == "" {
@@ -97,8 +104,12 @@ func (r Request) Validate() (Request, error) {
 		if _, err := krylov.ParseScaling(r.Preconditioner); err != nil {
 			return r, &FieldError{Field: "preconditioner", Err: err}
 		}
-	} else if _, err := precond.ParseKind(r.Preconditioner); err != nil {
+	} else if k, err := precond.ParseKind(r.Preconditioner); err != nil {
 		return r, &FieldError{Field: "preconditioner", Err: trimPackage(err)}
+	} else if k == precond.KindBlock && r.auto {
+		r.Method = MINRES // only MINRES takes the saddle-point preconditioner
+	} else if k == precond.KindBlock && m == CG {
+		return r, fieldErr("preconditioner", "block (the saddle-point preconditioner) is for minres; conjugate gradients needs a positive definite matrix, which a saddle-point matrix is not")
 	}
 	for _, f := range []struct {
 		name string
@@ -127,6 +138,30 @@ func (r Request) Validate() (Request, error) {
 		return r, fieldErr("refresh_every", "applies to conjugate gradients only")
 	}
 	return r, nil
+}
+
+// MethodAsked returns the method as the user asked for it: Auto when
+// Validate resolved Method from Auto (which may still become MINRES when
+// the matrix is seen), else Method. A front end that sends a validated
+// request on (to a server) sends this, so that the automatic choice is
+// made where the matrix is.
+func (r Request) MethodAsked() Method {
+	if r.auto {
+		return Auto
+	}
+	return r.Method
+}
+
+// SetupKey names what a set-up built for the validated request r depends
+// on besides the matrix: the method (with whether it was chosen
+// automatically, since the automatic choice may switch to MINRES) and the
+// preconditioner. A server caching set-ups keys them by it.
+func (r Request) SetupKey() string {
+	m := string(r.Method)
+	if r.auto {
+		m = string(Auto) + "→" + m
+	}
+	return m + "/" + r.Preconditioner
 }
 
 // trimPackage drops a "precond: " prefix from a lower package's message,
@@ -213,8 +248,12 @@ func (r Request) Applies(m Matrix) error {
 		if why == "" {
 			why = "is not symmetric"
 		}
-		return fmt.Errorf("%w: %s %s; conjugate gradients needs a symmetric positive definite matrix (least squares, residua lsq or method lsqr, solves the normal equations AᵀA·x = Aᵀb instead)",
-			ErrNotSymmetric, m.Name, why)
+		needs := "conjugate gradients needs a symmetric positive definite matrix"
+		if r.Method == MINRES {
+			needs = "MINRES needs a symmetric matrix"
+		}
+		return fmt.Errorf("%w: %s %s; %s (least squares, residua lsq or method lsqr, solves the normal equations AᵀA·x = Aᵀb instead)",
+			ErrNotSymmetric, m.Name, why, needs)
 	}
 	return nil
 }

@@ -28,8 +28,17 @@ type Setup struct {
 	ScalingReason string
 	// Matrix is the matrix the set-up is for.
 	Matrix Matrix
+	// MethodReason says why the automatic method chose what it did (empty
+	// when the method was asked for).
+	MethodReason string
 
 	zeroDiag int // a system's zero diagonal entries (see zeroDiagonal)
+	zeroRows int // a system's rows without a nonzero value (see zeroRows)
+
+	// A normal-equations set-up (PrepareNormal): the operator that
+	// replaces Matrix.A, and what the summary reports of it.
+	op     krylov.Operator
+	normal *normalInfo
 }
 
 // SetupError is a preconditioner that could not be built. It wraps the
@@ -65,11 +74,9 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 	}
 	s.zeroDiag = zeroDiagonal(m.A)
 	kind, _ := precond.ParseKind(req.Preconditioner)
-	c, err := precond.New(m.A, kind)
-	if err != nil {
-		return nil, &SetupError{Preconditioner: req.Preconditioner, Err: err}
+	if err := s.prepareSystem(kind); err != nil {
+		return nil, err
 	}
-	s.Choice = c
 	return s, nil
 }
 
@@ -118,17 +125,18 @@ func (s *Setup) SolveDurable(ctx context.Context, b, x0, x []float64, rec krylov
 			Checkpoint: d.Checkpoint, Resume: d.Resume,
 		})
 	} else {
-		var m krylov.Preconditioner
-		if s.Choice.M != nil {
-			m = s.Choice.M
-		}
-		res, err = krylov.CG(ctx, a, b, x, m, krylov.Settings{
-			RelTol: req.RelTol, AbsTol: req.AbsTol, MaxIter: req.MaxIter, TimeLimit: req.TimeLimit,
-			RefreshEvery: req.RefreshEvery, X0: x0, Recorder: rec,
-			Checkpoint: d.Checkpoint, Resume: d.Resume,
-		})
+		res, err = s.solveSystem(ctx, b, x0, x, rec, &sum, d)
 	}
-	fill(&sum, &res, err, s.zeroDiag)
+	zeroDiag := s.zeroDiag
+	if Method(sum.Method) == MINRES && s.normal == nil {
+		// A zero diagonal entry is no sign of singularity for an
+		// indefinite A (a saddle point has many); a zero row is.
+		zeroDiag = s.zeroRows
+	}
+	fill(&sum, &res, err, zeroDiag)
+	if Method(sum.Method) == MINRES && sum.ForwardErrorEstimate != nil {
+		sum.ForwardErrorNote = "κ·‖r‖/‖b‖ with κ = max |θ|/min |θ| over MINRES's Ritz values θ (of the preconditioned operator when there is a preconditioner): for an indefinite matrix an estimate of the condition number, not a bound, so the error may exceed this estimate"
+	}
 	if d.Resume != nil && !errors.Is(err, krylov.ErrResume) {
 		it := d.Resume.Iteration
 		sum.ResumedFrom = &it
@@ -141,7 +149,10 @@ func (s *Setup) SolveDurable(ctx context.Context, b, x0, x []float64, rec krylov
 // shift, memory and set-up time. A server announces it before iterating.
 func (s *Setup) Summary() Summary {
 	a := s.Matrix.A
-	sum := Summary{Matrix: s.Matrix.Name, Rows: a.Rows, Cols: a.Cols, Nonzeros: a.NNZ(), Method: string(s.Request.Method)}
+	sum := Summary{Matrix: s.Matrix.Name, Rows: a.Rows, Cols: a.Cols, Nonzeros: a.NNZ(), Method: string(s.Request.Method), MethodReason: s.MethodReason}
+	if s.normal != nil {
+		s.normal.describe(&sum)
+	}
 	if s.Request.LeastSquares {
 		sum.Preconditioner = s.Scaling.String()
 		sum.PreconditionerReason = s.Scaling.String() + ": " + s.ScalingReason
@@ -180,6 +191,7 @@ func fill(sum *Summary, r *krylov.Result, err error, zeroDiag int) {
 		sum.RelTol, sum.AbsTol = NumPtr(st.RelTol), Num(st.AbsTol)
 		sum.MaxIter, sum.TimeLimitSeconds, sum.RefreshEvery = st.MaxIter, Seconds(st.TimeLimit), st.RefreshEvery
 	}
+	fillMINRES(sum, r)
 	if err != nil && r.Status != krylov.Cancelled {
 		sum.Error = trimPackage(err).Error()
 		sum.Advice = Advice(err)

@@ -28,7 +28,7 @@ func TestParseMethod(t *testing.T) {
 	if got, err := ParseMethod(""); err != nil || got != Auto {
 		t.Errorf(`ParseMethod("") = %q, %v; want auto`, got, err)
 	}
-	if _, err := ParseMethod("lsq"); err == nil || !strings.Contains(err.Error(), "auto, cg, lsqr or cgls") {
+	if _, err := ParseMethod("lsq"); err == nil || !strings.Contains(err.Error(), "auto, cg, lsqr, cgls or minres") {
 		t.Errorf("ParseMethod(lsq) error %v does not list the methods", err)
 	}
 }
@@ -41,7 +41,11 @@ func TestValidate(t *testing.T) {
 		field string // "" for no error
 		want  Request
 	}{
-		{"zero is a system by CG", Request{}, "", Request{Method: CG, Preconditioner: "auto"}},
+		{"zero is a system by CG", Request{}, "", Request{Method: CG, Preconditioner: "auto", auto: true}},
+		{"minres is a system", Request{Method: MINRES}, "", Request{Method: MINRES, Preconditioner: "auto"}},
+		{"auto with block is MINRES", Request{Preconditioner: "block"}, "", Request{Method: MINRES, Preconditioner: "block", auto: true}},
+		{"minres for least squares", Request{LeastSquares: true, Method: MINRES}, "method", Request{}},
+		{"block for cg", Request{Method: CG, Preconditioner: "block"}, "preconditioner", Request{}},
 		{"auto least squares is LSQR", Request{LeastSquares: true}, "", Request{LeastSquares: true, Method: LSQR, Preconditioner: "auto"}},
 		{"cgls implies least squares", Request{Method: CGLS, Preconditioner: "colscale"}, "", Request{LeastSquares: true, Method: CGLS, Preconditioner: "colscale"}},
 		{"unknown method", Request{Method: "gmres"}, "method", Request{}},
@@ -153,14 +157,14 @@ func TestRunLeastSquares(t *testing.T) {
 
 func TestFailure(t *testing.T) {
 	t.Parallel()
-	// A negative diagonal entry: Jacobi cannot be built, so the set-up
-	// fails (the matrix is not SPD).
+	// A negative diagonal entry: Jacobi cannot be built for conjugate
+	// gradients, so the set-up fails (the matrix is not SPD).
 	a, err := sparse.NewCSR(2, 2, []int{0, 1, 2}, []int32{0, 1}, []float64{1, -1})
 	if err != nil {
 		t.Fatal(err)
 	}
 	m := Check(a, "neg", true)
-	sum, _, err := Run(context.Background(), m, Request{Preconditioner: "jacobi"}, []float64{1, 1}, nil, make([]float64, 2), nil)
+	sum, _, err := Run(context.Background(), m, Request{Method: CG, Preconditioner: "jacobi"}, []float64{1, 1}, nil, make([]float64, 2), nil)
 	var se *SetupError
 	if !errors.As(err, &se) || sum.Status != string(SetupFailed) || sum.Converged || sum.Rows != 2 ||
 		sum.Preconditioner != "jacobi" || !strings.Contains(sum.Headline, "set-up failed") || strings.Contains(sum.Error, "precond:") {

@@ -178,6 +178,19 @@ type Summary struct {
 	// checkpoint the command line kept writing.
 	ResumedFrom    *int   `json:"resumed_from_iteration,omitempty"`
 	CheckpointFile string `json:"checkpoint_file,omitempty"`
+
+	// MethodReason says why the automatic method chose Method for a
+	// system ("minres: A is symmetric but not positive definite ...", or a
+	// conjugate gradients breakdown that handed over to MINRES).
+	MethodReason string `json:"method_reason,omitempty"`
+
+	// Normal-equations solves only (B·D·Bᵀ + δI)·y = r: the operator in
+	// words, the spread of the weights max d/min d (+Inf when a weight is
+	// zero), which is what makes these systems ill-conditioned near an
+	// interior-point optimum, and δ.
+	Operator       string `json:"operator,omitempty"`
+	WeightRatio    *Num   `json:"weight_ratio,omitempty"`
+	Regularization *Num   `json:"regularization,omitempty"`
 }
 
 // LeastSquares reports whether s describes a least-squares solve.
@@ -220,6 +233,9 @@ func Headline(s *Summary) string {
 		return fmt.Sprintf("stopped without converging at the time limit of %s, after %s of %s: %s%s",
 			fmtDuration(float64(s.TimeLimitSeconds)), its, method, res, tolerance)
 	case Stagnated:
+		if s.Warning == WarnSingular && Method(s.Method) == MINRES {
+			return fmt.Sprintf("stopped after %s of %s: A is singular and b outside its range, %s is the least-squares level (see the warning)", its, method, res)
+		}
 		return fmt.Sprintf("stagnated after %s of %s: %s, and rounding keeps it from falling further%s", its, method, res, tolerance)
 	case Cancelled:
 		return fmt.Sprintf("cancelled after %s of %s: %s", its, method, res)

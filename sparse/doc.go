@@ -2,7 +2,13 @@
 // row storage), and the kernels the iterative methods spend their time in:
 // the products y = A·x and y = Aᵀ·x, fused products that also return a dot
 // product, and the vector sweeps of conjugate gradients. It also reports on
-// a matrix's structure and numerics (Analyze) before a solve.
+// a matrix's structure and numerics (Analyze) before a solve. Mul,
+// MulTrans and Galerkin form sparse matrix-matrix products (C = A·B,
+// Aᵀ·B, Pᵀ·A·P) for set-up work such as multigrid coarse operators and
+// Schur complements; spgemm.go explains their two passes. Normal and
+// NormalAssembly are the normal-equations operator B·diag(d)·Bᵀ + δ·I of an
+// interior-point step, matrix-free or assembled on a pattern computed once
+// (normal.go); TriadDot and Step3 are MINRES's fused sweeps (minres_vec.go).
 //
 // # Storage
 //

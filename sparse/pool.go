@@ -63,6 +63,8 @@ const (
 	opAxpyDot
 	opTriad
 	opStep
+	opTriadDot // minres_vec.go
+	opStep3    // minres_vec.go
 )
 
 // job is one kernel call's operation and operands. Block sums go to
@@ -72,6 +74,8 @@ type job struct {
 	a       *CSR
 	d, x, y []float64
 	s, t    float64
+	w       []float64 // fourth vector of opStep3
+	u       float64   // third scalar of opStep3
 	sums    []float64
 }
 
@@ -349,6 +353,12 @@ func (j job) block(b, blk int) float64 {
 		triadBlock(j.d[lo:hi], j.x[lo:hi], j.y[lo:hi], j.s)
 	case opStep:
 		stepBlock(j.d[lo:hi], j.x[lo:hi], j.y[lo:hi], j.s, j.t)
+	case opTriadDot:
+		d := j.d[lo:hi]
+		triadDotBlock(d, j.x[lo:hi], j.y[lo:hi], j.s, j.t)
+		return dotBlock(d, d)
+	case opStep3:
+		step3Block(j.d[lo:hi], j.x[lo:hi], j.y[lo:hi], j.w[lo:hi], j.s, j.t, j.u)
 	}
 	return 0
 }

@@ -38,6 +38,8 @@ func Result(s *solve.Summary) *pb.SolveResult {
 		ForwardErrorEstimate: f64(s.ForwardErrorEstimate), ForwardErrorNote: s.ForwardErrorNote,
 		Warning: s.Warning, WarningText: s.WarningText, Advice: s.Advice,
 		Matrix: s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
+		MethodReason: s.MethodReason,
+		Operator:     s.Operator, WeightRatio: f64(s.WeightRatio), Regularization: f64(s.Regularization),
 	}
 	for _, c := range s.ZeroColumns {
 		r.ZeroColumns = append(r.ZeroColumns, int64(c))
@@ -77,6 +79,8 @@ func Summary(r *pb.SolveResult) solve.Summary {
 		ForwardErrorEstimate: num(r.ForwardErrorEstimate), ForwardErrorNote: r.GetForwardErrorNote(),
 		Warning: r.GetWarning(), WarningText: r.GetWarningText(), Advice: r.GetAdvice(),
 		Matrix: r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
+		MethodReason: r.GetMethodReason(),
+		Operator:     r.GetOperator(), WeightRatio: num(r.WeightRatio), Regularization: num(r.Regularization),
 	}
 	for _, c := range r.GetZeroColumns() {
 		s.ZeroColumns = append(s.ZeroColumns, int(c))
@@ -125,7 +129,7 @@ func Row(p *pb.Progress) krylov.Progress {
 // the progress policy, detach) is the caller's.
 func FillRequest(dst *pb.SolveRequest, r solve.Request) {
 	dst.LeastSquares = r.LeastSquares
-	dst.Method = string(r.Method)
+	dst.Method = string(r.MethodAsked())
 	dst.Preconditioner = r.Preconditioner
 	dst.Rtol, dst.Btol, dst.Damp = r.RelTol, r.BTol, r.Damp
 	dst.Atol = r.AbsTol

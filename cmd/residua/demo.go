@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"flag"
 	"fmt"
 	"math"
 	"time"
@@ -35,7 +36,16 @@ the error of the computed temperatures as well as the residual.
 
 Discretised by finite volumes on a grid of --size points per side (the same
 operator as 'residua generate jump3d'), it is a sparse symmetric positive
-definite system with size³ unknowns. Flags as for solve.`
+definite system with size³ unknowns. Flags as for solve.
+
+--scenario bakery runs the other scenario (also our own): --bakeries bakeries
+with daily oven capacities ship loaves to --cafes cafés with fixed orders
+(random, --seed) at a cost per loaf that grows with distance on a made-up
+town map. The cheapest shipping plan is a linear program, solved by a
+primal-dual interior-point method (Mehrotra's predictor-corrector, Nocedal
+and Wright, Numerical Optimization, §14.2) whose every step hands residua
+the normal equations (A·D·Aᵀ)·Δλ = r with a new diagonal D; --precond picks
+their preconditioner (auto is jacobi; ic0; none).`
 
 const (
 	demoSize     = 64
@@ -50,6 +60,10 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	f.IntVar(&size, "size", demoSize, "grid points per side `N` (N³ unknowns)")
 	f.Float64Var(&contrast, "contrast", demoContrast, "ratio of the two materials' conductivities")
 	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
+	scenario := f.String("scenario", "heat", "`name`: heat (the heat-spreader block) or bakery (the shipping plan, a linear program)")
+	bakeries := f.Int("bakeries", 8, "bakery scenario: number of bakeries")
+	cafes := f.Int("cafes", 25, "bakery scenario: number of cafés")
+	seed := f.Uint64("seed", 1, "bakery scenario: seed of the made-up orders, capacities and map")
 	addRunFlags(f, o)
 	pos, err := f.parse(e, args)
 	if err != nil {
@@ -57,6 +71,26 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	}
 	if len(pos) != 0 {
 		return usageErrorf("demo: takes no arguments, got %q (run 'residua demo --help')", pos)
+	}
+	set := map[string]bool{}
+	f.Visit(func(fl *flag.Flag) { set[fl.Name] = true })
+	heatOnly := []string{"size", "contrast", "rtol", "atol", "max-iter", "time-limit", "o", "history", "plot"}
+	switch *scenario {
+	case "heat":
+		for _, name := range []string{"bakeries", "cafes", "seed"} {
+			if set[name] {
+				return usageErrorf("demo: --%s applies to --scenario bakery only", name)
+			}
+		}
+	case "bakery":
+		for _, name := range heatOnly {
+			if set[name] {
+				return usageErrorf("demo: --%s applies to the heat scenario only (the bakery scenario's solves use the interior-point method's own tolerances)", name)
+			}
+		}
+		return runBakery(ctx, e, o, *bakeries, *cafes, *seed)
+	default:
+		return usageErrorf("demo: --scenario %q: want heat or bakery", *scenario)
 	}
 	req, err := checkRequest("demo", o.request())
 	if err != nil {

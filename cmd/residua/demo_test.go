@@ -1,6 +1,7 @@
 package main
 
 import (
+	"encoding/json"
 	"math"
 	"strings"
 	"testing"
@@ -29,5 +30,26 @@ func TestDemo(t *testing.T) {
 	}
 	if _, _, code := runCLI(t, "demo", "--size", "0"); code != exitUsage {
 		t.Errorf("--size 0: exit %d, want 2", code)
+	}
+}
+
+// The bakery scenario: the interior-point method's optimum (its agreement
+// with gonum's simplex is checked in package ipm) ships exactly the
+// ordered loaves, the normal-equations solves are accurate, and flags of
+// the other scenario are refused.
+func TestDemoBakery(t *testing.T) {
+	stdout, stderr, code := runCLI(t, "demo", "--scenario", "bakery", "--bakeries", "3", "--cafes", "4", "--json")
+	var rep bakeryReport
+	if code != 0 || json.Unmarshal([]byte(stdout), &rep) != nil {
+		t.Fatalf("exit %d: %s %s", code, stdout, stderr)
+	}
+	if math.Abs(float64(rep.ShippedLoaves-rep.OrderedLoaves)) > 1e-6*float64(rep.OrderedLoaves) || rep.NormalSolves < 2 || rep.WorstRelResid > 1e-10 {
+		t.Errorf("report %+v", rep)
+	}
+	if _, stderr, code := runCLI(t, "demo", "--scenario", "bakery", "--size", "8"); code != exitUsage || !strings.Contains(stderr, "heat scenario") {
+		t.Errorf("--size with bakery: exit %d, %s", code, stderr)
+	}
+	if _, _, code := runCLI(t, "demo", "--scenario", "pastry"); code != exitUsage {
+		t.Errorf("unknown scenario: exit %d", code)
 	}
 }

@@ -40,7 +40,7 @@ func TestJSONOnEveryFailure(t *testing.T) {
 		// collection's file), so no preconditioner can be built and no
 		// SPD method applies: Golub and Van Loan, 4th ed., §4.2 (an SPD
 		// matrix has a positive diagonal).
-		{"set-up failed", []string{"solve", sharedMatrix(t, "saylr3.mtx")}, 4, "setup-failed", "", "(−A)·x = −b"},
+		{"set-up failed", []string{"solve", sharedMatrix(t, "saylr3.mtx"), "--method", "cg"}, 4, "setup-failed", "", "(−A)·x = −b"},
 		{"missing file", []string{"solve", missing}, 2, "refused", "", ""},
 		{"b of the wrong length", []string{"lsq", sharedMatrix(t, "bcsstk01.mtx"), "-b", sharedMatrix(t, "nos4.mtx")}, 2, "refused", "", ""},
 		{"no server", []string{"solve", sharedMatrix(t, "nos4.mtx"), "--server", dead}, 1, "failed", "Unavailable", ""},

@@ -34,6 +34,12 @@ symmetric, lower triangle only. KIND is one of:
   anisotropic3d  7-point diffusion with coefficients --kx, --ky, --kz along the axes
   jump3d         7-point diffusion whose coefficient jumps between 1 and --contrast
                  in a 2×2×2 checkerboard of blocks
+  saddle2d       the saddle-point (KKT) matrix [H Bᵀ; B −c·I] with H the poisson2d
+                 matrix, B a random sparse constraint matrix of full row rank with
+                 --constraints rows (default a quarter of H's) and --per-row entries
+                 per row (default 4, fixed --seed), c = --reg (default 0: a zero
+                 (2,2) block): symmetric indefinite, for 'residua solve' (MINRES)
+  saddle3d       the same with H the poisson3d matrix
 
 With --rhs, also writes b = A·1 as a Matrix Market array, so the solution of
 A·x = b is known to be all ones. Both files are written atomically (a
@@ -48,6 +54,11 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 	ky := f.Float64("ky", stencil.DefaultKY, "anisotropic3d: diffusion coefficient along y")
 	kz := f.Float64("kz", stencil.DefaultKZ, "anisotropic3d: diffusion coefficient along z")
 	contrast := f.Float64("contrast", stencil.DefaultContrast, "jump3d: ratio of the two blocks' coefficients")
+	so := &saddleOpts{}
+	f.IntVar(&so.constraints, "constraints", 0, "saddle2d, saddle3d: constraint rows `M` (default a quarter of H's rows)")
+	f.IntVar(&so.perRow, "per-row", 4, "saddle2d, saddle3d: entries per constraint row")
+	f.Uint64Var(&so.seed, "seed", 1, "saddle2d, saddle3d: seed of the random constraints")
+	f.Float64Var(&so.reg, "reg", 0, "saddle2d, saddle3d: c ≥ 0 in the (2,2) block −c·I")
 	pos, err := f.parse(e, args)
 	if err != nil {
 		return err
@@ -56,11 +67,17 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 		return usageErrorf("generate: want one KIND (%s), got %d arguments", strings.Join(stencil.Names(), ", "), len(pos))
 	}
 	kind := pos[0]
-	if !slices.Contains(stencil.Names(), kind) {
-		return usageErrorf("generate: unknown kind %q: want one of %s", kind, strings.Join(stencil.Names(), ", "))
+	kinds := append(stencil.Names(), saddleKinds...)
+	if !slices.Contains(kinds, kind) {
+		return usageErrorf("generate: unknown kind %q: want one of %s", kind, strings.Join(kinds, ", "))
 	}
 	set := map[string]bool{}
 	f.Visit(func(fl *flag.Flag) { set[fl.Name] = true })
+	for _, name := range []string{"constraints", "per-row", "seed", "reg"} {
+		if set[name] && !slices.Contains(saddleKinds, kind) {
+			return usageErrorf("generate: --%s applies to saddle2d and saddle3d only", name)
+		}
+	}
 	for _, name := range []string{"kx", "ky", "kz"} {
 		if set[name] && kind != "anisotropic3d" {
 			return usageErrorf("generate: --%s applies to anisotropic3d only", name)
@@ -77,7 +94,12 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 	if !set["size"] {
 		return usageErrorf("generate: --size N is required")
 	}
-	a, err := buildProblem(kind, *size, *kx, *ky, *kz, *contrast)
+	var a *sparse.CSR
+	if slices.Contains(saddleKinds, kind) {
+		a, err = buildSaddle(kind, *size, so)
+	} else {
+		a, err = buildProblem(kind, *size, *kx, *ky, *kz, *contrast)
+	}
 	if err != nil {
 		return usageErrorf("generate: %v", err)
 	}
@@ -157,4 +179,38 @@ func formatDuration(d time.Duration) string {
 		return d.Round(10 * time.Microsecond).String()
 	}
 	return d.Round(time.Microsecond).String()
+}
+
+// saddleKinds are generate's saddle-point problems (see generateAbout).
+var saddleKinds = []string{"saddle2d", "saddle3d"}
+
+// saddleOpts are generate's flags for the saddle-point kinds.
+type saddleOpts struct {
+	constraints, perRow int
+	seed                uint64
+	reg                 float64
+}
+
+// buildSaddle returns the saddle-point matrix [H Bᵀ; B −c·I] of the named
+// kind, checking the users' numbers so that the constructors never panic.
+func buildSaddle(kind string, n int, so *saddleOpts) (*sparse.CSR, error) {
+	h, err := stencil.Generate(map[string]string{"saddle2d": "poisson2d", "saddle3d": "poisson3d"}[kind], n)
+	if err != nil {
+		return nil, err
+	}
+	m := so.constraints
+	if m == 0 {
+		m = max(1, h.Rows/4)
+	}
+	switch {
+	case m < 1 || m > h.Rows:
+		return nil, fmt.Errorf("--constraints %d must be in 1…%d (H's rows), so that B can have full row rank", m, h.Rows)
+	case so.perRow < 1:
+		return nil, fmt.Errorf("--per-row %d must be at least 1", so.perRow)
+	case !(so.reg >= 0) || math.IsInf(so.reg, 0):
+		return nil, fmt.Errorf("--reg %v must be finite and ≥ 0", so.reg)
+	case h.Rows+m > sparse.MaxDim:
+		return nil, fmt.Errorf("%s with side %d and %d constraints has more than %d unknowns", kind, n, m, sparse.MaxDim)
+	}
+	return stencil.Saddle(h, stencil.Constraints(m, h.Rows, so.perRow, so.seed), so.reg), nil
 }

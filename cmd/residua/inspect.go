@@ -158,14 +158,14 @@ func verdict(r *sparse.Report) string {
 		_, why := solve.Symmetry(*r)
 		return strings.TrimPrefix(why, "is ") + "; CG needs a symmetric positive definite matrix, 'residua lsq' solves the normal equations"
 	case !r.Diagonal.Positive:
-		return fmt.Sprintf("symmetric, but the diagonal has %s: not positive definite, CG cannot be used", diagonalFaults(r.Diagonal))
+		return fmt.Sprintf("symmetric, but the diagonal has %s: not positive definite, CG cannot be used; MINRES can ('residua solve --method minres', which the automatic method picks for it)", diagonalFaults(r.Diagonal))
 	case r.GershgorinLow > 0:
 		return "symmetric with positive diagonal: CG can be tried (the Gershgorin interval proves it positive definite)"
 	}
 	// A positive diagonal is necessary for positive definiteness, not
 	// sufficient (bcsstm10 and blckhole have one and CG breaks down on
 	// both).
-	return "symmetric with positive diagonal: CG can be tried, though a positive diagonal does not prove A positive definite (CG breaks down if it is not)"
+	return "symmetric with positive diagonal: CG can be tried, though a positive diagonal does not prove A positive definite; if CG breaks down, the matrix is indefinite and MINRES solves it ('--method minres'; the automatic method switches by itself)"
 }
 
 func (in *inspection) writeText(w io.Writer) {

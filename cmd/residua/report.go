@@ -76,6 +76,9 @@ func summaryLines(w io.Writer, r *solve.Summary) {
 	if r.FromCache != nil && *r.FromCache && !r.LeastSquares() {
 		pc += ", reused from the server's cache"
 	}
+	if r.MethodReason != "" {
+		fmt.Fprintf(w, "  method            %s\n", r.MethodReason)
+	}
 	fmt.Fprintf(w, "  preconditioner    %s\n", pc)
 	if r.Status == string(solve.SetupFailed) || r.Status == string(solve.Refused) {
 		return
@@ -106,8 +109,12 @@ func summaryLines(w io.Writer, r *solve.Summary) {
 		if r.Preconditioner != "none" {
 			of = "the preconditioned operator"
 		}
-		fmt.Fprintf(w, "  condition         ≈ %s (Lanczos estimate for %s, from below; λ in [%s, %s])\n",
-			solve.Sci(float64(r.CondEstimate)), of, solve.Sci(float64(*r.LambdaMin)), solve.Sci(num(r.LambdaMax)))
+		how := "from below"
+		if solve.Method(r.Method) == solve.MINRES {
+			how = "max |θ|/min |θ| over the Ritz values θ, an estimate, not a bound, for an indefinite matrix"
+		}
+		fmt.Fprintf(w, "  condition         ≈ %s (Lanczos estimate for %s, %s; λ in [%s, %s])\n",
+			solve.Sci(float64(r.CondEstimate)), of, how, solve.Sci(float64(*r.LambdaMin)), solve.Sci(num(r.LambdaMax)))
 	case r.CondEstimate > 0:
 		of := "A"
 		if r.Preconditioner == "colscale" {

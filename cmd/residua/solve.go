@@ -34,8 +34,14 @@ const solveAbout = `
 Solves A·x = b for a symmetric positive definite A read from a Matrix Market
 file (plain, gzip-compressed, or a collection bundle NAME.tar.gz) by
 conjugate gradients with no, Jacobi or incomplete Cholesky (IC(0))
-preconditioning. The answer is accepted only when the true residual,
-recomputed from x, meets ‖b − A·x‖ ≤ max(rtol·‖b‖, atol).
+preconditioning. A symmetric A that is not positive definite (a
+saddle-point or KKT matrix, a shifted operator) is solved by MINRES
+instead: --method minres, or the automatic method when a diagonal entry is
+≤ 0 or conjugate gradients breaks down (the summary says why). MINRES
+takes Jacobi on |diag(A)|, or for a matrix with a zero (2,2) block the
+block-diagonal preconditioner (--precond block). The answer is accepted
+only when the true residual, recomputed from x, meets
+‖b − A·x‖ ≤ max(rtol·‖b‖, atol).
 
 Right-hand side: -b FILE; else a bundle's own NAME_b.mtx; else b = A·1, in
 which case the exact solution is all ones and the summary also reports the
@@ -68,6 +74,7 @@ returns; follow it with 'residua watch JOB'.`
 type solveOpts struct {
 	mostlyEmpty     bool // --allow-mostly-empty
 	b, x0, precond  string
+	method          string // solve's --method: auto, cg or minres
 	rtol, atol      float64
 	maxIter         int
 	timeLimit       time.Duration
@@ -104,7 +111,7 @@ func addOutputFlags(f *cmdFlags, o *solveOpts) {
 
 // request turns the flags into the solve layer's request.
 func (o *solveOpts) request() solve.Request {
-	return solve.Request{Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit}
+	return solve.Request{Method: solve.Method(o.method), Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit}
 }
 
 // flagOf names the command-line flag of a request setting (the flags are
@@ -144,10 +151,14 @@ func checkOutputFlags(cmd string, o *solveOpts) error {
 
 func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	o := &solveOpts{}
-	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--precond auto|none|jacobi|ic0] [flags]", solveAbout)
+	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--method auto|cg|minres] [--precond auto|none|jacobi|ic0|block] [flags]", solveAbout)
 	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
-	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
+	f.StringVar(&o.method, "method", "auto", "iteration `method`: auto (CG, or MINRES when A's diagonal or a CG breakdown shows it is not positive definite), cg, or minres (any symmetric A)")
+	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi (with minres: on |diag(A)|), ic0, or block (minres on a saddle-point matrix with a zero (2,2) block)")
+	no := &normalOpts{}
+	f.StringVar(&no.weights, "weights", "", "solve the normal equations (B·diag(d)·Bᵀ + δI)·y = r instead: the matrix file is B, this vector `file` holds d (one weight ≥ 0 per column of B), -b holds r (default r = N·1)")
+	f.Float64Var(&no.reg, "reg", 0, "with --weights: the regularisation δ ≥ 0 added to the diagonal of B·diag(d)·Bᵀ")
 	addRunFlags(f, o)
 	addCheckpointFlags(f, &o.ck)
 	so := &serverOpts{}
@@ -161,6 +172,9 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	if len(pos) != 1 {
 		return usageErrorf("solve: want one matrix file, got %d arguments (run 'residua solve --help')", len(pos))
 	}
+	if m := solve.Method(o.method); m.LeastSquares() {
+		return usageErrorf("solve: --method %s: solves least squares; use 'residua lsq --method %s'", o.method, o.method)
+	}
 	req, err := checkRequest("solve", o.request())
 	if err != nil {
 		return err
@@ -171,6 +185,18 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	so.resolve()
 	if err := o.ck.check(f, so.addr != ""); err != nil {
 		return err
+	}
+	if no.weights != "" && (o.ck.path != "" || o.ck.resume != "") {
+		return usageErrorf("solve: --checkpoint and --resume do not apply to --weights (the normal equations) yet")
+	}
+	if no.weights == "" && no.reg != 0 {
+		return usageErrorf("solve: --reg applies with --weights (the normal equations) only")
+	}
+	if no.weights != "" {
+		if so.addr != "" {
+			return usageErrorf("solve: --weights runs locally only: the service does not take normal-equations weights yet")
+		}
+		return solveNormal(ctx, e, pos[0], req, o, no)
 	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)

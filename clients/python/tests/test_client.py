@@ -362,15 +362,17 @@ class ClientTest(unittest.TestCase):
         # diag(1, −1) is symmetric but indefinite: with b = (1, 1) the first
         # direction has pᵀAp = 0, a breakdown of CG (Saad §6.7: CG needs
         # pᵀAp > 0). A zero diagonal entry leaves Jacobi undefined: the
-        # set-up fails before any iteration.
+        # set-up fails before any iteration. (The automatic method would
+        # hand the indefinite matrix to MINRES: conjugate gradients are
+        # asked for by name.)
         with self.assertRaises(residua.SolveError) as cm:
-            self.client.solve(sp.diags([1.0, -1.0]).tocsr(), np.ones(2), precond="none")
+            self.client.solve(sp.diags([1.0, -1.0]).tocsr(), np.ones(2), method="cg", precond="none")
         self.assertEqual((cm.exception.outcome, cm.exception.code), ("breakdown", "FAILED_PRECONDITION"))
         self.assertEqual(cm.exception.summaries[0].status, "breakdown")
         self.assertTrue(cm.exception.summaries[0].advice, "a breakdown comes with advice (solve.Advice)")
         zero = sp.csr_matrix(np.array([[0.0, 1.0], [1.0, 2.0]]))
         with self.assertRaises(residua.SolveError) as cm:
-            self.client.solve(zero, np.ones(2), precond="jacobi")
+            self.client.solve(zero, np.ones(2), method="cg", precond="jacobi")
         self.assertEqual(cm.exception.outcome, "setup-failed")
         self.assertEqual(cm.exception.summaries[0].iterations, 0)
 

@@ -1043,12 +1043,19 @@ type SolveRequest struct {
 	// definite A), or a least-squares method for any A, square or
 	// rectangular, solving min ‖A·x − b‖₂² + damp²·‖x‖₂² with products by A
 	// and Aᵀ only: "lsqr" (Paige and Saunders, ACM TOMS 8(1), 1982) or "cgls"
-	// (Björck, Numerical Methods for Least Squares Problems, 1996, §7.4).
-	// For least squares, b has as many entries as A has rows, x0 and x as
+	// (Björck, Numerical Methods for Least Squares Problems, 1996, §7.4);
+	// or "minres" (Paige and Saunders, SIAM J. Numer. Anal. 12(4), 1975) for
+	// a symmetric A that need not be definite, such as a saddle-point
+	// matrix. "auto" runs MINRES for a system when A's diagonal has an entry
+	// ≤ 0 or conjugate gradients breaks down (SolveResult.method_reason says
+	// which). For least squares, b has as many entries as A has rows, x0 and x as
 	// many as A has columns.
 	Method string `protobuf:"bytes,4,opt,name=method,proto3" json:"method,omitempty"`
 	// The preconditioner. For "cg": "auto" (default when empty), "none", or
-	// a kind of the server's precond package ("jacobi", "ic0"). For least
+	// a kind of the server's precond package ("jacobi", "ic0"). For
+	// "minres" also "block", the block-diagonal preconditioner of a
+	// saddle-point matrix with a zero (2,2) block; "jacobi" is then Jacobi
+	// on |diag(A)|. For least
 	// squares, the column scaling: "auto" (default: "colscale" when A has at
 	// least as many rows as columns, else "none"), "colscale" or "none".
 	Preconditioner string `protobuf:"bytes,5,opt,name=preconditioner,proto3" json:"preconditioner,omitempty"`
@@ -1081,7 +1088,22 @@ type SolveRequest struct {
 	Damp float64 `protobuf:"fixed64,16,opt,name=damp,proto3" json:"damp,omitempty"`
 	// Solve the least-squares problem (implied by method lsqr or cgls; with
 	// method auto it picks LSQR).
-	LeastSquares  bool `protobuf:"varint,17,opt,name=least_squares,json=leastSquares,proto3" json:"least_squares,omitempty"`
+	LeastSquares bool `protobuf:"varint,17,opt,name=least_squares,json=leastSquares,proto3" json:"least_squares,omitempty"`
+	// Normal equations. When weights is set, the stored matrix is B (any
+	// shape) and the job solves (B·diag(d)·Bᵀ + reg·I)·y = b for each
+	// right-hand side, d being these weights, one per column of B, each
+	// finite and ≥ 0, and reg ≥ 0 (an interior-point method's step:
+	// Nocedal and Wright, Numerical Optimization, 2nd ed., §14.1). rhs and x0
+	// then have as many entries as B has rows. The operator is applied
+	// without forming B·D·Bᵀ, from B's transpose, which the server keeps
+	// across requests. Method: "auto" (conjugate gradients), "cg" or
+	// "minres". Preconditioner: "auto" or "jacobi" (the diagonal
+	// Σ_j b_ij²·d_j + reg), "ic0" (IC(0) of B·D·Bᵀ + reg·I assembled on a
+	// pattern the server computes once per B and keeps), or "none". The
+	// result's preconditioner set-up time is this request's own (the
+	// preconditioner depends on d).
+	Weights       *VectorRef `protobuf:"bytes,45,opt,name=weights,proto3" json:"weights,omitempty"`
+	Reg           float64    `protobuf:"fixed64,46,opt,name=reg,proto3" json:"reg,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1233,6 +1255,20 @@ func (x *SolveRequest) GetLeastSquares() bool {
 		return x.LeastSquares
 	}
 	return false
+}
+
+func (x *SolveRequest) GetWeights() *VectorRef {
+	if x != nil {
+		return x.Weights
+	}
+	return nil
+}
+
+func (x *SolveRequest) GetReg() float64 {
+	if x != nil {
+		return x.Reg
+	}
+	return 0
 }
 
 // JobEvent is one message of a Solve or Watch stream.
@@ -1863,8 +1899,19 @@ type SolveResult struct {
 	// the rows before it from the checkpoint and the rows after from the
 	// resumed run.
 	ResumedFromIteration *int32 `protobuf:"varint,42,opt,name=resumed_from_iteration,json=resumedFromIteration,proto3,oneof" json:"resumed_from_iteration,omitempty"`
-	unknownFields        protoimpl.UnknownFields
-	sizeCache            protoimpl.SizeCache
+	// Why the automatic method chose the method that ran, for a system: for
+	// instance "minres: A is symmetric but not positive definite (a(3,3) =
+	// -1 ≤ 0) ..." or a conjugate gradients breakdown that handed over to
+	// MINRES; empty when the method was asked for.
+	MethodReason string `protobuf:"bytes,45,opt,name=method_reason,json=methodReason,proto3" json:"method_reason,omitempty"`
+	// Normal-equations solves only (SolveRequest.weights): the operator in
+	// words, the spread of the weights max d/min d (+Inf when a weight is
+	// zero) and the regularisation δ.
+	Operator       string   `protobuf:"bytes,46,opt,name=operator,proto3" json:"operator,omitempty"`
+	WeightRatio    *float64 `protobuf:"fixed64,47,opt,name=weight_ratio,json=weightRatio,proto3,oneof" json:"weight_ratio,omitempty"`
+	Regularization *float64 `protobuf:"fixed64,48,opt,name=regularization,proto3,oneof" json:"regularization,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
 }
 
 func (x *SolveResult) Reset() {
@@ -2187,6 +2234,34 @@ func (x *SolveResult) GetNonzeros() int64 {
 func (x *SolveResult) GetResumedFromIteration() int32 {
 	if x != nil && x.ResumedFromIteration != nil {
 		return *x.ResumedFromIteration
+	}
+	return 0
+}
+
+func (x *SolveResult) GetMethodReason() string {
+	if x != nil {
+		return x.MethodReason
+	}
+	return ""
+}
+
+func (x *SolveResult) GetOperator() string {
+	if x != nil {
+		return x.Operator
+	}
+	return ""
+}
+
+func (x *SolveResult) GetWeightRatio() float64 {
+	if x != nil && x.WeightRatio != nil {
+		return *x.WeightRatio
+	}
+	return 0
+}
+
+func (x *SolveResult) GetRegularization() float64 {
+	if x != nil && x.Regularization != nil {
+		return *x.Regularization
 	}
 	return 0
 }
@@ -3122,7 +3197,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"freedBytes\"r\n" +
 	"\x0eProgressPolicy\x12)\n" +
 	"\x10every_iterations\x18\x01 \x01(\x05R\x0feveryIterations\x125\n" +
-	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\xb5\x04\n" +
+	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\xf8\x04\n" +
 	"\fSolveRequest\x12\x1b\n" +
 	"\tmatrix_id\x18\x01 \x01(\tR\bmatrixId\x12'\n" +
 	"\x03rhs\x18\x02 \x03(\v2\x15.residua.v1.VectorRefR\x03rhs\x12%\n" +
@@ -3142,7 +3217,9 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x05label\x18\x0e \x01(\tR\x05label\x12\x12\n" +
 	"\x04btol\x18\x0f \x01(\x01R\x04btol\x12\x12\n" +
 	"\x04damp\x18\x10 \x01(\x01R\x04damp\x12#\n" +
-	"\rleast_squares\x18\x11 \x01(\bR\fleastSquares\"\xf0\x02\n" +
+	"\rleast_squares\x18\x11 \x01(\bR\fleastSquares\x12/\n" +
+	"\aweights\x18- \x01(\v2\x15.residua.v1.VectorRefR\aweights\x12\x10\n" +
+	"\x03reg\x18. \x01(\x01R\x03reg\"\xf0\x02\n" +
 	"\bJobEvent\x12\x10\n" +
 	"\x03seq\x18\x01 \x01(\x04R\x03seq\x12\x15\n" +
 	"\x06job_id\x18\x02 \x01(\tR\x05jobId\x12,\n" +
@@ -3188,7 +3265,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
 	"\x05_rtolB\a\n" +
 	"\x05_btolB\a\n" +
-	"\x05_damp\"\x8e\x0e\n" +
+	"\x05_damp\"\xc8\x0f\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -3240,7 +3317,11 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04rows\x18\" \x01(\x03R\x04rows\x12\x12\n" +
 	"\x04cols\x18# \x01(\x03R\x04cols\x12\x1a\n" +
 	"\bnonzeros\x18$ \x01(\x03R\bnonzeros\x129\n" +
-	"\x16resumed_from_iteration\x18* \x01(\x05H\vR\x14resumedFromIteration\x88\x01\x01B\x10\n" +
+	"\x16resumed_from_iteration\x18* \x01(\x05H\vR\x14resumedFromIteration\x88\x01\x01\x12#\n" +
+	"\rmethod_reason\x18- \x01(\tR\fmethodReason\x12\x1a\n" +
+	"\boperator\x18. \x01(\tR\boperator\x12&\n" +
+	"\fweight_ratio\x18/ \x01(\x01H\fR\vweightRatio\x88\x01\x01\x12+\n" +
+	"\x0eregularization\x180 \x01(\x01H\rR\x0eregularization\x88\x01\x01B\x10\n" +
 	"\x0e_residual_normB\x1a\n" +
 	"\x18_recursive_residual_normB\x1e\n" +
 	"\x1c_recursive_relative_residualB\b\n" +
@@ -3252,7 +3333,9 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\a_x_normB\x12\n" +
 	"\x10_a_norm_estimateB\x19\n" +
 	"\x17_forward_error_estimateB\x19\n" +
-	"\x17_resumed_from_iteration\"\x8f\x01\n" +
+	"\x17_resumed_from_iterationB\x0f\n" +
+	"\r_weight_ratioB\x11\n" +
+	"\x0f_regularization\"\x8f\x01\n" +
 	"\vVectorChunk\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x16\n" +
 	"\x06length\x18\x02 \x01(\x03R\x06length\x12\x16\n" +
@@ -3402,48 +3485,49 @@ var file_residua_v1_residua_proto_depIdxs = []int32{
 	8,  // 6: residua.v1.SolveRequest.x0:type_name -> residua.v1.VectorRef
 	33, // 7: residua.v1.SolveRequest.time_limit:type_name -> google.protobuf.Duration
 	13, // 8: residua.v1.SolveRequest.progress:type_name -> residua.v1.ProgressPolicy
-	16, // 9: residua.v1.JobEvent.queued:type_name -> residua.v1.Queued
-	17, // 10: residua.v1.JobEvent.accepted:type_name -> residua.v1.Accepted
-	18, // 11: residua.v1.JobEvent.progress:type_name -> residua.v1.Progress
-	20, // 12: residua.v1.JobEvent.result:type_name -> residua.v1.SolveResult
-	21, // 13: residua.v1.JobEvent.solution:type_name -> residua.v1.VectorChunk
-	22, // 14: residua.v1.JobEvent.finished:type_name -> residua.v1.Finished
-	19, // 15: residua.v1.SolveResult.settings:type_name -> residua.v1.Settings
-	1,  // 16: residua.v1.Finished.state:type_name -> residua.v1.JobState
-	1,  // 17: residua.v1.Job.state:type_name -> residua.v1.JobState
-	18, // 18: residua.v1.Job.last_progress:type_name -> residua.v1.Progress
-	20, // 19: residua.v1.Job.results:type_name -> residua.v1.SolveResult
-	18, // 20: residua.v1.History.rows:type_name -> residua.v1.Progress
-	23, // 21: residua.v1.ListJobsResponse.jobs:type_name -> residua.v1.Job
-	2,  // 22: residua.v1.Solver.UploadMatrix:input_type -> residua.v1.UploadMatrixRequest
-	5,  // 23: residua.v1.Solver.UploadVector:input_type -> residua.v1.UploadVectorRequest
-	9,  // 24: residua.v1.Solver.ListMatrices:input_type -> residua.v1.ListMatricesRequest
-	26, // 25: residua.v1.Solver.GetMatrix:input_type -> residua.v1.GetMatrixRequest
-	11, // 26: residua.v1.Solver.DeleteMatrix:input_type -> residua.v1.DeleteMatrixRequest
-	14, // 27: residua.v1.Solver.Solve:input_type -> residua.v1.SolveRequest
-	24, // 28: residua.v1.Solver.Watch:input_type -> residua.v1.WatchRequest
-	25, // 29: residua.v1.Solver.GetJob:input_type -> residua.v1.GetJobRequest
-	27, // 30: residua.v1.Solver.GetHistory:input_type -> residua.v1.GetHistoryRequest
-	29, // 31: residua.v1.Solver.ListJobs:input_type -> residua.v1.ListJobsRequest
-	31, // 32: residua.v1.Solver.CancelJob:input_type -> residua.v1.CancelJobRequest
-	32, // 33: residua.v1.Solver.DownloadSolution:input_type -> residua.v1.DownloadSolutionRequest
-	4,  // 34: residua.v1.Solver.UploadMatrix:output_type -> residua.v1.Matrix
-	7,  // 35: residua.v1.Solver.UploadVector:output_type -> residua.v1.VectorInfo
-	10, // 36: residua.v1.Solver.ListMatrices:output_type -> residua.v1.ListMatricesResponse
-	4,  // 37: residua.v1.Solver.GetMatrix:output_type -> residua.v1.Matrix
-	12, // 38: residua.v1.Solver.DeleteMatrix:output_type -> residua.v1.DeleteMatrixResponse
-	15, // 39: residua.v1.Solver.Solve:output_type -> residua.v1.JobEvent
-	15, // 40: residua.v1.Solver.Watch:output_type -> residua.v1.JobEvent
-	23, // 41: residua.v1.Solver.GetJob:output_type -> residua.v1.Job
-	28, // 42: residua.v1.Solver.GetHistory:output_type -> residua.v1.History
-	30, // 43: residua.v1.Solver.ListJobs:output_type -> residua.v1.ListJobsResponse
-	23, // 44: residua.v1.Solver.CancelJob:output_type -> residua.v1.Job
-	21, // 45: residua.v1.Solver.DownloadSolution:output_type -> residua.v1.VectorChunk
-	34, // [34:46] is the sub-list for method output_type
-	22, // [22:34] is the sub-list for method input_type
-	22, // [22:22] is the sub-list for extension type_name
-	22, // [22:22] is the sub-list for extension extendee
-	0,  // [0:22] is the sub-list for field type_name
+	8,  // 9: residua.v1.SolveRequest.weights:type_name -> residua.v1.VectorRef
+	16, // 10: residua.v1.JobEvent.queued:type_name -> residua.v1.Queued
+	17, // 11: residua.v1.JobEvent.accepted:type_name -> residua.v1.Accepted
+	18, // 12: residua.v1.JobEvent.progress:type_name -> residua.v1.Progress
+	20, // 13: residua.v1.JobEvent.result:type_name -> residua.v1.SolveResult
+	21, // 14: residua.v1.JobEvent.solution:type_name -> residua.v1.VectorChunk
+	22, // 15: residua.v1.JobEvent.finished:type_name -> residua.v1.Finished
+	19, // 16: residua.v1.SolveResult.settings:type_name -> residua.v1.Settings
+	1,  // 17: residua.v1.Finished.state:type_name -> residua.v1.JobState
+	1,  // 18: residua.v1.Job.state:type_name -> residua.v1.JobState
+	18, // 19: residua.v1.Job.last_progress:type_name -> residua.v1.Progress
+	20, // 20: residua.v1.Job.results:type_name -> residua.v1.SolveResult
+	18, // 21: residua.v1.History.rows:type_name -> residua.v1.Progress
+	23, // 22: residua.v1.ListJobsResponse.jobs:type_name -> residua.v1.Job
+	2,  // 23: residua.v1.Solver.UploadMatrix:input_type -> residua.v1.UploadMatrixRequest
+	5,  // 24: residua.v1.Solver.UploadVector:input_type -> residua.v1.UploadVectorRequest
+	9,  // 25: residua.v1.Solver.ListMatrices:input_type -> residua.v1.ListMatricesRequest
+	26, // 26: residua.v1.Solver.GetMatrix:input_type -> residua.v1.GetMatrixRequest
+	11, // 27: residua.v1.Solver.DeleteMatrix:input_type -> residua.v1.DeleteMatrixRequest
+	14, // 28: residua.v1.Solver.Solve:input_type -> residua.v1.SolveRequest
+	24, // 29: residua.v1.Solver.Watch:input_type -> residua.v1.WatchRequest
+	25, // 30: residua.v1.Solver.GetJob:input_type -> residua.v1.GetJobRequest
+	27, // 31: residua.v1.Solver.GetHistory:input_type -> residua.v1.GetHistoryRequest
+	29, // 32: residua.v1.Solver.ListJobs:input_type -> residua.v1.ListJobsRequest
+	31, // 33: residua.v1.Solver.CancelJob:input_type -> residua.v1.CancelJobRequest
+	32, // 34: residua.v1.Solver.DownloadSolution:input_type -> residua.v1.DownloadSolutionRequest
+	4,  // 35: residua.v1.Solver.UploadMatrix:output_type -> residua.v1.Matrix
+	7,  // 36: residua.v1.Solver.UploadVector:output_type -> residua.v1.VectorInfo
+	10, // 37: residua.v1.Solver.ListMatrices:output_type -> residua.v1.ListMatricesResponse
+	4,  // 38: residua.v1.Solver.GetMatrix:output_type -> residua.v1.Matrix
+	12, // 39: residua.v1.Solver.DeleteMatrix:output_type -> residua.v1.DeleteMatrixResponse
+	15, // 40: residua.v1.Solver.Solve:output_type -> residua.v1.JobEvent
+	15, // 41: residua.v1.Solver.Watch:output_type -> residua.v1.JobEvent
+	23, // 42: residua.v1.Solver.GetJob:output_type -> residua.v1.Job
+	28, // 43: residua.v1.Solver.GetHistory:output_type -> residua.v1.History
+	30, // 44: residua.v1.Solver.ListJobs:output_type -> residua.v1.ListJobsResponse
+	23, // 45: residua.v1.Solver.CancelJob:output_type -> residua.v1.Job
+	21, // 46: residua.v1.Solver.DownloadSolution:output_type -> residua.v1.VectorChunk
+	35, // [35:47] is the sub-list for method output_type
+	23, // [23:35] is the sub-list for method input_type
+	23, // [23:23] is the sub-list for extension type_name
+	23, // [23:23] is the sub-list for extension extendee
+	0,  // [0:23] is the sub-list for field type_name
 }
 
 func init() { file_residua_v1_residua_proto_init() }

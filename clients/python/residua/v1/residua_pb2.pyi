@@ -289,7 +289,7 @@ class Settings(_message.Message):
     def __init__(self, rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit_seconds: _Optional[float] = ..., refresh_every: _Optional[int] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ...) -> None: ...
 
 class SolveRequest(_message.Message):
-    __slots__ = ["atol", "btol", "damp", "detach", "keep_solution", "label", "least_squares", "matrix_id", "max_iter", "method", "preconditioner", "progress", "refresh_every", "rhs", "rtol", "time_limit", "x0"]
+    __slots__ = ["atol", "btol", "damp", "detach", "keep_solution", "label", "least_squares", "matrix_id", "max_iter", "method", "preconditioner", "progress", "refresh_every", "reg", "rhs", "rtol", "time_limit", "weights", "x0"]
     ATOL_FIELD_NUMBER: _ClassVar[int]
     BTOL_FIELD_NUMBER: _ClassVar[int]
     DAMP_FIELD_NUMBER: _ClassVar[int]
@@ -303,9 +303,11 @@ class SolveRequest(_message.Message):
     PRECONDITIONER_FIELD_NUMBER: _ClassVar[int]
     PROGRESS_FIELD_NUMBER: _ClassVar[int]
     REFRESH_EVERY_FIELD_NUMBER: _ClassVar[int]
+    REG_FIELD_NUMBER: _ClassVar[int]
     RHS_FIELD_NUMBER: _ClassVar[int]
     RTOL_FIELD_NUMBER: _ClassVar[int]
     TIME_LIMIT_FIELD_NUMBER: _ClassVar[int]
+    WEIGHTS_FIELD_NUMBER: _ClassVar[int]
     X0_FIELD_NUMBER: _ClassVar[int]
     atol: float
     btol: float
@@ -320,14 +322,16 @@ class SolveRequest(_message.Message):
     preconditioner: str
     progress: ProgressPolicy
     refresh_every: int
+    reg: float
     rhs: _containers.RepeatedCompositeFieldContainer[VectorRef]
     rtol: float
     time_limit: _duration_pb2.Duration
+    weights: VectorRef
     x0: _containers.RepeatedCompositeFieldContainer[VectorRef]
-    def __init__(self, matrix_id: _Optional[str] = ..., rhs: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., x0: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit: _Optional[_Union[_duration_pb2.Duration, _Mapping]] = ..., refresh_every: _Optional[int] = ..., progress: _Optional[_Union[ProgressPolicy, _Mapping]] = ..., detach: bool = ..., keep_solution: bool = ..., label: _Optional[str] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ..., least_squares: bool = ...) -> None: ...
+    def __init__(self, matrix_id: _Optional[str] = ..., rhs: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., x0: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit: _Optional[_Union[_duration_pb2.Duration, _Mapping]] = ..., refresh_every: _Optional[int] = ..., progress: _Optional[_Union[ProgressPolicy, _Mapping]] = ..., detach: bool = ..., keep_solution: bool = ..., label: _Optional[str] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ..., least_squares: bool = ..., weights: _Optional[_Union[VectorRef, _Mapping]] = ..., reg: _Optional[float] = ...) -> None: ...
 
 class SolveResult(_message.Message):
-    __slots__ = ["a_norm_estimate", "advice", "cols", "cond", "converged", "error", "forward_error_estimate", "forward_error_note", "from_cache", "headline", "iterations", "lambda_max", "lambda_min", "matrix", "matrix_id", "method", "nonzeros", "normal_residual_norm", "per_iteration_seconds", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "recursive_relative_residual", "recursive_residual_norm", "relative_residual", "residual_norm", "resumed_from_iteration", "rhs", "rhs_norm", "rows", "settings", "setup_seconds", "shift", "shift_tries", "solve_seconds", "status", "stopped_by", "true_residual_norm", "warning", "warning_text", "x_norm", "zero_columns"]
+    __slots__ = ["a_norm_estimate", "advice", "cols", "cond", "converged", "error", "forward_error_estimate", "forward_error_note", "from_cache", "headline", "iterations", "lambda_max", "lambda_min", "matrix", "matrix_id", "method", "method_reason", "nonzeros", "normal_residual_norm", "operator", "per_iteration_seconds", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "recursive_relative_residual", "recursive_residual_norm", "regularization", "relative_residual", "residual_norm", "resumed_from_iteration", "rhs", "rhs_norm", "rows", "settings", "setup_seconds", "shift", "shift_tries", "solve_seconds", "status", "stopped_by", "true_residual_norm", "warning", "warning_text", "weight_ratio", "x_norm", "zero_columns"]
     ADVICE_FIELD_NUMBER: _ClassVar[int]
     A_NORM_ESTIMATE_FIELD_NUMBER: _ClassVar[int]
     COLS_FIELD_NUMBER: _ClassVar[int]
@@ -344,14 +348,17 @@ class SolveResult(_message.Message):
     MATRIX_FIELD_NUMBER: _ClassVar[int]
     MATRIX_ID_FIELD_NUMBER: _ClassVar[int]
     METHOD_FIELD_NUMBER: _ClassVar[int]
+    METHOD_REASON_FIELD_NUMBER: _ClassVar[int]
     NONZEROS_FIELD_NUMBER: _ClassVar[int]
     NORMAL_RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
+    OPERATOR_FIELD_NUMBER: _ClassVar[int]
     PER_ITERATION_SECONDS_FIELD_NUMBER: _ClassVar[int]
     PRECONDITIONER_BYTES_FIELD_NUMBER: _ClassVar[int]
     PRECONDITIONER_FIELD_NUMBER: _ClassVar[int]
     PRECONDITIONER_REASON_FIELD_NUMBER: _ClassVar[int]
     RECURSIVE_RELATIVE_RESIDUAL_FIELD_NUMBER: _ClassVar[int]
     RECURSIVE_RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
+    REGULARIZATION_FIELD_NUMBER: _ClassVar[int]
     RELATIVE_RESIDUAL_FIELD_NUMBER: _ClassVar[int]
     RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
     RESUMED_FROM_ITERATION_FIELD_NUMBER: _ClassVar[int]
@@ -368,6 +375,7 @@ class SolveResult(_message.Message):
     TRUE_RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
     WARNING_FIELD_NUMBER: _ClassVar[int]
     WARNING_TEXT_FIELD_NUMBER: _ClassVar[int]
+    WEIGHT_RATIO_FIELD_NUMBER: _ClassVar[int]
     X_NORM_FIELD_NUMBER: _ClassVar[int]
     ZERO_COLUMNS_FIELD_NUMBER: _ClassVar[int]
     a_norm_estimate: float
@@ -386,14 +394,17 @@ class SolveResult(_message.Message):
     matrix: str
     matrix_id: str
     method: str
+    method_reason: str
     nonzeros: int
     normal_residual_norm: float
+    operator: str
     per_iteration_seconds: float
     preconditioner: str
     preconditioner_bytes: int
     preconditioner_reason: str
     recursive_relative_residual: float
     recursive_residual_norm: float
+    regularization: float
     relative_residual: float
     residual_norm: float
     resumed_from_iteration: int
@@ -410,9 +421,10 @@ class SolveResult(_message.Message):
     true_residual_norm: float
     warning: str
     warning_text: str
+    weight_ratio: float
     x_norm: float
     zero_columns: _containers.RepeatedScalarFieldContainer[int]
-    def __init__(self, rhs: _Optional[int] = ..., converged: bool = ..., status: _Optional[str] = ..., headline: _Optional[str] = ..., method: _Optional[str] = ..., iterations: _Optional[int] = ..., relative_residual: _Optional[float] = ..., residual_norm: _Optional[float] = ..., true_residual_norm: _Optional[float] = ..., rhs_norm: _Optional[float] = ..., recursive_residual_norm: _Optional[float] = ..., recursive_relative_residual: _Optional[float] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., shift_tries: _Optional[int] = ..., preconditioner_bytes: _Optional[int] = ..., setup_seconds: _Optional[float] = ..., solve_seconds: _Optional[float] = ..., per_iteration_seconds: _Optional[float] = ..., lambda_min: _Optional[float] = ..., lambda_max: _Optional[float] = ..., cond: _Optional[float] = ..., settings: _Optional[_Union[Settings, _Mapping]] = ..., from_cache: bool = ..., error: _Optional[str] = ..., normal_residual_norm: _Optional[float] = ..., x_norm: _Optional[float] = ..., a_norm_estimate: _Optional[float] = ..., stopped_by: _Optional[str] = ..., zero_columns: _Optional[_Iterable[int]] = ..., forward_error_estimate: _Optional[float] = ..., forward_error_note: _Optional[str] = ..., warning: _Optional[str] = ..., warning_text: _Optional[str] = ..., advice: _Optional[str] = ..., matrix: _Optional[str] = ..., matrix_id: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ..., resumed_from_iteration: _Optional[int] = ...) -> None: ...
+    def __init__(self, rhs: _Optional[int] = ..., converged: bool = ..., status: _Optional[str] = ..., headline: _Optional[str] = ..., method: _Optional[str] = ..., iterations: _Optional[int] = ..., relative_residual: _Optional[float] = ..., residual_norm: _Optional[float] = ..., true_residual_norm: _Optional[float] = ..., rhs_norm: _Optional[float] = ..., recursive_residual_norm: _Optional[float] = ..., recursive_relative_residual: _Optional[float] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., shift_tries: _Optional[int] = ..., preconditioner_bytes: _Optional[int] = ..., setup_seconds: _Optional[float] = ..., solve_seconds: _Optional[float] = ..., per_iteration_seconds: _Optional[float] = ..., lambda_min: _Optional[float] = ..., lambda_max: _Optional[float] = ..., cond: _Optional[float] = ..., settings: _Optional[_Union[Settings, _Mapping]] = ..., from_cache: bool = ..., error: _Optional[str] = ..., normal_residual_norm: _Optional[float] = ..., x_norm: _Optional[float] = ..., a_norm_estimate: _Optional[float] = ..., stopped_by: _Optional[str] = ..., zero_columns: _Optional[_Iterable[int]] = ..., forward_error_estimate: _Optional[float] = ..., forward_error_note: _Optional[str] = ..., warning: _Optional[str] = ..., warning_text: _Optional[str] = ..., advice: _Optional[str] = ..., matrix: _Optional[str] = ..., matrix_id: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ..., resumed_from_iteration: _Optional[int] = ..., method_reason: _Optional[str] = ..., operator: _Optional[str] = ..., weight_ratio: _Optional[float] = ..., regularization: _Optional[float] = ...) -> None: ...
 
 class UploadMatrixRequest(_message.Message):
     __slots__ = ["chunk", "metadata"]
