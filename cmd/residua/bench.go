@@ -3,7 +3,10 @@ package main
 import (
 	"context"
 	"fmt"
+	"os"
 	"runtime"
+	"strconv"
+	"strings"
 	"time"
 
 	"github.com/residua/residua/solve"
@@ -105,5 +108,61 @@ func runBench(ctx context.Context, e *env, args []string) error {
 	fmt.Fprintf(e.stdout, "  SpMV   %s per product, %s moved: %6.2f GB/s\n", fmtSec(r.SpMVSeconds), formatBytes(r.SpMVBytes), float64(r.SpMVGBs))
 	fmt.Fprintf(e.stdout, "  triad  %s per pass,    %s moved: %6.2f GB/s\n", fmtSec(r.TriadSeconds), formatBytes(r.TriadBytes), float64(r.TriadGBs))
 	fmt.Fprintf(e.stdout, "  SpMV / triad = %.2f\n", float64(r.SpMVOverTriad))
+	cache, known := lastLevelCache()
+	if r.SpMVBytes <= cache {
+		how := "the last-level cache"
+		if !known {
+			how = "a last-level cache of the assumed size"
+		}
+		fmt.Fprintf(e.stdout, "warning: the product moves %s, which fits in %s (%s): these figures are the cache's speed, not memory's; use a larger --size to predict large solves\n",
+			formatBytes(r.SpMVBytes), how, formatBytes(cache))
+	}
+	fmt.Fprintln(e.stdout, benchVerdict(float64(r.SpMVOverTriad)))
 	return nil
+}
+
+// benchVerdict says in a sentence what the ratio of SpMV's bandwidth to
+// the triad's means for residua's solves, which are memory-bound: a CG
+// iteration is one SpMV and a few vector passes (Saad, Iterative Methods
+// for Sparse Linear Systems, 2nd ed., §6.7). The thresholds are common
+// practice for judging a kernel against STREAM, not derived values.
+func benchVerdict(ratio float64) string {
+	switch {
+	case ratio >= 0.8:
+		return fmt.Sprintf("verdict: SpMV gets %.0f%% of the triad's bandwidth, so large solves here run near the memory roofline.", 100*ratio)
+	case ratio >= 0.5:
+		return fmt.Sprintf("verdict: SpMV gets %.0f%% of the triad's bandwidth; large solves will run below the memory roofline (other load on the machine, or too few workers: GOMAXPROCS).", 100*ratio)
+	}
+	return fmt.Sprintf("verdict: SpMV gets only %.0f%% of the triad's bandwidth: solves will be slow here; check for other load, GOMAXPROCS and how memory is placed across sockets.", 100*ratio)
+}
+
+// assumedCache is the last-level cache assumed when the system does not
+// say (the 2-core machines this project runs on report 260–300 MiB).
+const assumedCache = 256 << 20
+
+// lastLevelCache returns the size of the largest CPU cache the system
+// reports (Linux sysfs), or assumedCache and false when it reports none.
+func lastLevelCache() (int64, bool) {
+	var best int64
+	for i := 0; i < 8; i++ {
+		b, err := os.ReadFile(fmt.Sprintf("/sys/devices/system/cpu/cpu0/cache/index%d/size", i))
+		if err != nil {
+			continue
+		}
+		t := strings.TrimSpace(string(b))
+		mult := int64(1)
+		switch {
+		case strings.HasSuffix(t, "K"):
+			mult, t = 1<<10, strings.TrimSuffix(t, "K")
+		case strings.HasSuffix(t, "M"):
+			mult, t = 1<<20, strings.TrimSuffix(t, "M")
+		}
+		if v, err := strconv.ParseInt(t, 10, 64); err == nil && v*mult > best {
+			best = v * mult
+		}
+	}
+	if best == 0 {
+		return assumedCache, false
+	}
+	return best, true
 }

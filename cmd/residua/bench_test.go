@@ -2,6 +2,7 @@ package main
 
 import (
 	"encoding/json"
+	"strings"
 	"testing"
 )
 
@@ -24,5 +25,23 @@ func TestBench(t *testing.T) {
 	}
 	if !(r.SpMVGBs > 0 && r.TriadGBs > 0 && r.SpMVOverTriad > 0) {
 		t.Errorf("non-positive figures: %+v", r)
+	}
+}
+
+// The text ends with a verdict sentence, and a problem that fits in the
+// last-level cache is said to show the cache's speed (10³ rows are far
+// smaller than any last-level cache).
+func TestBenchVerdict(t *testing.T) {
+	stdout, _, code := runCLI(t, "bench", "--size", "10", "--repeat", "2")
+	if code != 0 || !strings.Contains(stdout, "\nverdict: SpMV gets") || !strings.Contains(stdout, "fits in") {
+		t.Errorf("exit %d:\n%s", code, stdout)
+	}
+	for _, c := range []struct {
+		ratio float64
+		want  string
+	}{{0.95, "near the memory roofline"}, {0.6, "below the memory roofline"}, {0.2, "slow here"}} {
+		if got := benchVerdict(c.ratio); !strings.Contains(got, c.want) {
+			t.Errorf("ratio %g: %q", c.ratio, got)
+		}
 	}
 }
