@@ -39,6 +39,34 @@ const (
 	cgDriftGap          = 0.01
 )
 
+// Round-off stagnation rule for CG. The drift rule above does not fire when
+// the recursive and the true residual stall together at the rounding level
+// (a 5×5 system asked for a relative residual of 1e-300 then iterated
+// forever at 1e-16). So, at every true-residual recomputation that fails the
+// stopping test and either follows a recursive residual that met it or did
+// not lower the smallest true residual by the factor cgStagnationGain (and
+// at every one during an episode, below), CG compares the true residual
+// norm with the level at which it is rounding noise, the bound on the
+// rounding error of computing b − A·x, about u·‖(w_i+1)·(|A|·|x| + |b|)_i‖
+// with w_i the row's entries and u the unit roundoff (Higham, Accuracy and
+// Stability of Numerical Algorithms, 2nd ed., §3.1 and §12.1; by the
+// Oettli–Prager theorem, §7.2, such an x is backward stable to a few units
+// of roundoff; Greenbaum, Iterative Methods for Solving Linear Systems,
+// 1997, §7.3, shows the residual of finite-precision CG settles at this
+// order times ‖A‖·‖x‖). At or below the level an episode starts; a
+// recomputation every cgFloorWindow iterations follows, whatever
+// RefreshEvery says. A recomputation that lowers the norm by cgFloorGain
+// below the norm at the episode's start restarts the episode; one above the
+// level ends it; when cgFloorWindow iterations pass without either, the
+// solve stops with status Stagnated (Result.Stagnation is
+// StagnationRoundoff). The window and the factor are our own choice: CG
+// halves its residual in far fewer iterations wherever it still converges,
+// and the window costs at most one product per cgFloorWindow iterations.
+const (
+	cgFloorWindow = 20
+	cgFloorGain   = 0.5
+)
+
 // cgReplaceFraction decides residual replacement. Replacing the recursive
 // residual r by the true one t = b − A·x restores the accuracy that rounding
 // took from r, but it perturbs the coupled recurrences of CG and, done at
@@ -184,6 +212,8 @@ type cgState struct {
 	rnorm     float64 // the last residual norm the loop tracked
 	trueNorm  float64 // the last true residual norm computed
 	trueFresh bool    // whether trueNorm belongs to the current x
+	// stagnation names the stagnation rule that fired, "" if none.
+	stagnation string
 }
 
 // record sends one progress row to the recorder, if any.
@@ -221,6 +251,7 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 		st.trueNorm = math.Sqrt(op.residual(w.r, b, x))
 	}
 	res.Status = status
+	res.Stagnation = st.stagnation
 	res.Iterations = st.iter
 	res.Products = st.products
 	res.ResidualNorm = st.rnorm
@@ -317,6 +348,11 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 
 	best := rnorm // smallest true residual norm so far
 	strikes := 0
+	// The round-off episode (see cgFloorWindow): its start iteration (−1:
+	// none), the true residual norm there, and the iteration of the next
+	// forced recomputation (−1: none).
+	floorStart, floorNext := -1, -1
+	floorRef := 0.0
 	for {
 		if st.iter >= s.MaxIter {
 			return IterationLimit, nil
@@ -357,7 +393,7 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		}
 
 		met := rnorm <= tol
-		if met || (s.RefreshEvery > 0 && k%s.RefreshEvery == 0) {
+		if met || (s.RefreshEvery > 0 && k%s.RefreshEvery == 0) || k == floorNext {
 			// Compute the true residual t = b − A·x (into q, free until the
 			// next product): before declaring convergence, and periodically
 			// to watch the drift between t and the recursive r.
@@ -384,13 +420,28 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 				rr = sparse.AxpyDot(r, 1, q)
 				rnorm = math.Sqrt(rr)
 			}
+			progress := tnorm < cgStagnationGain*best
 			switch {
-			case tnorm < cgStagnationGain*best:
+			case progress:
 				strikes = 0
 			case recursive < (1-cgDriftGap)*tnorm:
 				strikes++
 			}
 			best = min(best, tnorm)
+			if met || !progress || floorStart >= 0 {
+				// One more pass over A, on this rare path only.
+				level := op.roundoffLevel(x, b, st.bnorm, tnorm)
+				switch {
+				case tnorm > level:
+					floorStart, floorNext = -1, -1
+				case floorStart < 0 || tnorm <= cgFloorGain*floorRef:
+					floorStart, floorRef, floorNext = k, tnorm, k+cgFloorWindow
+				case k-floorStart >= cgFloorWindow:
+					st.stagnation = StagnationRoundoff
+				default:
+					floorNext = floorStart + cgFloorWindow
+				}
+			}
 		}
 		st.rnorm = rnorm
 		if err := st.record(k, rnorm); err != nil {
@@ -399,7 +450,10 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 			}
 			return Cancelled, err
 		}
-		if strikes >= cgStagnationStrikes {
+		if strikes >= cgStagnationStrikes && st.stagnation == "" {
+			st.stagnation = StagnationDrift
+		}
+		if st.stagnation != "" {
 			if !xDone {
 				sparse.Axpy(x, alpha, p)
 			}

@@ -480,6 +480,66 @@ func TestCGStagnation(t *testing.T) {
 	}
 }
 
+// TestCGStagnationAtRoundoff: a tolerance of 1e-300 on a 5×5 SPD system
+// with an unbounded iteration cap (issue 15, finding 1: this ran 44.6 M
+// iterations in 30 s at relative residual 1e-16). The true residual reaches
+// the rounding level of b − A·x, u·‖(w_i+1)·(|A|·|x| + |b|)_i‖ ≈ 4·10⁻¹⁵
+// here (Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed.,
+// §3.1), within a few iterations of the fifth (exact arithmetic ends in n = 5:
+// Saad, 2nd ed., §6.11.3), and stays there; the round-off rule must stop the
+// solve one window later, with or without periodic refreshes, whether or
+// not the operator can bound its own residual.
+func TestCGStagnationAtRoundoff(t *testing.T) {
+	var ii, jj []int32
+	var vv []float64
+	for i := 0; i < 5; i++ {
+		for j := max(0, i-1); j <= min(4, i+1); j++ {
+			ii, jj = append(ii, int32(i)), append(jj, int32(j))
+			v := -1.0
+			if i == j {
+				v = 4
+			}
+			vv = append(vv, v)
+		}
+	}
+	five, _, err := sparse.FromTriplets(5, 5, ii, jj, vv, sparse.BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := []float64{1, 2, 3, 4, 5}
+	for _, c := range []struct {
+		name    string
+		op      krylov.Operator
+		refresh int
+	}{
+		{"csr", five, 0},
+		{"csr-no-refresh", five, -1},
+		{"generic", cgOp{five}, 0},
+		{"generic-no-refresh", cgOp{five}, -1},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			x := make([]float64, 5)
+			res, err := krylov.CG(context.Background(), c.op, b, x, nil,
+				krylov.Settings{RelTol: 1e-300, MaxIter: 1 << 62, RefreshEvery: c.refresh, TimeLimit: 10 * time.Second})
+			if err != nil || res.Status != krylov.Stagnated || res.Stagnation != krylov.StagnationRoundoff {
+				t.Fatalf("status %v (%q), err %v after %d iterations, relative residual %g",
+					res.Status, res.Stagnation, err, res.Iterations, res.RelResidual)
+			}
+			// 5 iterations to the exact-arithmetic end, then at most two
+			// refresh periods to notice and one window to confirm.
+			if res.Iterations > 150 {
+				t.Errorf("took %d iterations to notice", res.Iterations)
+			}
+			// A few units of roundoff relative to ‖b‖: κ(A) < 3 here, its
+			// eigenvalues being 4 − 2·cos(kπ/6), k = 1..5, those of a
+			// tridiagonal Toeplitz matrix (a standard result, from memory).
+			if res.RelResidual > 1e-14 {
+				t.Errorf("stagnated at relative residual %g", res.RelResidual)
+			}
+		})
+	}
+}
+
 // TestCGBreakdowns checks the named errors and their messages.
 func TestCGBreakdowns(t *testing.T) {
 	nan := math.NaN()

@@ -34,7 +34,14 @@
 // falls (CG's rule is documented beside cgStagnationStrikes in cg.go: three
 // true-residual recomputations that fail to halve the best true residual so
 // far while the recursive residual runs more than 1% below the true one),
-// the solve ends with status Stagnated, never with a false Converged. When
+// the solve ends with status Stagnated, never with a false Converged. A
+// second rule catches the two residuals stalling together at round-off:
+// once the true residual is at the rounding level of b − A·x (a bound on the
+// error of computing it, about u·‖(w_i+1)·(|A|·|x| + |b|)_i‖: Higham,
+// Accuracy and Stability of Numerical Algorithms, §3.1 and §12.1) and does
+// not halve within 20 iterations, the solve ends Stagnated too (the rule is
+// beside cgFloorWindow in cg.go). Result.Stagnation names the rule that
+// fired: StagnationDrift or StagnationRoundoff. When
 // b = 0 the solution x = 0 is returned at once.
 //
 // An iteration is one product with A inside the loop; the initial

@@ -220,4 +220,18 @@ type Result struct {
 	Settings Settings
 	// LSQ holds what only a least-squares solve reports; nil for CG.
 	LSQ *LSQResult
+	// Stagnation names the rule that ended a CG solve with status
+	// Stagnated (StagnationDrift or StagnationRoundoff); "" otherwise.
+	Stagnation string
 }
+
+// CG's stagnation rules, as reported in Result.Stagnation (see the package
+// documentation and the constants beside them in cg.go).
+const (
+	// StagnationDrift: the recursive residual kept falling while the true
+	// one b − A·x stopped following it.
+	StagnationDrift = "drift"
+	// StagnationRoundoff: the true residual sat at the rounding level of
+	// b − A·x without falling further.
+	StagnationRoundoff = "roundoff"
+)

@@ -7,6 +7,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/residua/residua/krylov"
 )
 
 // Num is a float64 whose JSON form is a number, or for NaN and ±Inf (which
@@ -114,6 +116,10 @@ type Summary struct {
 	NormalResidualNorm *Num   `json:"normal_residual_norm,omitempty"`
 	XNorm              *Num   `json:"x_norm,omitempty"`
 	NormEstimate       *Num   `json:"norm_estimate,omitempty"`
+	// Conjugate gradients use StoppedBy too, for the rule that ended a
+	// stagnated solve: "roundoff" (the true residual sat at the rounding
+	// level of b − A·x) or "drift" (the recursive residual ran ahead of
+	// the true one).
 	StoppedBy          string `json:"stopped_by,omitempty"`
 	ZeroColumns        []int  `json:"zero_columns,omitempty"`
 
@@ -210,7 +216,14 @@ func Headline(s *Summary) string {
 		return fmt.Sprintf("stopped without converging at the time limit of %s, after %s of %s: %s%s",
 			fmtDuration(float64(s.TimeLimitSeconds)), its, method, res, tolerance)
 	case Stagnated:
-		return fmt.Sprintf("stagnated after %s of %s: %s, and rounding keeps it from falling further%s", its, method, res, tolerance)
+		why := "and rounding keeps it from falling further"
+		switch s.StoppedBy {
+		case krylov.StagnationRoundoff:
+			why = "at the rounding level of b − A·x, below which float64 arithmetic cannot push it"
+		case krylov.StagnationDrift:
+			why = "and the true residual no longer follows the recursive one down"
+		}
+		return fmt.Sprintf("stagnated after %s of %s: %s, %s%s", its, method, res, why, tolerance)
 	case Cancelled:
 		return fmt.Sprintf("cancelled after %s of %s: %s", its, method, res)
 	case Breakdown:

@@ -63,6 +63,7 @@ const (
 	opAxpyDot
 	opTriad
 	opStep
+	opResidualBound
 )
 
 // job is one kernel call's operation and operands. Block sums go to
@@ -316,6 +317,9 @@ func rowPartition(bounds, rowPtr []int, rows, blk int) {
 // rowBlock computes rows lo..hi of a matrix kernel and returns the block's
 // sum (zero for MulVec).
 func (j job) rowBlock(lo, hi int) float64 {
+	if j.op == opResidualBound {
+		return residualBoundRows(j.a, j.x, j.y, lo, hi)
+	}
 	mulRows(j.a, j.d, j.x, lo, hi)
 	switch j.op {
 	case opMulVecDot:
