@@ -111,17 +111,16 @@ type Summary struct {
 	// from x, ‖x‖, and the estimate of ‖A‖ (of the scaled operator) made
 	// along the way; the rule met ("residual": a consistent system;
 	// "normal-residual": a least-squares solution); A's zero columns
-	// (0-based).
-	ResidualNorm       *Num `json:"residual_norm,omitempty"`
-	NormalResidualNorm *Num `json:"normal_residual_norm,omitempty"`
-	XNorm              *Num `json:"x_norm,omitempty"`
-	NormEstimate       *Num `json:"norm_estimate,omitempty"`
-	// Conjugate gradients use StoppedBy too, for the rule that ended a
-	// stagnated solve: "roundoff" (the true residual sat at the rounding
-	// level of b − A·x) or "drift" (the recursive residual ran ahead of
-	// the true one).
-	StoppedBy   string `json:"stopped_by,omitempty"`
-	ZeroColumns []int  `json:"zero_columns,omitempty"`
+	// (0-based). Conjugate gradients use StoppedBy too, for the rule that
+	// ended a stagnated solve: "roundoff" (the true residual sat at the
+	// rounding level of b − A·x) or "drift" (the recursive residual ran
+	// ahead of the true one).
+	ResidualNorm       *Num   `json:"residual_norm,omitempty"`
+	NormalResidualNorm *Num   `json:"normal_residual_norm,omitempty"`
+	XNorm              *Num   `json:"x_norm,omitempty"`
+	NormEstimate       *Num   `json:"norm_estimate,omitempty"`
+	StoppedBy          string `json:"stopped_by,omitempty"`
+	ZeroColumns        []int  `json:"zero_columns,omitempty"`
 
 	// The preconditioner (least squares: the column scaling) and why.
 	Preconditioner       string `json:"preconditioner"`
