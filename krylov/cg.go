@@ -337,6 +337,13 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		return Converged, nil
 	}
 
+	// A diagonal preconditioner is applied inside the residual update (see
+	// DiagonalPreconditioner); diag is nil otherwise.
+	var diag []float64
+	if dm, ok := m.(DiagonalPreconditioner); ok && len(dm.InverseDiagonal()) == n {
+		diag = dm.InverseDiagonal()
+	}
+
 	rho := rr
 	if m != nil {
 		rho = cgPrecondition(m, z, r)
@@ -383,7 +390,15 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		}
 		w.lan.addAlpha(alpha)
 
-		rr = sparse.AxpyDot(r, -alpha, q)
+		// rz is rᵀz from the fused Jacobi sweep, valid while fused holds
+		// (until r is replaced).
+		var rz float64
+		fused := diag != nil
+		if fused {
+			rr, rz = sparse.AxpyDiagDot(r, -alpha, q, diag, z)
+		} else {
+			rr = sparse.AxpyDot(r, -alpha, q)
+		}
 		rnorm = math.Sqrt(rr)
 		st.trueFresh = false
 		xDone := false // whether x already holds x_{j+1}
@@ -419,6 +434,7 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 			if drift > cgReplaceFraction*tol {
 				rr = sparse.AxpyDot(r, 1, q)
 				rnorm = math.Sqrt(rr)
+				fused = false // z no longer belongs to r
 			}
 			progress := tnorm < cgStagnationGain*best
 			switch {
@@ -461,7 +477,10 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		}
 
 		rhoNew := rr
-		if m != nil {
+		switch {
+		case fused:
+			rhoNew = rz
+		case m != nil:
 			rhoNew = cgPrecondition(m, z, r)
 		}
 		if err := cgCheckRho(k, rhoNew, z, m != nil); err != nil {

@@ -14,6 +14,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
 )
@@ -713,7 +714,11 @@ func TestCGAllocations(t *testing.T) {
 			}
 		})
 	}
-	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25), cgScaleDot(0.25)} {
+	jac, err := precond.NewJacobi(a)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25), cgScaleDot(0.25), jac} {
 		if a10, a100 := allocs(10, m), allocs(100, m); a10 != a100 {
 			t.Errorf("preconditioner %v: %v allocations for 10 iterations, %v for 100", m, a10, a100)
 		}
@@ -811,5 +816,74 @@ func TestCGMemory(t *testing.T) {
 	limit := uint64(4*pages(8*n) + 2*pages(8*min(10*n, 1<<16)) + 4096)
 	if got > limit {
 		t.Errorf("a %d-iteration solve allocated %d bytes, more than 4 vectors and the Lanczos history (%d)", res.Iterations, got, limit)
+	}
+}
+
+// cgPlainJacobi hides every fused form of a Jacobi preconditioner: CG then
+// applies it with Precondition and takes rᵀz with sparse.Dot, the unfused
+// path.
+type cgPlainJacobi struct{ m *precond.Jacobi }
+
+func (j cgPlainJacobi) Precondition(dst, r []float64) { j.m.Precondition(dst, r) }
+
+// cgDotJacobi keeps only PreconditionDot: the apply fused with rᵀz but not
+// with the residual update.
+type cgDotJacobi struct{ m *precond.Jacobi }
+
+func (j cgDotJacobi) Precondition(dst, r []float64) { j.m.Precondition(dst, r) }
+func (j cgDotJacobi) PreconditionDot(dst, r []float64) float64 {
+	return j.m.PreconditionDot(dst, r)
+}
+
+// TestCGFusedJacobi: CG with precond.Jacobi fuses the diagonal apply into
+// the residual update (DiagonalPreconditioner, sparse.AxpyDiagDot). The
+// fused sweep does the unfused sequence's arithmetic (sparse tests it bit for
+// bit against AxpyDot, the product and Dot), so the three paths must give the
+// same iterates, residual history and result bit for bit — stronger than
+// "to rounding". jump3d 40³ with contrast 10⁴ makes the diagonal matter
+// (Jacobi cuts its iterations); 64 000 unknowns put the kernels on the
+// worker pool; refreshes every 7 iterations with a tolerance that forces
+// replacements exercise the path where z must be recomputed.
+func TestCGFusedJacobi(t *testing.T) {
+	a := stencil.Jump3D(40, 1e4)
+	n := a.Rows
+	b := cgMul(a, cgOnes(n))
+	jac, err := precond.NewJacobi(a)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, st := range []krylov.Settings{{RelTol: 1e-10}, {RelTol: 1e-13, RefreshEvery: 7}} {
+		var xs [3][]float64
+		var hs [3]*cgHistory
+		var rs [3]krylov.Result
+		for i, m := range []krylov.Preconditioner{jac, cgPlainJacobi{jac}, cgDotJacobi{jac}} {
+			xs[i], hs[i] = make([]float64, n), &cgHistory{}
+			s := st
+			s.Recorder = hs[i]
+			rs[i], err = krylov.CG(context.Background(), a, b, xs[i], m, s)
+			if err != nil {
+				t.Fatal(err)
+			}
+		}
+		if rs[0].Status != krylov.Converged && rs[0].Status != krylov.Stagnated {
+			t.Fatalf("rtol %g: %v after %d iterations", st.RelTol, rs[0].Status, rs[0].Iterations)
+		}
+		for i := 1; i < 3; i++ {
+			if rs[i].Iterations != rs[0].Iterations || rs[i].Status != rs[0].Status ||
+				math.Float64bits(rs[i].TrueResidualNorm) != math.Float64bits(rs[0].TrueResidualNorm) {
+				t.Fatalf("rtol %g path %d: %v after %d iterations (‖r‖ %g), fused: %v after %d (‖r‖ %g)", st.RelTol, i,
+					rs[i].Status, rs[i].Iterations, rs[i].TrueResidualNorm, rs[0].Status, rs[0].Iterations, rs[0].TrueResidualNorm)
+			}
+			for k := range xs[0] {
+				if math.Float64bits(xs[i][k]) != math.Float64bits(xs[0][k]) {
+					t.Fatalf("rtol %g path %d: x[%d] %v, fused %v", st.RelTol, i, k, xs[i][k], xs[0][k])
+				}
+			}
+			for k, row := range hs[0].rows {
+				if math.Float64bits(hs[i].rows[k].ResidualNorm) != math.Float64bits(row.ResidualNorm) {
+					t.Fatalf("rtol %g path %d: residual at iteration %d differs", st.RelTol, i, row.Iteration)
+				}
+			}
+		}
 	}
 }

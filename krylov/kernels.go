@@ -10,6 +10,7 @@ import "github.com/residua/residua/sparse"
 //
 //	q = A·p and pᵀq            (*sparse.CSR).MulVecDot, or MulVec then Dot
 //	r −= α·q and rᵀr            sparse.AxpyDot
+//	r −= α·q, z = d∘r, rᵀr, rᵀz sparse.AxpyDiagDot (a DiagonalPreconditioner)
 //	x += α·p, p = z + β·p       sparse.Step
 //	r = b − A·x and rᵀr         (*sparse.CSR).Residual, or MulVec, Triad, Dot
 //	z = M⁻¹·r and rᵀz           PreconditionDot, or Precondition then Dot
