@@ -142,7 +142,6 @@ func StepBlock(x, p, z []float64, alpha, beta []float64, k int) {
 	getPool().blockVecOp(job{op: opBlockStep, d: x, x: p, y: z, cs: alpha, ct: beta, width: k}, n)
 }
 
-
 // matOpWork is matOp for a block product, whose work grows with the width.
 func (p *workerPool) matOpWork(j job) {
 	a := j.a
