@@ -250,6 +250,13 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 		st.products++
 		st.trueNorm = math.Sqrt(op.residual(w.r, b, x))
 	}
+	st.fill(&res, status, &w.lan)
+	return res, err
+}
+
+// fill completes res from the state of a finished solve and hands it to
+// the recorder's Finish.
+func (st *cgState) fill(res *Result, status Status, lan *lanczos) {
 	res.Status = status
 	res.Stagnation = st.stagnation
 	res.Iterations = st.iter
@@ -261,7 +268,7 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 	if st.bnorm > 0 {
 		res.RelResidual = st.trueNorm / st.bnorm
 	}
-	res.LambdaMin, res.LambdaMax = w.lan.extremes()
+	res.LambdaMin, res.LambdaMax = lan.extremes()
 	if res.LambdaMin > 0 {
 		res.Cond = res.LambdaMax / res.LambdaMin
 	}
@@ -270,9 +277,8 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 		res.PerIteration = res.Solve / time.Duration(st.iter)
 	}
 	if st.s.Recorder != nil {
-		st.s.Recorder.Finish(&res)
+		st.s.Recorder.Finish(res)
 	}
-	return res, err
 }
 
 // iterate is the CG loop (Saad §9.2.1, Algorithm 9.1, with M = I when m is

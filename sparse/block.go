@@ -19,7 +19,10 @@ import (
 //
 // The per-column scalars (alpha, beta) of the vector kernels are slices of
 // k values; the per-column sums are written to a caller's slice of k (or
-// 2·k) values. Nothing is allocated.
+// 2·k) values. In AxpyBlock, AxpyDotBlock and AxpyDiagDotBlock a column
+// whose alpha is zero is left untouched rather than given d + 0·x (equal
+// for finite x, but a NaN or Inf in x would spoil d): a method parks the
+// columns it is done with that way. Nothing is allocated.
 
 // MaxWidth is the largest number of columns a block kernel takes. Wider
 // problems are cut into blocks of at most MaxWidth columns by the caller:
@@ -192,13 +195,16 @@ func (j job) blockRows(lo, hi int) {
 	}
 }
 
-// blockAxpy sets d[i·k + c] += alpha[c]·x[i·k + c].
+// blockAxpy sets d[i·k + c] += alpha[c]·x[i·k + c], leaving the columns
+// whose alpha[c] is zero untouched.
 func blockAxpy(d, alpha, x []float64, k int) {
 	x = x[:len(d)]
 	alpha = alpha[:k]
 	for i := 0; i+k <= len(d); i += k {
 		for c, a := range alpha {
-			d[i+c] += a * x[i+c]
+			if a != 0 {
+				d[i+c] += a * x[i+c]
+			}
 		}
 	}
 }
