@@ -56,8 +56,8 @@ type BlockPreconditioner interface {
 // An operator that is not a BlockOperator is solved one right-hand side
 // after the other (CGMulti's way, each with its own Settings). The
 // returned error is nil when no right-hand side returned one; otherwise it
-// is the first such error in index order, wrapped with its index; the
-// context's cancellation stops every right-hand side. CGBlock panics on the
+// is a *BlockError holding each right-hand side's error (the one CG would
+// return for it); the context's cancellation stops every right-hand side. CGBlock panics on the
 // conditions CG panics on, for any i, and if len(bs), len(xs) and len(ss)
 // differ.
 func CGBlock(ctx context.Context, a Operator, bs, xs [][]float64, m Preconditioner, ss []Settings) ([]Result, error) {
@@ -92,12 +92,51 @@ func CGBlock(ctx context.Context, a Operator, bs, xs [][]float64, m Precondition
 }
 
 func cgBlockError(errs []error) error {
-	for i, err := range errs {
+	for _, err := range errs {
 		if err != nil {
-			return fmt.Errorf("krylov: right-hand side %d: %w", i, err)
+			return &BlockError{Errs: errs}
 		}
 	}
 	return nil
+}
+
+// BlockError carries the errors of a CGBlock call, one per right-hand side
+// (Errs[i] is nil when right-hand side i ended without one). Its message
+// names the first; errors.Is and errors.As see through to every one.
+type BlockError struct {
+	Errs []error
+}
+
+func (e *BlockError) Error() string {
+	first, more := -1, 0
+	for i, err := range e.Errs {
+		if err != nil {
+			if first < 0 {
+				first = i
+			} else {
+				more++
+			}
+		}
+	}
+	if first < 0 {
+		return "krylov: no error"
+	}
+	msg := fmt.Sprintf("krylov: right-hand side %d: %v", first, e.Errs[first])
+	if more > 0 {
+		msg += fmt.Sprintf(" (and %d more right-hand sides with errors)", more)
+	}
+	return msg
+}
+
+// Unwrap returns the right-hand sides' errors that are not nil.
+func (e *BlockError) Unwrap() []error {
+	var out []error
+	for _, err := range e.Errs {
+		if err != nil {
+			out = append(out, err)
+		}
+	}
+	return out
 }
 
 // cgBlockWork holds the blocks of CGBlock, allocated once for the widest
