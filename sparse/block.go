@@ -166,6 +166,12 @@ func (p *workerPool) matOpWork(j job) {
 }
 
 // blockRows runs a block vector kernel without sums on rows lo..hi.
+//
+// The block kernels go column by column over the rows of one fixed block
+// (a stride of k through memory the block has just brought into cache:
+// 2048 rows of up to 16 columns are at most 256 KiB an operand), so each
+// column's scalars stay in registers and the inner loops carry no
+// per-column branch.
 func (j job) blockRows(lo, hi int) {
 	k := j.width
 	d := j.d[lo*k : hi*k]
@@ -175,21 +181,21 @@ func (j job) blockRows(lo, hi int) {
 	case opBlockTriad:
 		z := j.x[lo*k : hi*k]
 		z = z[:len(d)]
-		beta := j.ct[:k]
-		for i := 0; i+k <= len(d); i += k {
-			for c, b := range beta {
-				d[i+c] = z[i+c] + b*d[i+c]
+		for c, b := range j.ct[:k] {
+			for i := c; i < len(d); i += k {
+				d[i] = z[i] + b*d[i]
 			}
 		}
 	case opBlockStep:
 		p, z := j.x[lo*k:hi*k], j.y[lo*k:hi*k]
 		p, z = p[:len(d)], z[:len(d)]
-		alpha, beta := j.cs[:k], j.ct[:k]
-		for i := 0; i+k <= len(d); i += k {
-			for c := range alpha {
-				pi := p[i+c]
-				d[i+c] += alpha[c] * pi
-				p[i+c] = z[i+c] + beta[c]*pi
+		beta := j.ct[:k]
+		for c, a := range j.cs[:k] {
+			b := beta[c]
+			for i := c; i < len(d); i += k {
+				pi := p[i]
+				d[i] += a * pi
+				p[i] = z[i] + b*pi
 			}
 		}
 	}
@@ -199,12 +205,12 @@ func (j job) blockRows(lo, hi int) {
 // whose alpha[c] is zero untouched.
 func blockAxpy(d, alpha, x []float64, k int) {
 	x = x[:len(d)]
-	alpha = alpha[:k]
-	for i := 0; i+k <= len(d); i += k {
-		for c, a := range alpha {
-			if a != 0 {
-				d[i+c] += a * x[i+c]
-			}
+	for c, a := range alpha[:k] {
+		if a == 0 {
+			continue
+		}
+		for i := c; i < len(d); i += k {
+			d[i] += a * x[i]
 		}
 	}
 }
@@ -217,30 +223,23 @@ func blockAxpy(d, alpha, x []float64, k int) {
 func dotColumns(s, x, y []float64, k int) {
 	y = y[:len(x)]
 	rows := len(x) / k
-	var acc [4][MaxWidth]float64
-	i := 0
-	for ; i+4 <= rows; i += 4 {
-		for m := range 4 {
-			xr := x[(i+m)*k : (i+m+1)*k]
-			yr := y[(i+m)*k : (i+m+1)*k]
-			yr = yr[:len(xr)]
-			a := acc[m][:len(xr)]
-			for c, v := range xr {
-				a[c] += v * yr[c]
-			}
-		}
-	}
-	for ; i < rows; i++ {
-		xr := x[i*k : (i+1)*k]
-		yr := y[i*k : (i+1)*k]
-		yr = yr[:len(xr)]
-		a := acc[0][:len(xr)]
-		for c, v := range xr {
-			a[c] += v * yr[c]
-		}
-	}
 	for c := range s[:k] {
-		s[c] = (acc[0][c] + acc[1][c]) + (acc[2][c] + acc[3][c])
+		var s0, s1, s2, s3 float64
+		i := 0
+		for ; i+4 <= rows; i += 4 {
+			j := i*k + c
+			_ = x[j+3*k]
+			_ = y[j+3*k]
+			s0 += x[j] * y[j]
+			s1 += x[j+k] * y[j+k]
+			s2 += x[j+2*k] * y[j+2*k]
+			s3 += x[j+3*k] * y[j+3*k]
+		}
+		for ; i < rows; i++ {
+			j := i*k + c
+			s0 += x[j] * y[j]
+		}
+		s[c] = (s0 + s1) + (s2 + s3)
 	}
 }
 
@@ -260,6 +259,9 @@ func mulRowsBlock(a *CSR, dst, x []float64, k, lo, hi int) {
 	rowPtr := a.RowPtr[lo : hi+1]
 	out := dst[lo*k : hi*k]
 	switch k {
+	case 1:
+		mulRows(a, dst, x, lo, hi)
+		return
 	case 4:
 		mulRows4(rowPtr, val, col, xs, out)
 		return
@@ -284,16 +286,20 @@ func mulRowsBlock(a *CSR, dst, x []float64, k, lo, hi int) {
 }
 
 func mulRows4(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
-	for r := 0; r+1 < len(rowPtr); r++ {
+	p := rowPtr[0]
+	for r, end := range rowPtr[1:] {
 		var s0, s1, s2, s3 float64
-		for p := rowPtr[r]; p < rowPtr[r+1]; p++ {
-			v := *(*float64)(unsafe.Add(val, 8*p))
-			c := *(*uint32)(unsafe.Add(col, 4*p))
-			xr := (*[4]float64)(unsafe.Add(xs, 32*uintptr(c)))
+		vb := unsafe.Add(val, 8*p)
+		cb := unsafe.Add(col, 4*p)
+		for ; p < end; p++ {
+			v := *(*float64)(vb)
+			xr := (*[4]float64)(unsafe.Add(xs, 32*uintptr(*(*uint32)(cb))))
 			s0 += v * xr[0]
 			s1 += v * xr[1]
 			s2 += v * xr[2]
 			s3 += v * xr[3]
+			vb = unsafe.Add(vb, 8)
+			cb = unsafe.Add(cb, 4)
 		}
 		o := (*[4]float64)(out[4*r : 4*r+4])
 		o[0], o[1], o[2], o[3] = s0, s1, s2, s3
@@ -301,12 +307,14 @@ func mulRows4(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
 }
 
 func mulRows8(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
-	for r := 0; r+1 < len(rowPtr); r++ {
+	p := rowPtr[0]
+	for r, end := range rowPtr[1:] {
 		var s0, s1, s2, s3, s4, s5, s6, s7 float64
-		for p := rowPtr[r]; p < rowPtr[r+1]; p++ {
-			v := *(*float64)(unsafe.Add(val, 8*p))
-			c := *(*uint32)(unsafe.Add(col, 4*p))
-			xr := (*[8]float64)(unsafe.Add(xs, 64*uintptr(c)))
+		vb := unsafe.Add(val, 8*p)
+		cb := unsafe.Add(col, 4*p)
+		for ; p < end; p++ {
+			v := *(*float64)(vb)
+			xr := (*[8]float64)(unsafe.Add(xs, 64*uintptr(*(*uint32)(cb))))
 			s0 += v * xr[0]
 			s1 += v * xr[1]
 			s2 += v * xr[2]
@@ -315,6 +323,8 @@ func mulRows8(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
 			s5 += v * xr[5]
 			s6 += v * xr[6]
 			s7 += v * xr[7]
+			vb = unsafe.Add(vb, 8)
+			cb = unsafe.Add(cb, 4)
 		}
 		o := (*[8]float64)(out[8*r : 8*r+8])
 		o[0], o[1], o[2], o[3], o[4], o[5], o[6], o[7] = s0, s1, s2, s3, s4, s5, s6, s7

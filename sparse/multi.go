@@ -138,8 +138,9 @@ func (j job) multiBlock(b, blk int, s []float64) {
 		blockAxpy(d, j.cs, j.x[lo*k:hi*k], k)
 		diag := j.y[lo:hi]
 		for i, v := range diag {
-			for c := range k {
-				z[i*k+c] = d[i*k+c] * v
+			zr := z[i*k : (i+1)*k]
+			for c, e := range d[i*k : (i+1)*k] {
+				zr[c] = e * v
 			}
 		}
 		dotColumns(s[:k], d, d, k)
