@@ -53,6 +53,10 @@ type BlockPreconditioner interface {
 // column by column. The Results' Solve time is the wall time of the group
 // the right-hand side belongs to, up to its stop.
 //
+// The block saves the matrix's memory traffic, not the vectors'; on the
+// 2-core reference machine the block sweeps are still slower than the
+// one-vector kernels and CGBlock loses to CGMulti (BENCHMARKS.md).
+//
 // An operator that is not a BlockOperator is solved one right-hand side
 // after the other (CGMulti's way, each with its own Settings). The
 // returned error is nil when no right-hand side returned one; otherwise it

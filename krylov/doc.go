@@ -145,6 +145,24 @@
 // Cancellation, the time budget, the errors and the panics follow the rules
 // above; x may be X0 itself and must not be b.
 //
+// # Several right-hand sides
+//
+// CGMulti solves right-hand sides one after the other in one workspace.
+// CGBlock solves up to sparse.MaxWidth of them at once, with one block
+// product per iteration (BlockOperator, which *sparse.CSR is), each with its
+// own Settings, scalars and stopping; a right-hand side that stops leaves
+// the block. Every right-hand side takes exactly the steps CG takes on it
+// alone, bit for bit: the block kernels give each column the one-vector
+// kernels' bits. Whether it is faster depends on the machine (see
+// BENCHMARKS.md: on the 2-core reference machine it is not yet).
+//
+// # Diagonal preconditioners
+//
+// A preconditioner that is a DiagonalPreconditioner (precond.Jacobi) is
+// applied inside the residual update, with both inner products, in one
+// sweep (sparse.AxpyDiagDot), bitwise the unfused sequence: a Jacobi-PCG
+// iteration then costs about what a plain one does.
+//
 // # Memory
 //
 // CG holds, besides A, the preconditioner and the caller's b and x, the
