@@ -265,10 +265,9 @@ func TestMultipleRHS(t *testing.T) {
 	if fmt.Sprint(out.Accepted.GetRhsCount()) != "2" {
 		t.Errorf("accepted rhs_count %d", out.Accepted.GetRhsCount())
 	}
-	// Whether the server solves the right-hand sides one after the other
-	// or as one block (solve.SolveBlock takes each through CG's own steps),
-	// the solution equals a local solve of that right-hand side alone, bit
-	// for bit.
+	// The server solves the two as one block (solve.SolveBlock), which
+	// takes each through CG's own steps: the solution equals a local solve
+	// of that right-hand side alone, bit for bit.
 	x := make([]float64, a.Rows)
 	if _, _, err := solve.Run(context.Background(), solve.Check(a, "p20", false), solve.Request{Preconditioner: "ic0"}, b2, nil, x, nil); err != nil {
 		t.Fatal(err)

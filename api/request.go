@@ -173,7 +173,10 @@ func (s *Server) newJob(req *pb.SolveRequest) (*job, *jobParams, error) {
 	id := newJobID()
 	// The job's vectors: the solutions, the inline vectors it decoded and
 	// the method's work vectors.
-	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)
+	// Several right-hand sides of a system are solved as one block
+	// (solve.SolveBlock), whose workspace grows with the block's width.
+	work := max(workVectors, solve.BlockWorkVectors(nrhs, p.req.LeastSquares))
+	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+work)
 	if err := s.store.reserve(mem, "job "+id); err != nil {
 		return nil, nil, err
 	}

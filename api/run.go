@@ -2,8 +2,10 @@ package api
 
 import (
 	"context"
+	"errors"
 	"time"
 
+	"github.com/residua/residua/krylov"
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/solve"
 	"github.com/residua/residua/wire"
@@ -60,6 +62,9 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 		"rhs", len(p.rhs), "method", base.Method, "preconditioner", base.Preconditioner, "reason", base.PreconditionerReason,
 		"from_cache", fromCache, "setup", time.Duration(float64(base.SetupSeconds)*1e9).String(), "queued_for", start.Sub(j.created).String())
 
+	if len(p.rhs) > 1 && !p.req.LeastSquares {
+		return s.runBlock(j, p, setup, fromCache)
+	}
 	outcomes := make([]solve.Outcome, 0, len(p.rhs))
 	for i, b := range p.rhs {
 		x := make([]float64, p.m.a.Cols)
@@ -86,6 +91,63 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 			return o, solveErr
 		}
 		outcomes = append(outcomes, o)
+	}
+	return solve.JobOutcome(outcomes, ""), nil
+}
+
+// runBlock solves a job's several right-hand sides of a system as one block
+// (solve.SolveBlock: one product with the matrix per iteration for up to 16
+// of them), each with its own progress, history and result, and delivers
+// the results in order once the block is done. The job's outcome is the
+// first right-hand side's, in order, that was cancelled or failed, or
+// solve.JobOutcome of them all.
+func (s *Server) runBlock(j *job, p *jobParams, setup *solve.Setup, fromCache bool) (solve.Outcome, error) {
+	k := len(p.rhs)
+	xs := make([][]float64, k)
+	recs := make([]krylov.Recorder, k)
+	for i := range xs {
+		xs[i] = make([]float64, p.m.a.Cols)
+		recs[i] = &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
+	}
+	sums, err := setup.SolveBlock(j.ctx, p.rhs, p.x0, xs, recs)
+	var be *krylov.BlockError
+	errors.As(err, &be)
+	outcomes := make([]solve.Outcome, 0, k)
+	var stop solve.Outcome
+	var stopErr error
+	for i := range sums {
+		sum := &sums[i]
+		sum.MatrixID, sum.FromCache = p.matrixID, &fromCache
+		j.deliver(i, xs[i], wire.Result(sum))
+		if s.obs != nil {
+			s.obs.IterationsDone(sum.Iterations)
+		}
+		s.log.Info("solve", "job", j.id, "rhs", i, "outcome", sum.Status, "iterations", sum.Iterations,
+			"relative_residual", float64(sum.RelativeResidual), "solve", time.Duration(float64(sum.SolveSeconds)*1e9).String())
+		o := solve.Outcome(sum.Status)
+		outcomes = append(outcomes, o)
+		var colErr error
+		if be != nil {
+			colErr = be.Errs[i]
+		}
+		if stop != "" {
+			continue
+		}
+		switch {
+		case o == solve.Cancelled:
+			stop, stopErr = o, colErr
+			if cause := context.Cause(j.ctx); cause != nil {
+				stopErr = cause
+			}
+			if stopErr == nil {
+				stopErr = context.Canceled
+			}
+		case colErr != nil:
+			stop, stopErr = o, colErr
+		}
+	}
+	if stop != "" {
+		return stop, stopErr
 	}
 	return solve.JobOutcome(outcomes, ""), nil
 }
