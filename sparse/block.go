@@ -289,17 +289,15 @@ func mulRows4(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
 	p := rowPtr[0]
 	for r, end := range rowPtr[1:] {
 		var s0, s1, s2, s3 float64
-		vb := unsafe.Add(val, 8*p)
-		cb := unsafe.Add(col, 4*p)
+		// Addresses are formed from the array starts at each entry: a
+		// pointer stepped past the last entry would be invalid.
 		for ; p < end; p++ {
-			v := *(*float64)(vb)
-			xr := (*[4]float64)(unsafe.Add(xs, 32*uintptr(*(*uint32)(cb))))
+			v := *(*float64)(unsafe.Add(val, 8*p))
+			xr := (*[4]float64)(unsafe.Add(xs, 32*uintptr(*(*uint32)(unsafe.Add(col, 4*p)))))
 			s0 += v * xr[0]
 			s1 += v * xr[1]
 			s2 += v * xr[2]
 			s3 += v * xr[3]
-			vb = unsafe.Add(vb, 8)
-			cb = unsafe.Add(cb, 4)
 		}
 		o := (*[4]float64)(out[4*r : 4*r+4])
 		o[0], o[1], o[2], o[3] = s0, s1, s2, s3
@@ -310,11 +308,11 @@ func mulRows8(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
 	p := rowPtr[0]
 	for r, end := range rowPtr[1:] {
 		var s0, s1, s2, s3, s4, s5, s6, s7 float64
-		vb := unsafe.Add(val, 8*p)
-		cb := unsafe.Add(col, 4*p)
+		// Addresses are formed from the array starts at each entry: a
+		// pointer stepped past the last entry would be invalid.
 		for ; p < end; p++ {
-			v := *(*float64)(vb)
-			xr := (*[8]float64)(unsafe.Add(xs, 64*uintptr(*(*uint32)(cb))))
+			v := *(*float64)(unsafe.Add(val, 8*p))
+			xr := (*[8]float64)(unsafe.Add(xs, 64*uintptr(*(*uint32)(unsafe.Add(col, 4*p)))))
 			s0 += v * xr[0]
 			s1 += v * xr[1]
 			s2 += v * xr[2]
@@ -323,8 +321,6 @@ func mulRows8(rowPtr []int, val, col, xs unsafe.Pointer, out []float64) {
 			s5 += v * xr[5]
 			s6 += v * xr[6]
 			s7 += v * xr[7]
-			vb = unsafe.Add(vb, 8)
-			cb = unsafe.Add(cb, 4)
 		}
 		o := (*[8]float64)(out[8*r : 8*r+8])
 		o[0], o[1], o[2], o[3], o[4], o[5], o[6], o[7] = s0, s1, s2, s3, s4, s5, s6, s7
