@@ -845,7 +845,11 @@ func (j cgDotJacobi) PreconditionDot(dst, r []float64) float64 {
 // worker pool; refreshes every 7 iterations with a tolerance that forces
 // replacements exercise the path where z must be recomputed.
 func TestCGFusedJacobi(t *testing.T) {
-	a := stencil.Jump3D(40, 1e4)
+	side := 40
+	if cgRace {
+		side = 12 // the race detector's runtime is ~10× slower; keep it small
+	}
+	a := stencil.Jump3D(side, 1e4)
 	n := a.Rows
 	b := cgMul(a, cgOnes(n))
 	jac, err := precond.NewJacobi(a)
