@@ -3,6 +3,7 @@ package api
 import (
 	"context"
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"slices"
 	"strings"
@@ -263,5 +264,17 @@ func TestMultipleRHS(t *testing.T) {
 	}
 	if fmt.Sprint(out.Accepted.GetRhsCount()) != "2" {
 		t.Errorf("accepted rhs_count %d", out.Accepted.GetRhsCount())
+	}
+	// The server solves the two as one block (solve.SolveBlock), which
+	// takes each through CG's own steps: the solution equals a local solve
+	// of that right-hand side alone, bit for bit.
+	x := make([]float64, a.Rows)
+	if _, _, err := solve.Run(context.Background(), solve.Check(a, "p20", false), solve.Request{Preconditioner: "ic0"}, b2, nil, x, nil); err != nil {
+		t.Fatal(err)
+	}
+	for i := range x {
+		if math.Float64bits(x[i]) != math.Float64bits(out.X[1][i]) {
+			t.Fatalf("rhs 1: x[%d] = %v remotely, %v locally", i, out.X[1][i], x[i])
+		}
 	}
 }

@@ -232,7 +232,10 @@ func (s *Server) newJobWithID(req *pb.SolveRequest, id string) (*job, *jobParams
 	}
 	// The job's vectors: the solutions, the inline vectors it decoded and
 	// the method's work vectors.
-	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+workVectors)
+	// Several right-hand sides of a system are solved as one block
+	// (solve.SolveBlock), whose workspace grows with the block's width.
+	work := max(workVectors, solve.BlockWorkVectors(nrhs, p.req.LeastSquares))
+	mem := 8 * int64(max(n, ncols)) * int64(nrhs+inline+work)
 	if normal {
 		// The operator's scaled copy of Bᵀ's values, its scratch vector and
 		// the Jacobi diagonal; for IC(0), the assembled B·D·Bᵀ and its

@@ -2,8 +2,10 @@ package api
 
 import (
 	"context"
+	"errors"
 	"time"
 
+	"github.com/residua/residua/krylov"
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/solve"
 	"github.com/residua/residua/wire"
@@ -67,6 +69,17 @@ func (s *Server) runJob(j *job, p *jobParams) (outcome solve.Outcome, err error)
 	run.Request = p.req
 	run.Request.MaxIter = s.capIterations(p.req, p.m.a.Rows, p.m.a.Cols)
 	iterating := time.Now()
+	if len(p.rhs) > 1 && !p.req.LeastSquares && p.weights == nil && len(p.done) == 0 && s.data == nil {
+		// One block product per iteration for all the right-hand sides;
+		// with a data folder the columns run one at a time, since only a
+		// single solve can checkpoint. The job's time ceiling bounds the
+		// block as a whole.
+		run.Request.TimeLimit = s.cfg.MaxJobTime
+		if t := p.req.TimeLimit; t > 0 && t < s.cfg.MaxJobTime {
+			run.Request.TimeLimit = t
+		}
+		return s.runBlock(j, p, &run, fromCache)
+	}
 	outcomes := make([]solve.Outcome, 0, len(p.rhs))
 	for i, b := range p.rhs {
 		if i < len(p.done) {
@@ -141,4 +154,64 @@ func (s *Server) capIterations(r solve.Request, rows, cols int) int {
 		return ceiling
 	}
 	return 0
+}
+
+// runBlock solves a job's several right-hand sides of a system as one block
+// (solve.SolveBlock: one product with the matrix per iteration for up to 16
+// of them), each with its own progress, history and result, and delivers
+// the results in order once the block is done. The job's outcome is the
+// first right-hand side's, in order, that was cancelled or failed, or
+// solve.JobOutcome of them all.
+func (s *Server) runBlock(j *job, p *jobParams, setup *solve.Setup, fromCache bool) (solve.Outcome, error) {
+	k := len(p.rhs)
+	xs := make([][]float64, k)
+	recs := make([]krylov.Recorder, k)
+	for i := range xs {
+		xs[i] = make([]float64, p.m.a.Cols)
+		recs[i] = &progressRecorder{s: s, j: j, log: j.logs[i], rhs: i, every: p.every, interval: p.interval}
+	}
+	sums, err := setup.SolveBlock(j.ctx, p.rhs, p.x0, xs, recs)
+	var be *krylov.BlockError
+	errors.As(err, &be)
+	outcomes := make([]solve.Outcome, 0, k)
+	var stop solve.Outcome
+	var stopErr error
+	for i := range sums {
+		sum := &sums[i]
+		sum.MatrixID, sum.FromCache = p.matrixID, &fromCache
+		if solve.Outcome(sum.Status) != solve.TimeLimit {
+			sum.TimeLimitSeconds = solve.Seconds(p.req.TimeLimit) // as in run: the ceiling did not bind
+		}
+		j.deliver(i, xs[i], wire.Result(sum))
+		if s.obs != nil {
+			s.obs.IterationsDone(sum.Iterations)
+		}
+		s.log.Info("solve", "job", j.id, "rhs", i, "outcome", sum.Status, "iterations", sum.Iterations,
+			"relative_residual", float64(sum.RelativeResidual), "solve", time.Duration(float64(sum.SolveSeconds)*1e9).String())
+		o := solve.Outcome(sum.Status)
+		outcomes = append(outcomes, o)
+		var colErr error
+		if be != nil {
+			colErr = be.Errs[i]
+		}
+		if stop != "" {
+			continue
+		}
+		switch {
+		case o == solve.Cancelled:
+			stop, stopErr = o, colErr
+			if cause := context.Cause(j.ctx); cause != nil {
+				stopErr = cause
+			}
+			if stopErr == nil {
+				stopErr = context.Canceled
+			}
+		case colErr != nil:
+			stop, stopErr = o, colErr
+		}
+	}
+	if stop != "" {
+		return stop, stopErr
+	}
+	return solve.JobOutcome(outcomes, ""), nil
 }

@@ -39,6 +39,34 @@ const (
 	cgDriftGap          = 0.01
 )
 
+// Round-off stagnation rule for CG. The drift rule above does not fire when
+// the recursive and the true residual stall together at the rounding level
+// (a 5×5 system asked for a relative residual of 1e-300 then iterated
+// forever at 1e-16). So, at every true-residual recomputation that fails the
+// stopping test and either follows a recursive residual that met it or did
+// not lower the smallest true residual by the factor cgStagnationGain (and
+// at every one during an episode, below), CG compares the true residual
+// norm with the level at which it is rounding noise, the bound on the
+// rounding error of computing b − A·x, about u·‖(w_i+1)·(|A|·|x| + |b|)_i‖
+// with w_i the row's entries and u the unit roundoff (Higham, Accuracy and
+// Stability of Numerical Algorithms, 2nd ed., §3.1 and §12.1; by the
+// Oettli–Prager theorem, §7.2, such an x is backward stable to a few units
+// of roundoff; Greenbaum, Iterative Methods for Solving Linear Systems,
+// 1997, §7.3, shows the residual of finite-precision CG settles at this
+// order times ‖A‖·‖x‖). At or below the level an episode starts; a
+// recomputation every cgFloorWindow iterations follows, whatever
+// RefreshEvery says. A recomputation that lowers the norm by cgFloorGain
+// below the norm at the episode's start restarts the episode; one above the
+// level ends it; when cgFloorWindow iterations pass without either, the
+// solve stops with status Stagnated (Result.Stagnation is
+// StagnationRoundoff). The window and the factor are our own choice: CG
+// halves its residual in far fewer iterations wherever it still converges,
+// and the window costs at most one product per cgFloorWindow iterations.
+const (
+	cgFloorWindow = 20
+	cgFloorGain   = 0.5
+)
+
 // cgReplaceFraction decides residual replacement. Replacing the recursive
 // residual r by the true one t = b − A·x restores the accuracy that rounding
 // took from r, but it perturbs the coupled recurrences of CG and, done at
@@ -184,6 +212,8 @@ type cgState struct {
 	rnorm     float64 // the last residual norm the loop tracked
 	trueNorm  float64 // the last true residual norm computed
 	trueFresh bool    // whether trueNorm belongs to the current x
+	// stagnation names the stagnation rule that fired, "" if none.
+	stagnation string
 }
 
 // record sends one progress row to the recorder, if any.
@@ -230,7 +260,15 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 		st.products++
 		st.trueNorm = math.Sqrt(op.residual(w.r, b, x))
 	}
+	st.fill(&res, status, &w.lan)
+	return res, err
+}
+
+// fill completes res from the state of a finished solve and hands it to
+// the recorder's Finish.
+func (st *cgState) fill(res *Result, status Status, lan *lanczos) {
 	res.Status = status
+	res.Stagnation = st.stagnation
 	res.Iterations = st.iter
 	res.Products = st.products
 	res.ResidualNorm = st.rnorm
@@ -240,7 +278,7 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 	if st.bnorm > 0 {
 		res.RelResidual = st.trueNorm / st.bnorm
 	}
-	res.LambdaMin, res.LambdaMax = w.lan.extremes()
+	res.LambdaMin, res.LambdaMax = lan.extremes()
 	if res.LambdaMin > 0 {
 		res.Cond = res.LambdaMax / res.LambdaMin
 	}
@@ -249,9 +287,8 @@ func (w *cgWork) solve(ctx context.Context, a Operator, b, x []float64, m Precon
 		res.PerIteration = res.Solve / time.Duration(st.iter)
 	}
 	if st.s.Recorder != nil {
-		st.s.Recorder.Finish(&res)
+		st.s.Recorder.Finish(res)
 	}
-	return res, err
 }
 
 // iterate is the CG loop (Saad §9.2.1, Algorithm 9.1, with M = I when m is
@@ -327,7 +364,7 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 		return Breakdown, err
 	}
 	copy(p, z)
-	return w.loop(ctx, op, b, x, m, st, tol, cgCarry{rho: rho, best: rnorm})
+	return w.loop(ctx, op, b, x, m, st, tol, cgCarry{rho: rho, best: rnorm, floorStart: -1, floorNext: -1})
 }
 
 // cgCarry is what CG's loop carries from one iteration to the next besides
@@ -336,6 +373,11 @@ type cgCarry struct {
 	rho     float64 // rᵀz
 	best    float64 // smallest true residual norm so far
 	strikes int     // stagnation strikes (see cgStagnationStrikes)
+	// The round-off episode (see cgFloorWindow): its start iteration (−1:
+	// none), the iteration of the next forced recomputation (−1: none),
+	// and the true residual norm at its start.
+	floorStart, floorNext int
+	floorRef              float64
 }
 
 // loop runs CG's iterations from the state at the top of the loop: x, r, p
@@ -350,14 +392,22 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 	}
 	var rr, rnorm float64
 	rho, best, strikes := c.rho, c.best, c.strikes
+	floorStart, floorNext, floorRef := c.floorStart, c.floorNext, c.floorRef
+	carry := func() cgCarry { return cgCarry{rho, best, strikes, floorStart, floorNext, floorRef} }
 	ck := newCheckpointer(s.Checkpoint, time.Now())
+	// A diagonal preconditioner is applied inside the residual update (see
+	// DiagonalPreconditioner); diag is nil otherwise.
+	var diag []float64
+	if dm, ok := m.(DiagonalPreconditioner); ok && len(dm.InverseDiagonal()) == n {
+		diag = dm.InverseDiagonal()
+	}
 	for {
 		if st.iter >= s.MaxIter {
 			return IterationLimit, nil
 		}
 		if err := ctx.Err(); err != nil {
 			// A cancelled solve saves its state first: nothing is lost.
-			if serr := w.checkpoint(&ck, x, st, m != nil, cgCarry{rho, best, strikes}); serr != nil {
+			if serr := w.checkpoint(&ck, x, st, m != nil, carry()); serr != nil {
 				return Cancelled, serr
 			}
 			return Cancelled, err
@@ -366,7 +416,7 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 			return TimeLimit, nil
 		}
 		if ck.due() {
-			if err := w.checkpoint(&ck, x, st, m != nil, cgCarry{rho, best, strikes}); err != nil {
+			if err := w.checkpoint(&ck, x, st, m != nil, carry()); err != nil {
 				return Cancelled, err
 			}
 		}
@@ -390,7 +440,15 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 		}
 		w.lan.addAlpha(alpha)
 
-		rr = sparse.AxpyDot(r, -alpha, q)
+		// rz is rᵀz from the fused Jacobi sweep, valid while fused holds
+		// (until r is replaced).
+		var rz float64
+		fused := diag != nil
+		if fused {
+			rr, rz = sparse.AxpyDiagDot(r, -alpha, q, diag, z)
+		} else {
+			rr = sparse.AxpyDot(r, -alpha, q)
+		}
 		rnorm = math.Sqrt(rr)
 		st.trueFresh = false
 		xDone := false // whether x already holds x_{j+1}
@@ -400,7 +458,7 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 		}
 
 		met := rnorm <= tol
-		if met || (s.RefreshEvery > 0 && k%s.RefreshEvery == 0) {
+		if met || (s.RefreshEvery > 0 && k%s.RefreshEvery == 0) || k == floorNext {
 			// Compute the true residual t = b − A·x (into q, free until the
 			// next product): before declaring convergence, and periodically
 			// to watch the drift between t and the recursive r.
@@ -426,14 +484,30 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 			if drift > cgReplaceFraction*tol {
 				rr = sparse.AxpyDot(r, 1, q)
 				rnorm = math.Sqrt(rr)
+				fused = false // z no longer belongs to r
 			}
+			progress := tnorm < cgStagnationGain*best
 			switch {
-			case tnorm < cgStagnationGain*best:
+			case progress:
 				strikes = 0
 			case recursive < (1-cgDriftGap)*tnorm:
 				strikes++
 			}
 			best = min(best, tnorm)
+			if met || !progress || floorStart >= 0 {
+				// One more pass over A, on this rare path only.
+				level := op.roundoffLevel(x, b, st.bnorm, tnorm)
+				switch {
+				case tnorm > level:
+					floorStart, floorNext = -1, -1
+				case floorStart < 0 || tnorm <= cgFloorGain*floorRef:
+					floorStart, floorRef, floorNext = k, tnorm, k+cgFloorWindow
+				case k-floorStart >= cgFloorWindow:
+					st.stagnation = StagnationRoundoff
+				default:
+					floorNext = floorStart + cgFloorWindow
+				}
+			}
 		}
 		st.rnorm = rnorm
 		if err := st.record(k, rnorm); err != nil {
@@ -442,7 +516,10 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 			}
 			return Cancelled, err
 		}
-		if strikes >= cgStagnationStrikes {
+		if strikes >= cgStagnationStrikes && st.stagnation == "" {
+			st.stagnation = StagnationDrift
+		}
+		if st.stagnation != "" {
 			if !xDone {
 				sparse.Axpy(x, alpha, p)
 			}
@@ -450,7 +527,10 @@ func (w *cgWork) loop(ctx context.Context, op *cgOperator, b, x []float64, m Pre
 		}
 
 		rhoNew := rr
-		if m != nil {
+		switch {
+		case fused:
+			rhoNew = rz
+		case m != nil:
 			rhoNew = cgPrecondition(m, z, r)
 		}
 		if err := cgCheckRho(k, rhoNew, z, m != nil); err != nil {

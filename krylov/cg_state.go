@@ -12,13 +12,15 @@ import (
 // is recomputed from r before it is read):
 //
 //	Scalars: ρ = rᵀz, best true ‖r‖, tracked ‖r‖, last true ‖r‖, ‖b‖,
-//	         the Lanczos α_{j−1} and β_{j−1}
+//	         the Lanczos α_{j−1} and β_{j−1}, the round-off episode's
+//	         reference norm
 //	Ints:    stagnation strikes, whether the true ‖r‖ belongs to x (0/1),
-//	         rows of the Lanczos tridiagonal, preconditioned (0/1)
+//	         rows of the Lanczos tridiagonal, preconditioned (0/1), the
+//	         round-off episode's start and next recomputation (−1: none)
 //	Vectors: x, r, p, the tridiagonal's diagonal and superdiagonal so far
 const (
-	cgStateScalars = 7
-	cgStateInts    = 4
+	cgStateScalars = 8
+	cgStateInts    = 6
 )
 
 func b2i(v bool) int {
@@ -38,8 +40,8 @@ func (w *cgWork) checkpoint(ck *checkpointer, x []float64, st *cgState, precond 
 	s := &ck.state
 	s.Method, s.Rows, s.Cols = "cg", n, n
 	s.Iteration, s.Products, s.Elapsed = st.iter, st.products, time.Since(st.start)
-	s.Scalars = append(s.Scalars[:0], c.rho, c.best, st.rnorm, st.trueNorm, st.bnorm, w.lan.prevAlpha, w.lan.prevBeta)
-	s.Ints = append(s.Ints[:0], c.strikes, b2i(st.trueFresh), w.lan.k, b2i(precond))
+	s.Scalars = append(s.Scalars[:0], c.rho, c.best, st.rnorm, st.trueNorm, st.bnorm, w.lan.prevAlpha, w.lan.prevBeta, c.floorRef)
+	s.Ints = append(s.Ints[:0], c.strikes, b2i(st.trueFresh), w.lan.k, b2i(precond), c.floorStart, c.floorNext)
 	s.Vectors = append(s.Vectors[:0], x, w.r[:n], w.p[:n], w.lan.diag[:w.lan.k], w.lan.off[:w.lan.k])
 	return ck.save()
 }
@@ -82,5 +84,6 @@ func (w *cgWork) restore(rs *State, x []float64, st *cgState) cgCarry {
 	w.lan.k, w.lan.prevAlpha, w.lan.prevBeta = k, rs.Scalars[5], rs.Scalars[6]
 	st.iter, st.products = rs.Iteration, rs.Products
 	st.rnorm, st.trueNorm, st.trueFresh = rs.Scalars[2], rs.Scalars[3], rs.Ints[1] == 1
-	return cgCarry{rho: rs.Scalars[0], best: rs.Scalars[1], strikes: rs.Ints[0]}
+	return cgCarry{rho: rs.Scalars[0], best: rs.Scalars[1], strikes: rs.Ints[0],
+		floorStart: rs.Ints[4], floorNext: rs.Ints[5], floorRef: rs.Scalars[7]}
 }

@@ -14,6 +14,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
 )
@@ -480,6 +481,66 @@ func TestCGStagnation(t *testing.T) {
 	}
 }
 
+// TestCGStagnationAtRoundoff: a tolerance of 1e-300 on a 5×5 SPD system
+// with an unbounded iteration cap (issue 15, finding 1: this ran 44.6 M
+// iterations in 30 s at relative residual 1e-16). The true residual reaches
+// the rounding level of b − A·x, u·‖(w_i+1)·(|A|·|x| + |b|)_i‖ ≈ 4·10⁻¹⁵
+// here (Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed.,
+// §3.1), within a few iterations of the fifth (exact arithmetic ends in n = 5:
+// Saad, 2nd ed., §6.11.3), and stays there; the round-off rule must stop the
+// solve one window later, with or without periodic refreshes, whether or
+// not the operator can bound its own residual.
+func TestCGStagnationAtRoundoff(t *testing.T) {
+	var ii, jj []int32
+	var vv []float64
+	for i := 0; i < 5; i++ {
+		for j := max(0, i-1); j <= min(4, i+1); j++ {
+			ii, jj = append(ii, int32(i)), append(jj, int32(j))
+			v := -1.0
+			if i == j {
+				v = 4
+			}
+			vv = append(vv, v)
+		}
+	}
+	five, _, err := sparse.FromTriplets(5, 5, ii, jj, vv, sparse.BuildOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := []float64{1, 2, 3, 4, 5}
+	for _, c := range []struct {
+		name    string
+		op      krylov.Operator
+		refresh int
+	}{
+		{"csr", five, 0},
+		{"csr-no-refresh", five, -1},
+		{"generic", cgOp{five}, 0},
+		{"generic-no-refresh", cgOp{five}, -1},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			x := make([]float64, 5)
+			res, err := krylov.CG(context.Background(), c.op, b, x, nil,
+				krylov.Settings{RelTol: 1e-300, MaxIter: 1 << 62, RefreshEvery: c.refresh, TimeLimit: 10 * time.Second})
+			if err != nil || res.Status != krylov.Stagnated || res.Stagnation != krylov.StagnationRoundoff {
+				t.Fatalf("status %v (%q), err %v after %d iterations, relative residual %g",
+					res.Status, res.Stagnation, err, res.Iterations, res.RelResidual)
+			}
+			// 5 iterations to the exact-arithmetic end, then at most two
+			// refresh periods to notice and one window to confirm.
+			if res.Iterations > 150 {
+				t.Errorf("took %d iterations to notice", res.Iterations)
+			}
+			// A few units of roundoff relative to ‖b‖: κ(A) < 3 here, its
+			// eigenvalues being 4 − 2·cos(kπ/6), k = 1..5, those of a
+			// tridiagonal Toeplitz matrix (a standard result, from memory).
+			if res.RelResidual > 1e-14 {
+				t.Errorf("stagnated at relative residual %g", res.RelResidual)
+			}
+		})
+	}
+}
+
 // TestCGBreakdowns checks the named errors and their messages.
 func TestCGBreakdowns(t *testing.T) {
 	nan := math.NaN()
@@ -653,7 +714,11 @@ func TestCGAllocations(t *testing.T) {
 			}
 		})
 	}
-	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25), cgScaleDot(0.25)} {
+	jac, err := precond.NewJacobi(a)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, m := range []krylov.Preconditioner{nil, cgScale(0.25), cgScaleDot(0.25), jac} {
 		if a10, a100 := allocs(10, m), allocs(100, m); a10 != a100 {
 			t.Errorf("preconditioner %v: %v allocations for 10 iterations, %v for 100", m, a10, a100)
 		}
@@ -751,5 +816,78 @@ func TestCGMemory(t *testing.T) {
 	limit := uint64(4*pages(8*n) + 2*pages(8*min(10*n, 1<<16)) + 4096)
 	if got > limit {
 		t.Errorf("a %d-iteration solve allocated %d bytes, more than 4 vectors and the Lanczos history (%d)", res.Iterations, got, limit)
+	}
+}
+
+// cgPlainJacobi hides every fused form of a Jacobi preconditioner: CG then
+// applies it with Precondition and takes rᵀz with sparse.Dot, the unfused
+// path.
+type cgPlainJacobi struct{ m *precond.Jacobi }
+
+func (j cgPlainJacobi) Precondition(dst, r []float64) { j.m.Precondition(dst, r) }
+
+// cgDotJacobi keeps only PreconditionDot: the apply fused with rᵀz but not
+// with the residual update.
+type cgDotJacobi struct{ m *precond.Jacobi }
+
+func (j cgDotJacobi) Precondition(dst, r []float64) { j.m.Precondition(dst, r) }
+func (j cgDotJacobi) PreconditionDot(dst, r []float64) float64 {
+	return j.m.PreconditionDot(dst, r)
+}
+
+// TestCGFusedJacobi: CG with precond.Jacobi fuses the diagonal apply into
+// the residual update (DiagonalPreconditioner, sparse.AxpyDiagDot). The
+// fused sweep does the unfused sequence's arithmetic (sparse tests it bit for
+// bit against AxpyDot, the product and Dot), so the three paths must give the
+// same iterates, residual history and result bit for bit — stronger than
+// "to rounding". jump3d 40³ with contrast 10⁴ makes the diagonal matter
+// (Jacobi cuts its iterations); 64 000 unknowns put the kernels on the
+// worker pool; refreshes every 7 iterations with a tolerance that forces
+// replacements exercise the path where z must be recomputed.
+func TestCGFusedJacobi(t *testing.T) {
+	side := 40
+	if cgRace {
+		side = 12 // the race detector's runtime is ~10× slower; keep it small
+	}
+	a := stencil.Jump3D(side, 1e4)
+	n := a.Rows
+	b := cgMul(a, cgOnes(n))
+	jac, err := precond.NewJacobi(a)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, st := range []krylov.Settings{{RelTol: 1e-10}, {RelTol: 1e-13, RefreshEvery: 7}} {
+		var xs [3][]float64
+		var hs [3]*cgHistory
+		var rs [3]krylov.Result
+		for i, m := range []krylov.Preconditioner{jac, cgPlainJacobi{jac}, cgDotJacobi{jac}} {
+			xs[i], hs[i] = make([]float64, n), &cgHistory{}
+			s := st
+			s.Recorder = hs[i]
+			rs[i], err = krylov.CG(context.Background(), a, b, xs[i], m, s)
+			if err != nil {
+				t.Fatal(err)
+			}
+		}
+		if rs[0].Status != krylov.Converged && rs[0].Status != krylov.Stagnated {
+			t.Fatalf("rtol %g: %v after %d iterations", st.RelTol, rs[0].Status, rs[0].Iterations)
+		}
+		for i := 1; i < 3; i++ {
+			if rs[i].Iterations != rs[0].Iterations || rs[i].Status != rs[0].Status ||
+				math.Float64bits(rs[i].TrueResidualNorm) != math.Float64bits(rs[0].TrueResidualNorm) {
+				t.Fatalf("rtol %g path %d: %v after %d iterations (‖r‖ %g), fused: %v after %d (‖r‖ %g)", st.RelTol, i,
+					rs[i].Status, rs[i].Iterations, rs[i].TrueResidualNorm, rs[0].Status, rs[0].Iterations, rs[0].TrueResidualNorm)
+			}
+			for k := range xs[0] {
+				if math.Float64bits(xs[i][k]) != math.Float64bits(xs[0][k]) {
+					t.Fatalf("rtol %g path %d: x[%d] %v, fused %v", st.RelTol, i, k, xs[i][k], xs[0][k])
+				}
+			}
+			for k, row := range hs[0].rows {
+				if math.Float64bits(hs[i].rows[k].ResidualNorm) != math.Float64bits(row.ResidualNorm) {
+					t.Fatalf("rtol %g path %d: residual at iteration %d differs", st.RelTol, i, row.Iteration)
+				}
+			}
+		}
 	}
 }

@@ -10,6 +10,7 @@ import "github.com/residua/residua/sparse"
 //
 //	q = A·p and pᵀq            (*sparse.CSR).MulVecDot, or MulVec then Dot
 //	r −= α·q and rᵀr            sparse.AxpyDot
+//	r −= α·q, z = d∘r, rᵀr, rᵀz sparse.AxpyDiagDot (a DiagonalPreconditioner)
 //	x += α·p, p = z + β·p       sparse.Step
 //	r = b − A·x and rᵀr         (*sparse.CSR).Residual, or MulVec, Triad, Dot
 //	z = M⁻¹·r and rᵀz           PreconditionDot, or Precondition then Dot
@@ -26,18 +27,42 @@ type residualer interface {
 	Residual(dst, b, x []float64) float64
 }
 
+// residualBounder is an operator that can bound the rounding error of its
+// computed residual b − A·x, as *sparse.CSR does (CSR.ResidualBound).
+type residualBounder interface {
+	ResidualBound(x, b []float64) float64
+}
+
 // cgOperator is A with the fused forms it offers looked up once per solve.
 type cgOperator struct {
 	a   Operator
-	mvd mulVecDotter // nil when A has no fused product
-	res residualer   // nil when A has no fused residual
+	mvd mulVecDotter    // nil when A has no fused product
+	res residualer      // nil when A has no fused residual
+	rb  residualBounder // nil when A cannot bound its residual's rounding
 }
 
 func newCGOperator(a Operator) cgOperator {
 	op := cgOperator{a: a}
 	op.mvd, _ = a.(mulVecDotter)
 	op.res, _ = a.(residualer)
+	op.rb, _ = a.(residualBounder)
 	return op
+}
+
+// roundoffLevel returns the level below which the true residual norm of x
+// is rounding noise: a bound on the rounding error of computing b − A·x
+// (see CSR.ResidualBound, after Higham, Accuracy and Stability of Numerical
+// Algorithms, 2nd ed., §3.1 and §12.1). An operator that cannot give the
+// bound, which needs |A|·|x|, gets (n + 1)·u·(‖b‖₂ + ‖A·x‖₂), the normwise
+// form of the same bound for a dense row of n entries with ‖A·x‖ standing
+// in for ‖|A|·|x|‖ (it is no larger) and bounded by ‖b‖₂ + ‖b − A·x‖₂.
+// bnorm is ‖b‖₂ and tnorm ‖b − A·x‖₂.
+func (op *cgOperator) roundoffLevel(x, b []float64, bnorm, tnorm float64) float64 {
+	if op.rb != nil {
+		return op.rb.ResidualBound(x, b)
+	}
+	n := float64(len(b))
+	return (n + 1) * 0x1p-53 * (2*bnorm + tnorm)
 }
 
 // mulVecDot sets q = A·p and returns pᵀq.

@@ -42,6 +42,19 @@ type DotPreconditioner interface {
 	PreconditionDot(dst, r []float64) float64
 }
 
+// DiagonalPreconditioner is a Preconditioner that is a diagonal matrix,
+// M⁻¹ = diag(d) (precond.Jacobi is one). CG detects it and fuses the apply
+// z = d∘r into the sweep that updates the residual, with both inner products
+// (sparse.AxpyDiagDot): a Jacobi-preconditioned iteration then moves one
+// diagonal and one vector more than a plain one, instead of three extra
+// passes. InverseDiagonal returns d, of the operator's order, which the
+// caller must not modify; its results must equal Precondition's bit for bit
+// (z[i] = r[i]·d[i]).
+type DiagonalPreconditioner interface {
+	Preconditioner
+	InverseDiagonal() []float64
+}
+
 // Status says how a solve ended. Only Converged means the answer met the
 // tolerance. IterationLimit, TimeLimit and Stagnated are normal outcomes that
 // come with a nil error; Breakdown always comes with a *BreakdownError saying
@@ -233,4 +246,18 @@ type Result struct {
 	LSQ *LSQResult
 	// MINRES holds what only MINRES reports; nil for the other methods.
 	MINRES *MINRESResult
+	// Stagnation names the rule that ended a CG solve with status
+	// Stagnated (StagnationDrift or StagnationRoundoff); "" otherwise.
+	Stagnation string
 }
+
+// CG's stagnation rules, as reported in Result.Stagnation (see the package
+// documentation and the constants beside them in cg.go).
+const (
+	// StagnationDrift: the recursive residual kept falling while the true
+	// one b − A·x stopped following it.
+	StagnationDrift = "drift"
+	// StagnationRoundoff: the true residual sat at the rounding level of
+	// b − A·x without falling further.
+	StagnationRoundoff = "roundoff"
+)

@@ -362,3 +362,59 @@ func (m *IC0) backward(z []float64, lo, hi int) {
 		q = p
 	}
 }
+
+// PreconditionBlock applies M⁻¹ to the k columns of the row-major n×k block
+// r at once (element i of column c at i·k + c), writing dst: the two
+// triangular solves of Precondition, each sweeping the factor once for all
+// k columns (krylov.BlockPreconditioner), so the factor is read once per
+// block instead of once per column. Every column is bitwise Precondition's
+// on that column: each row's subtractions are the same, in the same
+// (increasing column) order. The sweeps run sequentially on the caller,
+// whatever Parallel says. dst and r may be the same slice; nothing is
+// allocated for k ≤ 16. It panics if k < 1 or a length is not n·k.
+func (m *IC0) PreconditionBlock(dst, r []float64, k int) {
+	n := m.n
+	if k < 1 || len(dst) != n*k || len(r) != n*k {
+		panic(fmt.Sprintf("precond: IC0.PreconditionBlock: len(dst)=%d, len(r)=%d, k=%d, want n·k with n=%d", len(dst), len(r), k, n))
+	}
+	var buf [16]float64
+	acc := buf[:]
+	if k > len(buf) {
+		acc = make([]float64, k)
+	}
+	acc = acc[:k]
+	// Forward: (I + L)·w = r, row by row.
+	for i := 0; i < n; i++ {
+		copy(acc, r[i*k:(i+1)*k])
+		p, q := m.lPtr[i], m.lPtr[i+1]
+		cs, vs := m.lCol[p:q], m.lVal[p:q]
+		vs = vs[:len(cs)]
+		for t, j := range cs {
+			v := vs[t]
+			wj := dst[int(j)*k : int(j)*k+k]
+			for c := range acc {
+				acc[c] -= v * wj[c]
+			}
+		}
+		copy(dst[i*k:(i+1)*k], acc)
+	}
+	// Backward: D·(I + L)ᵀ·z = w, from the last row.
+	for i := n - 1; i >= 0; i-- {
+		d := m.dInv[i]
+		zi := dst[i*k : (i+1)*k]
+		for c := range acc {
+			acc[c] = zi[c] * d
+		}
+		p, q := m.uPtr[i], m.uPtr[i+1]
+		cs, vs := m.uCol[p:q], m.uVal[p:q]
+		vs = vs[:len(cs)]
+		for t, j := range cs {
+			v := vs[t]
+			zj := dst[int(j)*k : int(j)*k+k]
+			for c := range acc {
+				acc[c] -= v * zj[c]
+			}
+		}
+		copy(zi, acc)
+	}
+}

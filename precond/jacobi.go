@@ -41,6 +41,22 @@ func (j *Jacobi) Precondition(dst, r []float64) {
 	}
 }
 
+// PreconditionDot sets dst = M⁻¹·r and returns rᵀdst, summed like
+// sparse.Dot(r, dst), on sparse's worker pool (krylov.DotPreconditioner).
+// dst must not be r. It panics on the lengths Precondition panics on.
+func (j *Jacobi) PreconditionDot(dst, r []float64) float64 {
+	n := len(j.inv)
+	if len(dst) != n || len(r) != n {
+		panic(fmt.Sprintf("precond: Jacobi.PreconditionDot: len(dst)=%d, len(r)=%d, want %d", len(dst), len(r), n))
+	}
+	return sparse.DiagDot(dst, j.inv, r)
+}
+
+// InverseDiagonal returns diag(A)⁻¹, the preconditioner's own array, which
+// the caller must not modify: conjugate gradients fuse the apply into their
+// residual update through it (krylov.DiagonalPreconditioner).
+func (j *Jacobi) InverseDiagonal() []float64 { return j.inv }
+
 // Size returns the matrix order n.
 func (j *Jacobi) Size() int { return len(j.inv) }
 

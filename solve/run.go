@@ -187,6 +187,7 @@ func fill(sum *Summary, r *krylov.Result, err error, zeroDiag int) {
 			sum.RecursiveRelativeResidual = NumPtr(r.ResidualNorm / r.RHSNorm)
 		}
 		sum.LambdaMin, sum.LambdaMax = NumPtr(r.LambdaMin), NumPtr(r.LambdaMax)
+		sum.StoppedBy = r.Stagnation
 		st := r.Settings
 		sum.RelTol, sum.AbsTol = NumPtr(st.RelTol), Num(st.AbsTol)
 		sum.MaxIter, sum.TimeLimitSeconds, sum.RefreshEvery = st.MaxIter, Seconds(st.TimeLimit), st.RefreshEvery

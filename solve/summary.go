@@ -7,6 +7,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/residua/residua/krylov"
 )
 
 // Num is a float64 whose JSON form is a number, or for NaN and ±Inf (which
@@ -112,7 +114,10 @@ type Summary struct {
 	// from x, ‖x‖, and the estimate of ‖A‖ (of the scaled operator) made
 	// along the way; the rule met ("residual": a consistent system;
 	// "normal-residual": a least-squares solution); A's zero columns
-	// (0-based).
+	// (0-based). Conjugate gradients use StoppedBy too, for the rule that
+	// ended a stagnated solve: "roundoff" (the true residual sat at the
+	// rounding level of b − A·x) or "drift" (the recursive residual ran
+	// ahead of the true one).
 	ResidualNorm       *Num   `json:"residual_norm,omitempty"`
 	NormalResidualNorm *Num   `json:"normal_residual_norm,omitempty"`
 	XNorm              *Num   `json:"x_norm,omitempty"`
@@ -236,7 +241,14 @@ func Headline(s *Summary) string {
 		if s.Warning == WarnSingular && Method(s.Method) == MINRES {
 			return fmt.Sprintf("stopped after %s of %s: A is singular and b outside its range, %s is the least-squares level (see the warning)", its, method, res)
 		}
-		return fmt.Sprintf("stagnated after %s of %s: %s, and rounding keeps it from falling further%s", its, method, res, tolerance)
+		why := "and rounding keeps it from falling further"
+		switch s.StoppedBy {
+		case krylov.StagnationRoundoff:
+			why = "at the rounding level of b − A·x, below which float64 arithmetic cannot push it"
+		case krylov.StagnationDrift:
+			why = "and the true residual no longer follows the recursive one down"
+		}
+		return fmt.Sprintf("stagnated after %s of %s: %s, %s%s", its, method, res, why, tolerance)
 	case Cancelled:
 		return fmt.Sprintf("cancelled after %s of %s: %s", its, method, res)
 	case Breakdown:

@@ -1,6 +1,9 @@
 package sparse
 
-import "unsafe"
+import (
+	"math"
+	"unsafe"
+)
 
 // The serial loops that the parallel kernels run on each block. They are
 // the only places where the arithmetic happens, so the order of every
@@ -183,4 +186,23 @@ func subNormBlock(d, b []float64) float64 {
 		d[i] = b[i] - d[i]
 	}
 	return dotBlock(d, d)
+}
+
+// residualBoundRows returns Σ_i ((w_i + 1)·s_i)² over rows lo..hi, where
+// s_i = Σ_k |a(i, k)|·|x[k]| + |b[i]| and w_i is row i's number of stored
+// entries: the squared first-order bound, in units of the unit roundoff, on
+// the rounding error of row i of b − A·x (see CSR.ResidualBound). The sum
+// over the block runs in row order; it is not on a hot path.
+func residualBoundRows(a *CSR, x, b []float64, lo, hi int) float64 {
+	sum := 0.0
+	for i := lo; i < hi; i++ {
+		p, q := a.RowPtr[i], a.RowPtr[i+1]
+		s := math.Abs(b[i])
+		for k, c := range a.ColIdx[p:q] {
+			s += math.Abs(a.Val[p+k]) * math.Abs(x[c])
+		}
+		w := float64(q-p+1) * s
+		sum += w * w
+	}
+	return sum
 }

@@ -225,3 +225,31 @@ func sameArrays(a, b *CSR) bool {
 	}
 	return true
 }
+
+// unitRoundoff is u = 2⁻⁵³, the unit roundoff of float64 arithmetic with
+// rounding to nearest (Higham, Accuracy and Stability of Numerical
+// Algorithms, 2nd ed., §2.1).
+const unitRoundoff = 0x1p-53
+
+// ResidualBound returns u·‖((w_i + 1)·(|A|·|x| + |b|)_i)_i‖₂, with u the
+// unit roundoff and w_i row i's number of stored entries: a first-order
+// bound on ‖fl(b − A·x) − (b − A·x)‖₂, the rounding error of the residual
+// that Residual computes. Row i of b − A·x is an inner product of length
+// w_i + 1, whose computed value errs by at most γ_{w_i+1}·(|b| + |A|·|x|)_i
+// with γ_m = m·u/(1 − m·u) (Higham, 2nd ed., §3.1, the inner product bound
+// (3.5), applied to the residual as in §12.1; γ_m taken to first order,
+// m·u). A residual whose norm is at this level is rounding noise: by the
+// Oettli–Prager theorem (Higham §7.2) x is then the exact solution of a
+// system whose entries each moved by a few units of roundoff, and no
+// method working in float64 can be expected to push it lower. The rows are
+// split over the worker pool; block sums are added in block order, so the
+// result does not depend on the worker count. Panics if len(x) != Cols,
+// len(b) != Rows, or the arrays fail Validate.
+func (a *CSR) ResidualBound(x, b []float64) float64 {
+	if len(x) != a.Cols || len(b) != a.Rows {
+		panic(fmt.Sprintf("sparse: ResidualBound: %d×%d matrix with len(x) = %d, len(b) = %d",
+			a.Rows, a.Cols, len(x), len(b)))
+	}
+	a.trust("ResidualBound")
+	return unitRoundoff * math.Sqrt(getPool().matOp(job{op: opResidualBound, a: a, d: b, x: x, y: b}))
+}

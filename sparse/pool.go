@@ -65,17 +65,37 @@ const (
 	opStep
 	opTriadDot // minres_vec.go
 	opStep3    // minres_vec.go
+	opResidualBound
+	opDiagDot
+	// Kernels with several sums per block (see multiOp in multi.go).
+	opAxpyDiagDot
+	opBlockMulDot
+	opBlockResidual
+	opBlockAxpyDot
+	opBlockAxpyDiagDot
+	opBlockDot
+	// Block kernels without a sum.
+	opBlockMul
+	opBlockAxpy
+	opBlockTriad
+	opBlockStep
 )
 
 // job is one kernel call's operation and operands. Block sums go to
-// sums[b] for block b.
+// sums[b] for block b, or, for a kernel with nsum > 0 sums per block, to
+// sums[b·nsum : (b+1)·nsum]. The block kernels work on row-major n×k
+// blocks of vectors (k = width) and take per-column scalars from cs and ct.
 type job struct {
 	op      opKind
 	a       *CSR
 	d, x, y []float64
+	z       []float64
 	s, t    float64
 	w       []float64 // fourth vector of opStep3
 	u       float64   // third scalar of opStep3
+	cs, ct  []float64
+	width   int
+	nsum    int
 	sums    []float64
 }
 
@@ -174,7 +194,11 @@ func (c *call) work(k, blk int) {
 			if b >= end {
 				break
 			}
-			c.j.sums[b] = c.j.block(int(b), blk)
+			if ns := c.j.nsum; ns > 0 {
+				c.j.multiBlock(int(b), blk, c.j.sums[int(b)*ns:(int(b)+1)*ns])
+			} else {
+				c.j.sums[b] = c.j.block(int(b), blk)
+			}
 			if c.done.Add(1) == int64(c.nb) {
 				c.finished <- struct{}{}
 			}
@@ -208,6 +232,9 @@ func (p *workerPool) run(c *call) float64 {
 	for spin := 0; spin < 1000 && c.done.Load() < int64(c.nb); spin++ {
 	}
 	<-c.finished
+	if c.j.nsum > 0 {
+		return 0 // multiOp adds the sums column by column
+	}
 	return sumBlocks(c.j.sums)
 }
 
@@ -320,6 +347,13 @@ func rowPartition(bounds, rowPtr []int, rows, blk int) {
 // rowBlock computes rows lo..hi of a matrix kernel and returns the block's
 // sum (zero for MulVec).
 func (j job) rowBlock(lo, hi int) float64 {
+	switch j.op {
+	case opResidualBound:
+		return residualBoundRows(j.a, j.x, j.y, lo, hi)
+	case opBlockMul:
+		mulRowsBlock(j.a, j.d, j.x, j.width, lo, hi)
+		return 0
+	}
 	mulRows(j.a, j.d, j.x, lo, hi)
 	switch j.op {
 	case opMulVecDot:
@@ -338,6 +372,10 @@ func (j job) block(b, blk int) float64 {
 	lo := b * blk
 	if j.a != nil {
 		return j.rowBlock(lo, min(lo+blk, j.a.Rows))
+	}
+	if j.width > 0 {
+		j.blockRows(lo, min(lo+blk, len(j.d)/j.width))
+		return 0
 	}
 	hi := min(lo+blk, len(j.d))
 	switch j.op {
@@ -359,6 +397,13 @@ func (j job) block(b, blk int) float64 {
 		return dotBlock(d, d)
 	case opStep3:
 		step3Block(j.d[lo:hi], j.x[lo:hi], j.y[lo:hi], j.w[lo:hi], j.s, j.t, j.u)
+	case opDiagDot:
+		// d = x∘y (x the diagonal), then yᵀd like Dot(y, d).
+		d, x, y := j.d[lo:hi], j.x[lo:hi], j.y[lo:hi]
+		for i := range d {
+			d[i] = x[i] * y[i]
+		}
+		return dotBlock(y, d)
 	}
 	return 0
 }
