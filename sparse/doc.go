@@ -2,7 +2,10 @@
 // row storage), and the kernels the iterative methods spend their time in:
 // the products y = A·x and y = Aᵀ·x, fused products that also return a dot
 // product, and the vector sweeps of conjugate gradients. It also reports on
-// a matrix's structure and numerics (Analyze) before a solve.
+// a matrix's structure and numerics (Analyze) before a solve. Mul,
+// MulTrans and Galerkin form sparse matrix-matrix products (C = A·B,
+// Aᵀ·B, Pᵀ·A·P) for set-up work such as multigrid coarse operators and
+// Schur complements; spgemm.go explains their two passes.
 //
 // # Storage
 //
