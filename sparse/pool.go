@@ -63,6 +63,8 @@ const (
 	opAxpyDot
 	opTriad
 	opStep
+	opDiagInit // amgvec.go
+	opDiagStep // amgvec.go
 )
 
 // job is one kernel call's operation and operands. Block sums go to
@@ -72,6 +74,7 @@ type job struct {
 	a       *CSR
 	d, x, y []float64
 	s, t    float64
+	w       []float64 // fourth vector of opDiagInit and opDiagStep
 	sums    []float64
 }
 
@@ -349,6 +352,10 @@ func (j job) block(b, blk int) float64 {
 		triadBlock(j.d[lo:hi], j.x[lo:hi], j.y[lo:hi], j.s)
 	case opStep:
 		stepBlock(j.d[lo:hi], j.x[lo:hi], j.y[lo:hi], j.s, j.t)
+	case opDiagInit:
+		diagInitBlock(j.d[lo:hi], j.x[lo:hi], j.w[lo:hi], j.y[lo:hi], j.s)
+	case opDiagStep:
+		diagStepBlock(j.d[lo:hi], j.x[lo:hi], j.w[lo:hi], j.y[lo:hi], j.s, j.t)
 	}
 	return 0
 }
