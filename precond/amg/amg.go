@@ -472,3 +472,20 @@ func (h *AMG) coarseSolve(x, b, y []float64) {
 		}
 	}
 }
+
+// LevelMatrices are one level's operator and its prolongator to the next
+// coarser level (nil on the coarsest), as Levels returns them.
+type LevelMatrices struct {
+	A, P *sparse.CSR
+}
+
+// Levels returns the hierarchy's matrices, finest first. They belong to
+// the preconditioner and must not be modified; the finest A is the matrix
+// New was given.
+func (h *AMG) Levels() []LevelMatrices {
+	out := make([]LevelMatrices, len(h.levels))
+	for l, lv := range h.levels {
+		out[l] = LevelMatrices{A: lv.a, P: lv.p}
+	}
+	return out
+}

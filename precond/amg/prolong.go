@@ -22,7 +22,8 @@ import (
 // columns; it keeps its m unknowns as they are (a block of the identity
 // in P_tent) and passes its rows of B down unchanged.
 //
-// It returns P_tent, the coarse near-null space B_c (nc×k, row-major) and
+// Unknowns of nodes in no aggregate (agg −1: isolated nodes) get empty
+// rows. It returns P_tent, the coarse near-null space B_c (nc×k, row-major) and
 // the coarse nodes: the coarse unknowns of each aggregate form one node
 // (nil when every aggregate has one coarse unknown).
 func tentative(n, k int, b []float64, nd *nodes, agg []int32, na int) (*sparse.CSR, []float64, *nodes) {
@@ -33,15 +34,20 @@ func tentative(n, k int, b []float64, nd *nodes, agg []int32, na int) (*sparse.C
 		nodeOf = func(i int) int32 { return nd.of[i] }
 	}
 	for i := range n {
-		aptr[agg[nodeOf(i)]+1]++
+		if a := agg[nodeOf(i)]; a >= 0 {
+			aptr[a+1]++
+		}
 	}
 	for a := range na {
 		aptr[a+1] += aptr[a]
 	}
-	members := make([]int32, n)
+	members := make([]int32, aptr[na])
 	next := append([]int(nil), aptr[:na]...)
 	for i := range n {
 		a := agg[nodeOf(i)]
+		if a < 0 {
+			continue
+		}
 		members[next[a]] = int32(i)
 		next[a]++
 	}
@@ -53,8 +59,9 @@ func tentative(n, k int, b []float64, nd *nodes, agg []int32, na int) (*sparse.C
 	nc := cptr[na]
 	p := &sparse.CSR{Rows: n, Cols: nc, RowPtr: make([]int, n+1)}
 	for i := range n {
-		a := agg[nodeOf(i)]
-		p.RowPtr[i+1] = cptr[a+1] - cptr[a]
+		if a := agg[nodeOf(i)]; a >= 0 {
+			p.RowPtr[i+1] = cptr[a+1] - cptr[a]
+		}
 	}
 	for i := range n {
 		p.RowPtr[i+1] += p.RowPtr[i]
