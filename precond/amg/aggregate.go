@@ -226,10 +226,29 @@ func filtered(a *sparse.CSR, nd *nodes, g *graph) *sparse.CSR {
 	for j := range mark {
 		mark[j] = -1
 	}
+	// A first pass counts the weak entries, so that a matrix without any
+	// (every Poisson problem) is returned as it is, without a copy.
 	weak := 0
+	for i := 0; i < a.Rows; i++ {
+		I := nodeOf(int32(i))
+		for _, J := range g.adj[g.ptr[I]:g.ptr[I+1]] {
+			mark[J] = int32(i)
+		}
+		for p := a.RowPtr[i]; p < a.RowPtr[i+1]; p++ {
+			if J := nodeOf(a.ColIdx[p]); J != I && mark[J] != int32(i) {
+				weak++
+			}
+		}
+	}
+	if weak == 0 {
+		return a
+	}
+	for j := range mark {
+		mark[j] = -1
+	}
 	f := &sparse.CSR{Rows: a.Rows, Cols: a.Cols, RowPtr: make([]int, a.Rows+1)}
-	f.ColIdx = make([]int32, 0, a.NNZ())
-	f.Val = make([]float64, 0, a.NNZ())
+	f.ColIdx = make([]int32, 0, a.NNZ()-weak)
+	f.Val = make([]float64, 0, a.NNZ()-weak)
 	for i := 0; i < a.Rows; i++ {
 		I := nodeOf(int32(i))
 		for _, J := range g.adj[g.ptr[I]:g.ptr[I+1]] {
@@ -247,16 +266,12 @@ func filtered(a *sparse.CSR, nd *nodes, g *graph) *sparse.CSR {
 				f.Val = append(f.Val, a.Val[p])
 			} else {
 				lumped += a.Val[p]
-				weak++
 			}
 		}
 		if dpos >= 0 {
 			f.Val[dpos] += lumped
 		}
 		f.RowPtr[i+1] = len(f.Val)
-	}
-	if weak == 0 {
-		return a
 	}
 	return f
 }

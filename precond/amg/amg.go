@@ -114,12 +114,15 @@ type AMG struct {
 	levels []level
 	// Coarsest level: the dense Cholesky factor L (row-major, n×n, lower
 	// triangle used), or nil when the coarsest level is smoothed instead.
-	chol  []float64
-	nc    int
-	rep   Report
-	mu    sync.Mutex // guards free
-	free  []*work
-	bytes int64
+	chol []float64
+	nc   int
+	rep  Report
+	// lmaxKnown[l] is level l's λmax(D⁻¹A) when the prolongator's
+	// smoothing already estimated it (zero otherwise); set-up only.
+	lmaxKnown []float64
+	mu        sync.Mutex // guards free
+	free      []*work
+	bytes     int64
 }
 
 // New builds the hierarchy for the SPD matrix a (full symmetric storage),
@@ -170,7 +173,15 @@ func New(a *sparse.CSR, opt Options) (*AMG, error) {
 				break
 			}
 		}
-		omega := 4 / (3 * maxEigDinvA(af, df))
+		rho := maxEigDinvA(af, df)
+		if af == cur && h.opt.Smoother == Chebyshev {
+			// No weak connections: D_F⁻¹A_F is the smoother's D⁻¹A, whose
+			// estimate the Chebyshev set-up can reuse.
+			h.lmaxKnown = append(h.lmaxKnown, rho)
+		} else {
+			h.lmaxKnown = append(h.lmaxKnown, 0)
+		}
+		omega := 4 / (3 * rho)
 		p := smoothProlongator(af, pt, omega)
 		r := p.Transpose()
 		ac := symmetrize(sparse.Mul(r, sparse.Mul(cur, p)))
@@ -297,7 +308,11 @@ func (h *AMG) setupSmoother(l int) error {
 	}
 	switch h.opt.Smoother {
 	case Chebyshev:
-		lv.lmax = maxEigDinvA(a, d)
+		if l < len(h.lmaxKnown) && h.lmaxKnown[l] > 0 {
+			lv.lmax = h.lmaxKnown[l]
+		} else {
+			lv.lmax = maxEigDinvA(a, d)
+		}
 		lv.cheb = newChebyshev(lv.lmax, h.opt.Degree)
 		for i, v := range d {
 			d[i] = 1 / v
