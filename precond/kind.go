@@ -18,10 +18,13 @@ const (
 	// KindAuto: chosen from the matrix by the rule in the package
 	// documentation.
 	KindAuto Kind = "auto"
+	// KindAMG: smoothed-aggregation algebraic multigrid, one V-cycle per
+	// application (package precond/amg).
+	KindAMG Kind = "amg"
 )
 
 // Kinds lists every kind in the order the documentation gives them.
-var Kinds = []Kind{KindNone, KindJacobi, KindIC0, KindAuto}
+var Kinds = []Kind{KindNone, KindJacobi, KindIC0, KindAMG, KindAuto}
 
 // ParseKind returns the Kind named s. It accepts exactly the names above
 // and returns an error that lists them for anything else.
@@ -31,5 +34,5 @@ func ParseKind(s string) (Kind, error) {
 			return k, nil
 		}
 	}
-	return "", fmt.Errorf("precond: unknown preconditioner %q (want one of none, jacobi, ic0, auto)", s)
+	return "", fmt.Errorf("precond: unknown preconditioner %q (want one of none, jacobi, ic0, amg, auto)", s)
 }

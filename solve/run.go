@@ -63,7 +63,10 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 	}
 	s.zeroDiag = zeroDiagonal(m.A)
 	kind, _ := precond.ParseKind(req.Preconditioner)
-	c, err := precond.New(m.A, kind)
+	if nn := req.AMG.NearNull; nn != nil && len(nn.Values) != m.A.Rows*nn.K {
+		return nil, fieldErr("near_null", "%d rows of %d vectors for a matrix of %d rows", len(nn.Values)/nn.K, nn.K, m.A.Rows)
+	}
+	c, err := precond.NewWithOptions(m.A, kind, precond.Options{AMG: req.AMG.options()})
 	if err != nil {
 		return nil, &SetupError{Preconditioner: req.Preconditioner, Err: err}
 	}
@@ -129,6 +132,7 @@ func (s *Setup) Summary() Summary {
 	bytes := c.Bytes
 	sum.PreconditionerBytes = &bytes
 	sum.SetupSeconds = Seconds(c.Setup)
+	sum.Multigrid = c.AMG
 	return sum
 }
 

@@ -55,6 +55,11 @@ func writeSummary(w io.Writer, r *solve.Summary) {
 		pc += ", reused from the server's cache"
 	}
 	fmt.Fprintf(w, "  preconditioner    %s\n", pc)
+	if mg := r.Multigrid; mg != nil {
+		for _, line := range strings.Split(mg.String(), "\n") {
+			fmt.Fprintf(w, "    %s\n", strings.TrimSpace(line))
+		}
+	}
 	if r.Status == string(solve.SetupFailed) || r.Status == string(solve.Refused) {
 		return
 	}

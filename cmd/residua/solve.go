@@ -60,6 +60,8 @@ returns; follow it with 'residua watch JOB'.`
 // solveOpts are the flags shared by solve, lsq and demo.
 type solveOpts struct {
 	b, x0, precond  string
+	amg             solve.AMGOptions // --amg-* flags of solve
+	nearNull        string           // --near-null file
 	rtol, atol      float64
 	maxIter         int
 	timeLimit       time.Duration
@@ -88,14 +90,19 @@ func addOutputFlags(f *cmdFlags, o *solveOpts) {
 
 // request turns the flags into the solve layer's request.
 func (o *solveOpts) request() solve.Request {
-	return solve.Request{Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit}
+	return solve.Request{Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit, AMG: o.amg}
 }
 
 // flagOf names the command-line flag of a request setting (the flags are
 // the settings' names with dashes, except for the preconditioner).
 func flagOf(field string) string {
-	if field == "preconditioner" {
+	switch field {
+	case "preconditioner":
 		return "precond"
+	case "amg":
+		return "amg-theta, --amg-smoother, --amg-degree, --block-size or --near-null"
+	case "amg_block_size":
+		return "block-size"
 	}
 	return strings.ReplaceAll(field, "_", "-")
 }
@@ -128,10 +135,11 @@ func checkOutputFlags(cmd string, o *solveOpts) error {
 
 func runSolve(ctx context.Context, e *env, args []string) error {
 	o := &solveOpts{}
-	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--precond auto|none|jacobi|ic0] [flags]", solveAbout)
+	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--precond auto|none|jacobi|ic0|amg] [flags]", solveAbout)
 	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
-	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi or ic0")
+	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi, ic0 or amg")
+	addAMGFlags(f, o)
 	addRunFlags(f, o)
 	so := &serverOpts{}
 	addServerFlags(f, so)
@@ -142,6 +150,13 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 	}
 	if len(pos) != 1 {
 		return usageErrorf("solve: want one matrix file, got %d arguments (run 'residua solve --help')", len(pos))
+	}
+	if o.nearNull != "" {
+		nn, err := readNearNull(o.nearNull)
+		if err != nil {
+			return err
+		}
+		o.amg.NearNull = nn
 	}
 	req, err := checkRequest("solve", o.request())
 	if err != nil {
