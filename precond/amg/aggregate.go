@@ -3,6 +3,7 @@ package amg
 import (
 	"math"
 
+	"github.com/residua/residua/internal/hugepage"
 	"github.com/residua/residua/sparse"
 )
 
@@ -109,21 +110,35 @@ func strength(a *sparse.CSR, nd *nodes, theta float64) *graph {
 func scalarStrength(a *sparse.CSR, theta float64) *graph {
 	n := a.Rows
 	d := a.Diagonal(nil)
-	g := &graph{ptr: make([]int, n+1), adj: make([]int32, 0, max(0, a.NNZ()-n)), w: make([]float64, 0, max(0, a.NNZ()-n))}
+	for i, v := range d {
+		d[i] = math.Abs(v)
+	}
+	m := max(0, a.NNZ()-n)
+	g := &graph{ptr: make([]int, n+1), adj: make([]int32, m), w: make([]float64, m)}
+	hugepage.Advise(g.adj)
+	hugepage.Advise(g.w)
+	// Squares on both sides: a_ij² ≥ θ²·|a_ii·a_jj|, no square root; the
+	// strength recorded is then the square of the normalised one, which
+	// orders connections the same way.
+	t2 := theta * theta
+	k := 0
 	for i := range n {
+		di := d[i]
 		for p := a.RowPtr[i]; p < a.RowPtr[i+1]; p++ {
 			j := a.ColIdx[p]
 			if int(j) == i {
 				continue
 			}
-			ref := math.Sqrt(math.Abs(d[i] * d[j]))
-			if v := math.Abs(a.Val[p]); v >= theta*ref && ref > 0 {
-				g.adj = append(g.adj, j)
-				g.w = append(g.w, v/ref)
+			ref := di * d[j]
+			if v := a.Val[p] * a.Val[p]; v >= t2*ref && ref > 0 {
+				g.adj[k] = j
+				g.w[k] = v / ref
+				k++
 			}
 		}
-		g.ptr[i+1] = len(g.adj)
+		g.ptr[i+1] = k
 	}
+	g.adj, g.w = g.adj[:k], g.w[:k]
 	return g
 }
 

@@ -184,7 +184,7 @@ func New(a *sparse.CSR, opt Options) (*AMG, error) {
 		omega := 4 / (3 * rho)
 		p := smoothProlongator(af, pt, omega)
 		r := p.Transpose()
-		ac := symmetrize(sparse.Mul(r, sparse.Mul(cur, p)))
+		ac := sparse.Mul(r, sparse.Mul(cur, p))
 		h.levels = append(h.levels, level{a: cur, p: p, r: r, theta: theta, omega: omega})
 		cur, nd, b, theta = ac, cnd, bc, theta/2
 	}
@@ -281,18 +281,6 @@ func checkDiagonal(a *sparse.CSR) error {
 		}
 	}
 	return nil
-}
-
-// symmetrize replaces c_ij and c_ji by their mean, so that a Galerkin
-// product whose two triangles were summed in different orders is exactly
-// symmetric (x + y and y + x are the same double). c's pattern must be
-// symmetric, which Pᵀ·A·P's is for symmetric A.
-func symmetrize(c *sparse.CSR) *sparse.CSR {
-	t := c.Transpose()
-	for p := range c.Val {
-		c.Val[p] = (c.Val[p] + t.Val[p]) / 2
-	}
-	return c
 }
 
 // setupSmoother fills level l's inverted diagonal and, for Chebyshev, its

@@ -23,8 +23,8 @@
 //   - Smoothing: P = (I − ω·D_F⁻¹·A_F)·P_tent with A_F the filtered matrix
 //     (weak connections lumped onto the diagonal) and ω = 4/(3·ρ(D_F⁻¹A_F)),
 //     ρ estimated by 10 Lanczos steps (smooth.go).
-//   - Coarse operator A_c = Pᵀ·A·P by sparse.Mul, made exactly symmetric
-//     by averaging the two triangles.
+//   - Coarse operator A_c = Pᵀ·A·P by sparse.Mul (symmetric to rounding:
+//     its two triangles are summed in different orders).
 //   - Stall rule: if a coarse level would keep more than 80% of the finer
 //     level's unknowns (StallRatio), coarsening stops at the finer level.
 //   - The coarsest level is solved exactly by dense Cholesky (gonum); New
