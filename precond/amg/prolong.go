@@ -109,6 +109,8 @@ func tentative(n, k int, b []float64, nd *nodes, agg []int32, na int) (*sparse.C
 				}
 			}
 			qr.Factorize(blk)
+			q.Reset() // aggregates differ in size: let QTo and RTo resize
+			r.Reset()
 			qr.QTo(&q)
 			qr.RTo(&r)
 			for c := range k {
