@@ -157,6 +157,16 @@ func brickStiffness(h, e, nu float64) []float64 {
 			}
 		}
 	}
+	// Bᵀ·D·B sums its (r, c) and (c, r) entries in different orders: make
+	// the element matrix symmetric bit for bit, so that the assembled
+	// matrix is too (both triangles summed over the same elements in the
+	// same order).
+	for r := range 24 {
+		for c := r + 1; c < 24; c++ {
+			v := (ke[r*24+c] + ke[c*24+r]) / 2
+			ke[r*24+c], ke[c*24+r] = v, v
+		}
+	}
 	return ke
 }
 
