@@ -166,6 +166,11 @@ func runSolve(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	so.resolve()
+	if so.addr != "" && req.AMG != (solve.AMGOptions{}) {
+		// The service's SolveRequest has no fields for them yet: refuse
+		// rather than solve with options silently dropped.
+		return usageErrorf("solve: --amg-theta, --amg-smoother, --amg-degree, --block-size and --near-null are not sent to a server yet; solve locally, or use the defaults with --server")
+	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)
 	}
