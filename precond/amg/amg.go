@@ -122,7 +122,6 @@ type AMG struct {
 	lmaxKnown []float64
 	mu        sync.Mutex // guards free
 	free      []*work
-	bytes     int64
 }
 
 // New builds the hierarchy for the SPD matrix a (full symmetric storage),
