@@ -74,6 +74,22 @@ func spdShared(t *testing.T) ([]shared.Entry, []*sparse.CSR) {
 	return es, as
 }
 
+// slow lists the shared matrices whose AMG solves take over a second
+// under the race detector; they run without -short and -race.
+var slow = map[string]bool{
+	"bcsstk13": true, "bcsstk15": true, "bcsstk16": true, "bcsstk18": true, "bcsstk25": true,
+	"bcsstk28": true, "plat362": true, "plat1919": true, "mhd4800b": true, "bcsstk21": true,
+}
+
+func skipSlow(t *testing.T, name string, rows int) {
+	if slow[name] && (testing.Short() || raceEnabled) {
+		t.Skip("slow solve; runs without -short and -race")
+	}
+	if raceEnabled && rows > 1000 {
+		t.Skip("over 1000 rows: runs without -race")
+	}
+}
+
 // smallCoarse makes even the small shared matrices multilevel: with the
 // default 2000 rows most of them would be one level, solved exactly.
 var smallCoarse = amg.Options{MaxCoarse: 40}
@@ -93,6 +109,7 @@ func TestSymmetricPositiveDefinite(t *testing.T) {
 		a := as[k]
 		for _, sm := range []amg.Smoother{amg.Chebyshev, amg.L1Jacobi} {
 			t.Run(e.Name+"/"+string(sm), func(t *testing.T) {
+				skipSlow(t, e.Name, a.Rows)
 				opt := smallCoarse
 				opt.Smoother = sm
 				h, err := amg.New(a, opt)
@@ -136,6 +153,7 @@ func TestSharedConverge(t *testing.T) {
 			opt  amg.Options
 		}{{"default", amg.Options{}}, {"coarse40", smallCoarse}} {
 			t.Run(e.Name+"/"+oc.name, func(t *testing.T) {
+				skipSlow(t, e.Name, a.Rows)
 				h, err := amg.New(a, oc.opt)
 				if err != nil {
 					t.Fatal(err)
