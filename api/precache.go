@@ -16,9 +16,15 @@ type setupEntry struct {
 	err   error
 }
 
-// setupKey keys a set-up by the matrix and the settings it was built with.
+// setupKey keys a set-up by the matrix and the settings it was built with:
+// the preconditioner and, for multigrid, its options (near-null space by
+// its hash).
 func setupKey(matrixID string, r solve.Request) key {
-	return key{kind: kindSetup, id: matrixID, sub: r.SetupKey()}
+	sub := r.SetupKey()
+	if k := r.AMG.Key(); k != "" {
+		sub += " " + k
+	}
+	return key{kind: kindSetup, id: matrixID, sub: sub}
 }
 
 // prepare returns the job's set-up, pinned: for least squares made now

@@ -6,6 +6,7 @@ import (
 	"math"
 	"time"
 
+	"github.com/residua/residua/precond/amg"
 	"github.com/residua/residua/sparse"
 )
 
@@ -13,8 +14,8 @@ import (
 // why. It is built once and reused across solves (M is safe for concurrent
 // use).
 type Choice struct {
-	// Kind is the preconditioner built: KindNone, KindJacobi or KindIC0,
-	// never KindAuto.
+	// Kind is the preconditioner built: KindNone, KindJacobi, KindIC0 or
+	// KindAMG, never KindAuto.
 	Kind Kind
 	// Reason says in words why Kind was built, e.g.
 	// "ic0: factorization succeeded with shift 0".
@@ -32,6 +33,15 @@ type Choice struct {
 	// M applies the preconditioner; nil for KindNone, so that CG runs
 	// unpreconditioned.
 	M interface{ Precondition(dst, r []float64) }
+	// AMG is the multigrid set-up report (KindAMG only, nil otherwise).
+	AMG *amg.Report
+}
+
+// Options are the settings of the kinds that have any; the zero value
+// gives every default.
+type Options struct {
+	// AMG configures KindAMG (and AMG when KindAuto chooses it).
+	AMG amg.Options
 }
 
 // Thresholds of the automatic rule; see the package documentation.
@@ -44,6 +54,9 @@ const (
 	// AutoFlatDiagonal: a diagonal whose largest entry is at most this
 	// multiple of its smallest counts as nearly constant.
 	AutoFlatDiagonal = 1e3
+	// AutoAMGRows is the order from which auto chooses AMG for a weakly
+	// diagonally dominant Z-matrix.
+	AutoAMGRows = 1 << 20
 )
 
 // New builds the preconditioner of the given kind for the square matrix a,
@@ -53,6 +66,13 @@ const (
 // (such a matrix is not SPD), a *BreakdownError when KindIC0 finds no
 // shift, and an error for an unknown kind.
 func New(a *sparse.CSR, kind Kind) (*Choice, error) {
+	return NewWithOptions(a, kind, Options{})
+}
+
+// NewWithOptions is New with the options of the kinds that take them. It
+// also returns the errors of amg.New (wrapping amg.ErrNotSPD or
+// amg.ErrOptions) for KindAMG.
+func NewWithOptions(a *sparse.CSR, kind Kind, opt Options) (*Choice, error) {
 	start := time.Now()
 	var c *Choice
 	var err error
@@ -70,8 +90,10 @@ func New(a *sparse.CSR, kind Kind) (*Choice, error) {
 		if err == nil {
 			c = ic0Choice(m, fmt.Sprintf("ic0: as requested; factorization succeeded with shift %g after %d %s", m.Shift(), m.Tries(), plural(m.Tries(), "try", "tries")))
 		}
+	case KindAMG:
+		c, err = amgChoice(a, opt.AMG, "amg: as requested")
 	case KindAuto:
-		c, err = auto(a)
+		c, err = auto(a, opt)
 	case KindBlock:
 		if a.Rows == 0 && a.Cols == 0 {
 			c = &Choice{Kind: KindBlock, Reason: "block: an empty matrix has nothing to precondition"}
@@ -85,7 +107,7 @@ func New(a *sparse.CSR, kind Kind) (*Choice, error) {
 				bd.Split(), a.Rows-bd.Split(), bd.HChoice.Reason, bd.SChoice.Reason)}
 		}
 	default:
-		return nil, fmt.Errorf("precond: unknown preconditioner kind %q (want one of none, jacobi, ic0, auto, block)", string(kind))
+		return nil, fmt.Errorf("precond: unknown preconditioner kind %q (want one of none, jacobi, ic0, amg, auto, block)", string(kind))
 	}
 	if err != nil {
 		return nil, err
@@ -102,6 +124,27 @@ func newJacobiChoice(a *sparse.CSR, reason string) (*Choice, error) {
 	return &Choice{Kind: KindJacobi, Reason: reason, Bytes: j.Bytes(), M: j}, nil
 }
 
+func amgChoice(a *sparse.CSR, opt amg.Options, reason string) (*Choice, error) {
+	if err := squareWithDiagonal(a); err != nil {
+		return nil, err
+	}
+	h, err := amg.New(a, opt)
+	if err != nil {
+		return nil, err
+	}
+	rep := h.Report()
+	return &Choice{Kind: KindAMG, Reason: fmt.Sprintf("%s; %d levels, operator complexity %.2f", reason, len(rep.Levels), rep.OperatorComplexity),
+		Bytes: h.Bytes(), M: h, AMG: &rep}, nil
+}
+
+// squareWithDiagonal returns the *DiagonalError of the first unusable
+// diagonal entry, as the other kinds do, so that every kind refuses a
+// matrix that is not SPD by its diagonal in the same words.
+func squareWithDiagonal(a *sparse.CSR) error {
+	_, err := diagonal(a)
+	return err
+}
+
 func ic0Choice(m *IC0, reason string) *Choice {
 	return &Choice{Kind: KindIC0, Reason: reason, Shift: m.Shift(), Tries: m.Tries(), Bytes: m.Bytes(), M: m}
 }
@@ -113,6 +156,11 @@ type diagonalSummary struct {
 	min, max  float64
 	dominance float64 // max_i Σ_{j≠i} |a_ij| / a_ii
 	offDiag   bool
+	// positiveOff counts off-diagonal entries > 0; deficient counts rows
+	// whose sum Σ_j a_ij is below −1e-12·a_ii (not weakly diagonally
+	// dominant). Both zero: A is a weakly diagonally dominant Z-matrix,
+	// like a scalar diffusion operator.
+	positiveOff, deficient int
 }
 
 func summarize(a *sparse.CSR) (diagonalSummary, error) {
@@ -121,18 +169,26 @@ func summarize(a *sparse.CSR) (diagonalSummary, error) {
 		return s, fmt.Errorf("precond: %w (%d×%d)", ErrNotSquare, a.Rows, a.Cols)
 	}
 	for i := 0; i < a.Rows; i++ {
-		var d, off float64
+		var d, off, sum float64
 		present := false
 		for p := a.RowPtr[i]; p < a.RowPtr[i+1]; p++ {
+			v := a.Val[p]
+			sum += v
 			if int(a.ColIdx[p]) == i {
-				d, present = a.Val[p], true
+				d, present = v, true
 			} else {
-				off += math.Abs(a.Val[p])
+				off += math.Abs(v)
 				s.offDiag = true
+				if v > 0 {
+					s.positiveOff++
+				}
 			}
 		}
 		if err := checkDiagonal(i, d, present); err != nil {
 			return s, err
+		}
+		if sum < -1e-12*d {
+			s.deficient++
 		}
 		s.min, s.max = math.Min(s.min, d), math.Max(s.max, d)
 		s.dominance = math.Max(s.dominance, off/d)
@@ -141,7 +197,7 @@ func summarize(a *sparse.CSR) (diagonalSummary, error) {
 }
 
 // auto implements the rule documented in doc.go, step by step.
-func auto(a *sparse.CSR) (*Choice, error) {
+func auto(a *sparse.CSR, opt Options) (*Choice, error) {
 	s, err := summarize(a)
 	if err != nil {
 		return nil, err
@@ -155,6 +211,15 @@ func auto(a *sparse.CSR) (*Choice, error) {
 	if s.dominance <= AutoDominance {
 		return newJacobiChoice(a, fmt.Sprintf("jacobi: every row is diagonally dominant (off-diagonal sum ≤ %.3g × diagonal), so the Jacobi-preconditioned condition number is at most %.3g (Gershgorin) and IC(0) cannot save much",
 			s.dominance, (1+s.dominance)/(1-s.dominance)))
+	}
+	if a.Rows >= AutoAMGRows && s.positiveOff == 0 && s.deficient == 0 {
+		c, err := amgChoice(a, opt.AMG, fmt.Sprintf("amg: %d rows (≥ %d) of a weakly diagonally dominant matrix with no positive off-diagonal entry, like a diffusion operator, whose constant vector smoothed aggregation coarsens well: CG's iterations grow with the grid and AMG's do not, which pays for its set-up and its dearer iteration at this size",
+			a.Rows, AutoAMGRows))
+		if err == nil {
+			return c, nil
+		}
+		// A multigrid set-up that fails (a coarsest level that is not SPD)
+		// falls through to the rules below.
 	}
 	// Shifts 0, 1e-3, 1e-2, 1e-1: stop at AutoMaxShift.
 	tries := 1 + int(math.Round(math.Log10(AutoMaxShift/DefaultFirstShift))) + 1

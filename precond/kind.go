@@ -21,10 +21,13 @@ const (
 	// KindBlock: the block-diagonal preconditioner of a saddle-point matrix
 	// with a zero (2,2) block (type BlockDiagonal), for MINRES.
 	KindBlock Kind = "block"
+	// KindAMG: smoothed-aggregation algebraic multigrid, one V-cycle per
+	// application (package precond/amg).
+	KindAMG Kind = "amg"
 )
 
 // Kinds lists every kind in the order the documentation gives them.
-var Kinds = []Kind{KindNone, KindJacobi, KindIC0, KindAuto, KindBlock}
+var Kinds = []Kind{KindNone, KindJacobi, KindIC0, KindAMG, KindAuto, KindBlock}
 
 // ParseKind returns the Kind named s. It accepts exactly the names above
 // and returns an error that lists them for anything else.
@@ -34,5 +37,5 @@ func ParseKind(s string) (Kind, error) {
 			return k, nil
 		}
 	}
-	return "", fmt.Errorf("precond: unknown preconditioner %q (want one of none, jacobi, ic0, auto, block)", s)
+	return "", fmt.Errorf("precond: unknown preconditioner %q (want one of none, jacobi, ic0, amg, auto, block)", s)
 }

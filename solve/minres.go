@@ -111,7 +111,7 @@ func (s *Setup) prepareSystem(kind precond.Kind) error {
 	if s.Request.Method == MINRES {
 		c, err = minresChoice(a, kind)
 	} else {
-		c, err = precond.New(a, kind)
+		c, err = precond.NewWithOptions(a, kind, precond.Options{AMG: s.Request.AMG.options()})
 	}
 	if err != nil {
 		return &SetupError{Preconditioner: s.Request.Preconditioner, Err: err}

@@ -1,6 +1,8 @@
 package solve
 
 import (
+	"crypto/sha256"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"math"
@@ -8,6 +10,7 @@ import (
 
 	"github.com/residua/residua/krylov"
 	"github.com/residua/residua/precond"
+	"github.com/residua/residua/precond/amg"
 	"github.com/residua/residua/sparse"
 )
 
@@ -49,6 +52,99 @@ type Request struct {
 	// auto records that Validate resolved Method from Auto, so that
 	// Prepare may still switch a system to MINRES (see Auto).
 	auto bool
+	// AMG holds the multigrid options, taken by Preconditioner "amg" (and
+	// by "auto" when it chooses AMG); the zero value gives every default.
+	AMG AMGOptions
+}
+
+// AMGOptions are a request's smoothed-aggregation settings (precond/amg
+// documents each and its default).
+type AMGOptions struct {
+	// Theta is the strength threshold θ, 0 < θ < 1; 0 means 0.08.
+	Theta float64
+	// Smoother is "chebyshev" (default, also "") or "l1jacobi".
+	Smoother string
+	// Degree is the Chebyshev degree, 1 to 8; 0 means 2.
+	Degree int
+	// NearNull is the near-null space; nil means the constant vector. (A
+	// pointer keeps Request comparable.)
+	NearNull *NearNull
+	// BlockSize is the number of consecutive unknowns per node (3 for 3D
+	// elasticity); 0 means 1.
+	BlockSize int
+}
+
+// NearNull is a near-null space of K vectors, row-major: row i's entries
+// are Values[i·K : (i+1)·K].
+type NearNull struct {
+	K      int
+	Values []float64
+}
+
+// set reports whether any option differs from its default.
+func (o AMGOptions) set() bool {
+	return o.Theta != 0 || o.Smoother != "" || o.Degree != 0 || o.NearNull != nil || o.BlockSize != 0
+}
+
+// options returns the options in precond/amg's form.
+func (o AMGOptions) options() amg.Options {
+	opt := amg.Options{Theta: o.Theta, Smoother: amg.Smoother(o.Smoother), Degree: o.Degree, BlockSize: o.BlockSize}
+	if o.NearNull != nil {
+		opt.NearNull, opt.K = o.NearNull.Values, o.NearNull.K
+	}
+	return opt
+}
+
+// Key returns a string that identifies the options, for caching a set-up:
+// two requests with the same key build the same preconditioner. The
+// near-null space enters by its SHA-256.
+func (o AMGOptions) Key() string {
+	if !o.set() {
+		return ""
+	}
+	h := sha256.New()
+	k := 0
+	if o.NearNull != nil {
+		k = o.NearNull.K
+		var buf [8]byte
+		for _, v := range o.NearNull.Values {
+			binary.LittleEndian.PutUint64(buf[:], math.Float64bits(v))
+			h.Write(buf[:])
+		}
+	}
+	return fmt.Sprintf("amg θ=%g smoother=%s degree=%d block=%d k=%d nearnull=%x", o.Theta, o.Smoother, o.Degree, o.BlockSize, k, h.Sum(nil)[:12])
+}
+
+func (o AMGOptions) validate(preconditioner string) error {
+	if !o.set() {
+		return nil
+	}
+	if preconditioner != string(precond.KindAMG) && preconditioner != string(precond.KindAuto) {
+		return fieldErr("amg", "multigrid options apply to preconditioner amg (or auto), not %s", preconditioner)
+	}
+	switch {
+	case !(o.Theta >= 0 && o.Theta < 1):
+		return fieldErr("amg_theta", "%v must be in [0, 1) (0 means the default 0.08)", o.Theta)
+	case o.Smoother != "" && o.Smoother != string(amg.Chebyshev) && o.Smoother != string(amg.L1Jacobi):
+		return fieldErr("amg_smoother", "unknown smoother %q (want chebyshev or l1jacobi)", o.Smoother)
+	case o.Degree < 0 || o.Degree > amg.MaxDegree:
+		return fieldErr("amg_degree", "%d must be 1 to %d (0 means the default 2)", o.Degree, amg.MaxDegree)
+	case o.BlockSize < 0:
+		return fieldErr("amg_block_size", "%d must not be negative (0 means 1)", o.BlockSize)
+	case o.NearNull == nil:
+		return nil
+	case o.NearNull.K < 1 || o.NearNull.K > 64:
+		return fieldErr("near_null", "%d vectors, want 1 to 64", o.NearNull.K)
+	case len(o.NearNull.Values)%o.NearNull.K != 0:
+		return fieldErr("near_null", "%d entries are not a whole number of rows of %d vectors", len(o.NearNull.Values), o.NearNull.K)
+	}
+	k := o.NearNull.K
+	for i, v := range o.NearNull.Values {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fieldErr("near_null", "row %d, vector %d is %v", i/k+1, i%k+1, v)
+		}
+	}
+	return nil
 }
 
 // FieldError is a request setting that Validate refused. Field is the
@@ -110,6 +206,9 @@ func (r Request) Validate() (Request, error) {
 		r.Method = MINRES // only MINRES takes the saddle-point preconditioner
 	} else if k == precond.KindBlock && m == CG {
 		return r, fieldErr("preconditioner", "block (the saddle-point preconditioner) is for minres; conjugate gradients needs a positive definite matrix, which a saddle-point matrix is not")
+	}
+	if err := r.AMG.validate(r.Preconditioner); err != nil {
+		return r, err
 	}
 	for _, f := range []struct {
 		name string

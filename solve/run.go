@@ -74,6 +74,9 @@ func Prepare(m Matrix, req Request) (*Setup, error) {
 	}
 	s.zeroDiag = zeroDiagonal(m.A)
 	kind, _ := precond.ParseKind(req.Preconditioner)
+	if nn := req.AMG.NearNull; nn != nil && len(nn.Values) != m.A.Rows*nn.K {
+		return nil, fieldErr("near_null", "%d rows of %d vectors for a matrix of %d rows", len(nn.Values)/nn.K, nn.K, m.A.Rows)
+	}
 	if err := s.prepareSystem(kind); err != nil {
 		return nil, err
 	}
@@ -164,6 +167,7 @@ func (s *Setup) Summary() Summary {
 	bytes := c.Bytes
 	sum.PreconditionerBytes = &bytes
 	sum.SetupSeconds = Seconds(c.Setup)
+	sum.Multigrid = c.AMG
 	return sum
 }
 

@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond/amg"
 )
 
 // Num is a float64 whose JSON form is a number, or for NaN and ±Inf (which
@@ -131,6 +132,11 @@ type Summary struct {
 	Shift                *Num   `json:"shift,omitempty"` // IC(0)'s diagonal shift
 	ShiftTries           int    `json:"shift_tries,omitempty"`
 	PreconditionerBytes  *int64 `json:"preconditioner_bytes,omitempty"`
+	// Multigrid is AMG's set-up report (precond/amg.Report): levels,
+	// rows and entries per level, operator and grid complexity, set-up
+	// seconds and fine products, an application's cost in fine
+	// products, memory held. Only for the amg preconditioner.
+	Multigrid *amg.Report `json:"multigrid,omitempty"`
 
 	// Timings.
 	ReadSeconds         Num  `json:"read_seconds"`

@@ -79,6 +79,8 @@ const (
 	opBlockAxpy
 	opBlockTriad
 	opBlockStep
+	opDiagInit // amgvec.go
+	opDiagStep // amgvec.go
 )
 
 // job is one kernel call's operation and operands. Block sums go to
@@ -91,7 +93,7 @@ type job struct {
 	d, x, y []float64
 	z       []float64
 	s, t    float64
-	w       []float64 // fourth vector of opStep3
+	w       []float64 // fourth vector of opStep3, opDiagInit and opDiagStep
 	u       float64   // third scalar of opStep3
 	cs, ct  []float64
 	width   int
@@ -404,6 +406,10 @@ func (j job) block(b, blk int) float64 {
 			d[i] = x[i] * y[i]
 		}
 		return dotBlock(y, d)
+	case opDiagInit:
+		diagInitBlock(j.d[lo:hi], j.x[lo:hi], j.w[lo:hi], j.y[lo:hi], j.s)
+	case opDiagStep:
+		diagStepBlock(j.d[lo:hi], j.x[lo:hi], j.w[lo:hi], j.y[lo:hi], j.s, j.t)
 	}
 	return 0
 }

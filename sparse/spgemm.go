@@ -5,6 +5,8 @@ import (
 	"runtime"
 	"slices"
 	"sync/atomic"
+
+	"github.com/residua/residua/internal/hugepage"
 )
 
 // Sparse matrix-matrix products: C = A·B (Mul), C = Aᵀ·B (MulTrans) and the
@@ -92,6 +94,7 @@ func mulWorkers(a, b *CSR, w int) *CSR {
 	a.trust("Mul")
 	b.trust("Mul")
 	c := &CSR{Rows: a.Rows, Cols: b.Cols, RowPtr: make([]int, a.Rows+1)}
+	hugepage.Advise(c.RowPtr) // before the first write: see internal/hugepage
 	if a.Rows == 0 {
 		return c
 	}
@@ -141,6 +144,8 @@ func mulWorkers(a, b *CSR, w int) *CSR {
 	nnz := c.RowPtr[a.Rows]
 	c.ColIdx = make([]int32, nnz)
 	c.Val = make([]float64, nnz)
+	hugepage.Advise(c.ColIdx)
+	hugepage.Advise(c.Val)
 
 	// Pass 2, numeric: row i's columns go straight into its slot of
 	// ColIdx, in order of first appearance, then are sorted; the sums come

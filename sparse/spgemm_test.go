@@ -216,3 +216,31 @@ func BenchmarkGalerkin(b *testing.B) {
 		Galerkin(a, p)
 	}
 }
+
+// TestDiagSweeps checks DiagInit and DiagStep against their definitions,
+// written as plain loops, on lengths on both sides of the block size and
+// the inline threshold.
+func TestDiagSweeps(t *testing.T) {
+	t.Parallel()
+	for _, n := range []int{0, 1, 2047, 2049, 1 << 16} {
+		w, r := randVec(n, 1), randVec(n, 2)
+		x, d := randVec(n, 3), randVec(n, 4)
+		wantX, wantD := append([]float64(nil), x...), append([]float64(nil), d...)
+		for i := range wantX {
+			wantD[i] = 0.5*wantD[i] + 1.5*w[i]*r[i]
+			wantX[i] += wantD[i]
+		}
+		DiagStep(x, d, w, r, 0.5, 1.5)
+		for i := range x {
+			if x[i] != wantX[i] || d[i] != wantD[i] {
+				t.Fatalf("n=%d: DiagStep at %d: x %g d %g, want %g %g", n, i, x[i], d[i], wantX[i], wantD[i])
+			}
+		}
+		DiagInit(x, d, w, r, 2)
+		for i := range x {
+			if want := 2 * w[i] * r[i]; x[i] != want || d[i] != want {
+				t.Fatalf("n=%d: DiagInit at %d: x %g d %g, want %g", n, i, x[i], d[i], want)
+			}
+		}
+	}
+}

@@ -1,15 +1,19 @@
 package main
 
 import (
+	"bufio"
 	"context"
 	"flag"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
+	"github.com/residua/residua/internal/atomicfile"
 	"github.com/residua/residua/matrixio"
 	"github.com/residua/residua/sparse"
 	"github.com/residua/residua/sparse/stencil"
@@ -18,7 +22,7 @@ import (
 func init() {
 	register(&command{
 		name:    "generate",
-		summary: "write a model problem (Poisson, 27-point, anisotropic, jumping coefficients) as Matrix Market",
+		summary: "write a model problem (Poisson, 27-point, anisotropic, jumping coefficients, elasticity) as Matrix Market",
 		run:     runGenerate,
 	})
 }
@@ -40,6 +44,12 @@ symmetric, lower triangle only. KIND is one of:
                  per row (default 4, fixed --seed), c = --reg (default 0: a zero
                  (2,2) block): symmetric indefinite, for 'residua solve' (MINRES)
   saddle3d       the same with H the poisson3d matrix
+  elasticity3d   3D linear elasticity on the unit cube in N×N×N trilinear brick
+                 elements (Hughes, The Finite Element Method, 1987), material
+                 --young and --poisson, the face x = 0 clamped: 3·N·(N+1)²
+                 unknowns, three per node; --near-null FILE also writes its six
+                 rigid-body modes (for solve --precond amg --block-size 3
+                 --near-null FILE)
 
 With --rhs, also writes b = A·1 as a Matrix Market array, so the solution of
 A·x = b is known to be all ones. Both files are written atomically (a
@@ -59,6 +69,9 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 	f.IntVar(&so.perRow, "per-row", 4, "saddle2d, saddle3d: entries per constraint row")
 	f.Uint64Var(&so.seed, "seed", 1, "saddle2d, saddle3d: seed of the random constraints")
 	f.Float64Var(&so.reg, "reg", 0, "saddle2d, saddle3d: c ≥ 0 in the (2,2) block −c·I")
+	young := f.Float64("young", stencil.DefaultYoung, "elasticity3d: Young's modulus")
+	poisson := f.Float64("poisson", stencil.DefaultPoisson, "elasticity3d: Poisson's ratio, in (-1, 0.5)")
+	nearNull := f.String("near-null", "", "elasticity3d: also write the rigid-body modes, an N-row 6-column Matrix Market array, to this `file`")
 	pos, err := f.parse(e, args)
 	if err != nil {
 		return err
@@ -86,6 +99,17 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 	if set["contrast"] && kind != "jump3d" {
 		return usageErrorf("generate: --contrast applies to jump3d only")
 	}
+	for _, name := range []string{"young", "poisson", "near-null"} {
+		if set[name] && kind != "elasticity3d" {
+			return usageErrorf("generate: --%s applies to elasticity3d only", name)
+		}
+	}
+	if !(*young > 0) || math.IsInf(*young, 0) {
+		return usageErrorf("generate: --young %v must be positive and finite", *young)
+	}
+	if !(*poisson > -1 && *poisson < 0.5) {
+		return usageErrorf("generate: --poisson %v must lie in (-1, 0.5)", *poisson)
+	}
 	for name, v := range map[string]float64{"kx": *kx, "ky": *ky, "kz": *kz, "contrast": *contrast} {
 		if !(v > 0) || math.IsInf(v, 0) {
 			return usageErrorf("generate: --%s %v must be positive and finite", name, v)
@@ -95,9 +119,19 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 		return usageErrorf("generate: --size N is required")
 	}
 	var a *sparse.CSR
-	if slices.Contains(saddleKinds, kind) {
+	switch {
+	case slices.Contains(saddleKinds, kind):
 		a, err = buildSaddle(kind, *size, so)
-	} else {
+	case kind == "elasticity3d":
+		switch n := *size; {
+		case n < 1:
+			err = fmt.Errorf("elements per side %d must be at least 1", n)
+		case 3*float64(n)*float64(n+1)*float64(n+1) > sparse.MaxDim:
+			err = fmt.Errorf("elasticity3d with %d elements per side has more than %d unknowns", n, sparse.MaxDim)
+		default:
+			a = stencil.Elasticity3D(n, *young, *poisson)
+		}
+	default:
 		a, err = buildProblem(kind, *size, *kx, *ky, *kz, *contrast)
 	}
 	if err != nil {
@@ -124,7 +158,34 @@ func runGenerate(ctx context.Context, e *env, args []string) error {
 		}
 		fmt.Fprintf(e.stdout, "wrote %s: b = A·1, so the solution of A·x = b is all ones\n", *rhs)
 	}
+	if *nearNull != "" {
+		if err := writeArray(*nearNull, stencil.RigidBodyModes(*size), a.Rows, 6); err != nil {
+			return fmt.Errorf("generate: writing %s: %w", *nearNull, err)
+		}
+		fmt.Fprintf(e.stdout, "wrote %s: the six rigid-body modes (translations along x, y, z; rotations about z, x, y), %d×6\n", *nearNull, a.Rows)
+	}
 	return nil
+}
+
+// writeArray writes the row-major rows×cols matrix v as a Matrix Market
+// array file (real general; entries column by column, as the format
+// defines), atomically.
+func writeArray(path string, v []float64, rows, cols int) error {
+	return atomicfile.Write(path, func(w io.Writer) error {
+		bw := bufio.NewWriterSize(w, 1<<16)
+		fmt.Fprintf(bw, "%%%%MatrixMarket matrix array real general\n%d %d\n", rows, cols)
+		buf := make([]byte, 0, 32)
+		for c := range cols {
+			for r := range rows {
+				buf = strconv.AppendFloat(buf[:0], v[r*cols+c], 'g', -1, 64)
+				buf = append(buf, '\n')
+				if _, err := bw.Write(buf); err != nil {
+					return err
+				}
+			}
+		}
+		return bw.Flush()
+	})
 }
 
 // buildProblem returns the named model problem, checking the grid side

@@ -80,6 +80,11 @@ func summaryLines(w io.Writer, r *solve.Summary) {
 		fmt.Fprintf(w, "  method            %s\n", r.MethodReason)
 	}
 	fmt.Fprintf(w, "  preconditioner    %s\n", pc)
+	if mg := r.Multigrid; mg != nil {
+		for _, line := range strings.Split(mg.String(), "\n") {
+			fmt.Fprintf(w, "    %s\n", strings.TrimSpace(line))
+		}
+	}
 	if r.Status == string(solve.SetupFailed) || r.Status == string(solve.Refused) {
 		return
 	}

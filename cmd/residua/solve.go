@@ -74,7 +74,9 @@ returns; follow it with 'residua watch JOB'.`
 type solveOpts struct {
 	mostlyEmpty     bool // --allow-mostly-empty
 	b, x0, precond  string
-	method          string // solve's --method: auto, cg or minres
+	method          string           // solve's --method: auto, cg or minres
+	amg             solve.AMGOptions // --amg-* flags of solve
+	nearNull        string           // --near-null file
 	rtol, atol      float64
 	maxIter         int
 	timeLimit       time.Duration
@@ -111,14 +113,19 @@ func addOutputFlags(f *cmdFlags, o *solveOpts) {
 
 // request turns the flags into the solve layer's request.
 func (o *solveOpts) request() solve.Request {
-	return solve.Request{Method: solve.Method(o.method), Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit}
+	return solve.Request{Method: solve.Method(o.method), Preconditioner: o.precond, RelTol: o.rtol, AbsTol: o.atol, MaxIter: o.maxIter, TimeLimit: o.timeLimit, AMG: o.amg}
 }
 
 // flagOf names the command-line flag of a request setting (the flags are
 // the settings' names with dashes, except for the preconditioner).
 func flagOf(field string) string {
-	if field == "preconditioner" {
+	switch field {
+	case "preconditioner":
 		return "precond"
+	case "amg":
+		return "amg-theta, --amg-smoother, --amg-degree, --block-size or --near-null"
+	case "amg_block_size":
+		return "block-size"
 	}
 	return strings.ReplaceAll(field, "_", "-")
 }
@@ -151,14 +158,15 @@ func checkOutputFlags(cmd string, o *solveOpts) error {
 
 func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	o := &solveOpts{}
-	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--method auto|cg|minres] [--precond auto|none|jacobi|ic0|block] [flags]", solveAbout)
+	f := newFlags("solve", "residua solve A.mtx [-b b.mtx] [--x0 x0.mtx] [--method auto|cg|minres] [--precond auto|none|jacobi|ic0|amg|block] [flags]", solveAbout)
 	f.StringVar(&o.b, "b", "", "right-hand side `file` (default: the bundle's NAME_b.mtx, else b = A·1)")
 	f.StringVar(&o.x0, "x0", "", "starting guess `file` (default zero)")
 	f.StringVar(&o.method, "method", "auto", "iteration `method`: auto (CG, or MINRES when A's diagonal or a CG breakdown shows it is not positive definite), cg, or minres (any symmetric A)")
-	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi (with minres: on |diag(A)|), ic0, or block (minres on a saddle-point matrix with a zero (2,2) block)")
+	f.StringVar(&o.precond, "precond", "auto", "preconditioner `kind`: auto, none, jacobi (with minres: on |diag(A)|), ic0, amg (smoothed-aggregation multigrid), or block (minres on a saddle-point matrix with a zero (2,2) block)")
 	no := &normalOpts{}
 	f.StringVar(&no.weights, "weights", "", "solve the normal equations (B·diag(d)·Bᵀ + δI)·y = r instead: the matrix file is B, this vector `file` holds d (one weight ≥ 0 per column of B), -b holds r (default r = N·1)")
 	f.Float64Var(&no.reg, "reg", 0, "with --weights: the regularisation δ ≥ 0 added to the diagonal of B·diag(d)·Bᵀ")
+	addAMGFlags(f, o)
 	addRunFlags(f, o)
 	addCheckpointFlags(f, &o.ck)
 	so := &serverOpts{}
@@ -174,6 +182,13 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 	}
 	if m := solve.Method(o.method); m.LeastSquares() {
 		return usageErrorf("solve: --method %s: solves least squares; use 'residua lsq --method %s'", o.method, o.method)
+	}
+	if o.nearNull != "" {
+		nn, err := readNearNull(o.nearNull)
+		if err != nil {
+			return err
+		}
+		o.amg.NearNull = nn
 	}
 	req, err := checkRequest("solve", o.request())
 	if err != nil {
@@ -197,6 +212,11 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 			return usageErrorf("solve: --weights runs locally only: the service does not take normal-equations weights yet")
 		}
 		return solveNormal(ctx, e, pos[0], req, o, no)
+	}
+	if so.addr != "" && req.AMG != (solve.AMGOptions{}) {
+		// The service's SolveRequest has no fields for them yet: refuse
+		// rather than solve with options silently dropped.
+		return usageErrorf("solve: --amg-theta, --amg-smoother, --amg-degree, --block-size and --near-null are not sent to a server yet; solve locally, or use the defaults with --server")
 	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)

@@ -20,13 +20,14 @@ const (
 
 // Names lists the problem names Generate accepts, in a stable order.
 func Names() []string {
-	return []string{"poisson2d", "poisson3d", "stencil27", "anisotropic3d", "jump3d"}
+	return []string{"poisson2d", "poisson3d", "stencil27", "anisotropic3d", "jump3d", "elasticity3d"}
 }
 
 // Generate builds the named model problem with n grid points per side:
 // "poisson2d" (Poisson2D), "poisson3d" (Poisson3D), "stencil27" (Stencil27),
 // "anisotropic3d" (Anisotropic3D with DefaultKX, DefaultKY, DefaultKZ) or
-// "jump3d" (Jump3D with DefaultContrast). It returns an error, rather than
+// "jump3d" (Jump3D with DefaultContrast) or "elasticity3d" (Elasticity3D
+// with n elements per side, DefaultYoung and DefaultPoisson). It returns an error, rather than
 // panicking, for an unknown name, n < 1 or a grid with more than
 // sparse.MaxDim points, since these come from users.
 func Generate(name string, n int) (*sparse.CSR, error) {
@@ -35,6 +36,11 @@ func Generate(name string, n int) (*sparse.CSR, error) {
 	case "poisson2d":
 		dim = 2
 	case "poisson3d", "stencil27", "anisotropic3d", "jump3d":
+	case "elasticity3d":
+		if n < 1 || 3*float64(n)*float64(n+1)*float64(n+1) > sparse.MaxDim {
+			return nil, fmt.Errorf("stencil: elasticity3d with %d elements per side must have 1 to %d unknowns", n, sparse.MaxDim)
+		}
+		return Elasticity3D(n, DefaultYoung, DefaultPoisson), nil
 	default:
 		return nil, fmt.Errorf("stencil: unknown problem %q (known: %v)", name, Names())
 	}

@@ -1,0 +1,5 @@
+//go:build !race
+
+package amg_test
+
+const raceEnabled = false
