@@ -8,6 +8,7 @@ import (
 	"google.golang.org/protobuf/types/known/durationpb"
 
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond/amg"
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/solve"
 )
@@ -40,6 +41,7 @@ func Result(s *solve.Summary) *pb.SolveResult {
 		Matrix: s.Matrix, MatrixId: s.MatrixID, Rows: int64(s.Rows), Cols: int64(s.Cols), Nonzeros: int64(s.Nonzeros),
 		MethodReason: s.MethodReason,
 		Operator:     s.Operator, WeightRatio: f64(s.WeightRatio), Regularization: f64(s.Regularization),
+		Multigrid: multigridMessage(s.Multigrid),
 	}
 	for _, c := range s.ZeroColumns {
 		r.ZeroColumns = append(r.ZeroColumns, int64(c))
@@ -81,6 +83,7 @@ func Summary(r *pb.SolveResult) solve.Summary {
 		Matrix: r.GetMatrix(), MatrixID: r.GetMatrixId(), Rows: int(r.GetRows()), Cols: int(r.GetCols()), Nonzeros: int(r.GetNonzeros()),
 		MethodReason: r.GetMethodReason(),
 		Operator:     r.GetOperator(), WeightRatio: num(r.WeightRatio), Regularization: num(r.Regularization),
+		Multigrid: multigridReport(r.GetMultigrid()),
 	}
 	for _, c := range r.GetZeroColumns() {
 		s.ZeroColumns = append(s.ZeroColumns, int(c))
@@ -142,6 +145,10 @@ func FillRequest(dst *pb.SolveRequest, r solve.Request) {
 	if r.TimeLimit > 0 {
 		dst.TimeLimit = durationpb.New(r.TimeLimit)
 	}
+	dst.Amg = nil
+	if o := r.AMG; o.Theta != 0 || o.Smoother != "" || o.Degree != 0 || o.BlockSize != 0 {
+		dst.Amg = &pb.AMGOptions{Theta: o.Theta, Smoother: o.Smoother, Degree: int32(o.Degree), BlockSize: int32(o.BlockSize)}
+	}
 }
 
 // Request reads the solve settings of a wire request, unvalidated (call
@@ -168,7 +175,44 @@ func Request(req *pb.SolveRequest) (solve.Request, error) {
 		}
 		r.TimeLimit = d.AsDuration()
 	}
+	if o := req.GetAmg(); o != nil {
+		r.AMG = solve.AMGOptions{Theta: o.GetTheta(), Smoother: o.GetSmoother(), Degree: int(o.GetDegree()), BlockSize: int(o.GetBlockSize())}
+	}
 	return r, nil
+}
+
+// multigridMessage converts an AMG set-up report to the wire's (nil for
+// none).
+func multigridMessage(m *amg.Report) *pb.MultigridReport {
+	if m == nil {
+		return nil
+	}
+	r := &pb.MultigridReport{
+		Smoother: string(m.Smoother), Degree: int32(m.Degree), Theta: m.Theta, NearNullVectors: int32(m.K),
+		Coarsest: m.Coarsest, OperatorComplexity: m.OperatorComplexity, GridComplexity: m.GridComplexity,
+		SetupSeconds: m.SetupSeconds, SetupSpmvs: m.SetupSpMVs, ApplySpmvs: m.ApplySpMVs, Bytes: m.Bytes,
+	}
+	for _, l := range m.Levels {
+		r.Levels = append(r.Levels, &pb.MultigridLevel{Rows: int64(l.Rows), Nnz: int64(l.NNZ), Theta: l.Theta, Omega: l.Omega, LambdaMax: l.LambdaMax})
+	}
+	return r
+}
+
+// multigridReport converts the wire's multigrid report back (nil for
+// none).
+func multigridReport(r *pb.MultigridReport) *amg.Report {
+	if r == nil {
+		return nil
+	}
+	m := &amg.Report{
+		Smoother: amg.Smoother(r.GetSmoother()), Degree: int(r.GetDegree()), Theta: r.GetTheta(), K: int(r.GetNearNullVectors()),
+		Coarsest: r.GetCoarsest(), OperatorComplexity: r.GetOperatorComplexity(), GridComplexity: r.GetGridComplexity(),
+		SetupSeconds: r.GetSetupSeconds(), SetupSpMVs: r.GetSetupSpmvs(), ApplySpMVs: r.GetApplySpmvs(), Bytes: r.GetBytes(),
+	}
+	for _, l := range r.GetLevels() {
+		m.Levels = append(m.Levels, amg.Level{Rows: int(l.GetRows()), NNZ: int(l.GetNnz()), Theta: l.GetTheta(), Omega: l.GetOmega(), LambdaMax: l.GetLambdaMax()})
+	}
+	return m
 }
 
 // State returns the word for a job state ("queued", "running", "done").

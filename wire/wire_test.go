@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/residua/residua/krylov"
+	"github.com/residua/residua/precond/amg"
 	pb "github.com/residua/residua/proto/residua/v1"
 	"github.com/residua/residua/solve"
 	"github.com/residua/residua/sparse"
@@ -46,9 +47,6 @@ var frontEndOnly = map[string]bool{
 	"RHS": true, "Server": true, "JobID": true, "MatrixUploaded": true, "ReadSeconds": true, "UploadSeconds": true,
 	"ErrorVsOnes": true, "SolutionFile": true, "HistoryFile": true, "PlotFile": true, "SolutionNote": true,
 	"CheckpointFile": true,
-	// The multigrid set-up report is not in the result message yet: a
-	// remote summary lacks it (issue 10's note says so).
-	"Multigrid": true,
 }
 
 // fillAll sets every exported field of v to a distinct non-zero value.
@@ -292,3 +290,22 @@ func TestMatrixID(t *testing.T) {
 
 func le64(v uint64) []byte { return binary.LittleEndian.AppendUint64(nil, v) }
 func le32(v uint32) []byte { return binary.LittleEndian.AppendUint32(nil, v) }
+
+// The multigrid set-up report and the AMG options cross the wire whole.
+func TestMultigridRoundTrip(t *testing.T) {
+	t.Parallel()
+	rep := &amg.Report{Smoother: amg.Chebyshev, Degree: 2, Theta: 0.08, K: 6, Coarsest: "cholesky",
+		OperatorComplexity: 1.6, GridComplexity: 1.1, SetupSeconds: 2, SetupSpMVs: 40, ApplySpMVs: 7.7, Bytes: 1 << 20,
+		Levels: []amg.Level{{Rows: 1000, NNZ: 6400, Theta: 0.08, Omega: 0.6, LambdaMax: 1.9}, {Rows: 40, NNZ: 900}}}
+	back := Summary(Result(&solve.Summary{Multigrid: rep}))
+	if !reflect.DeepEqual(back.Multigrid, rep) {
+		t.Errorf("multigrid report: sent %+v, received %+v", rep, back.Multigrid)
+	}
+	req := solve.Request{Preconditioner: "amg", AMG: solve.AMGOptions{Theta: 0.2, Smoother: "l1jacobi", Degree: 3, BlockSize: 3}}
+	var m pb.SolveRequest
+	FillRequest(&m, req)
+	got, err := Request(&m)
+	if err != nil || got.AMG != req.AMG {
+		t.Errorf("AMG options: sent %+v, received %+v (%v)", req.AMG, got.AMG, err)
+	}
+}

@@ -8,6 +8,7 @@ import (
 	"net"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/residua/residua/api"
@@ -135,5 +136,38 @@ func TestSeveralRightHandSides(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// TestAMGRemote: the multigrid options reach the server and its set-up
+// report comes back: a remote solve with --precond amg and the l1-Jacobi
+// smoother reports the same hierarchy, smoother and iterations as the
+// same solve here; a near-null space, which the request cannot carry yet,
+// is refused rather than dropped.
+func TestAMGRemote(t *testing.T) {
+	addr := inProcessServer(t)
+	path := sharedMatrix(t, "bcsstk16.mtx.gz")
+	args := []string{"solve", path, "--precond", "amg", "--amg-smoother", "l1jacobi", "--amg-theta", "0.1"}
+	local, stderr, code := runJSON(t, args...)
+	if code != 0 {
+		t.Fatalf("local: exit %d: %s", code, stderr)
+	}
+	remote, stderr, code := runJSON(t, append(args, "--server", addr)...)
+	if code != 0 {
+		t.Fatalf("remote: exit %d: %s", code, stderr)
+	}
+	if local.Multigrid == nil || remote.Multigrid == nil {
+		t.Fatalf("multigrid report: local %v, remote %v", local.Multigrid, remote.Multigrid)
+	}
+	if remote.Multigrid.Smoother != "l1jacobi" || remote.Multigrid.Theta != 0.1 || len(remote.Multigrid.Levels) != len(local.Multigrid.Levels) ||
+		remote.Iterations != local.Iterations {
+		t.Errorf("remote %+v (%d iterations), local %+v (%d)", *remote.Multigrid, remote.Iterations, *local.Multigrid, local.Iterations)
+	}
+	nn := filepath.Join(t.TempDir(), "nn.mtx")
+	if err := matrixio.WriteVectorFile(nn, onesVec(4884)); err != nil {
+		t.Fatal(err)
+	}
+	if _, stderr, code := runCLI(t, append(args, "--server", addr, "--near-null", nn, "--quiet")...); code != exitUsage || !strings.Contains(stderr, "not sent to a server") {
+		t.Errorf("--near-null with --server: exit %d, want %d: %s", code, exitUsage, stderr)
 	}
 }

@@ -213,10 +213,11 @@ func runSolve(ctx context.Context, e *env, args []string) (err error) {
 		}
 		return solveNormal(ctx, e, pos[0], req, o, no)
 	}
-	if so.addr != "" && req.AMG != (solve.AMGOptions{}) {
-		// The service's SolveRequest has no fields for them yet: refuse
-		// rather than solve with options silently dropped.
-		return usageErrorf("solve: --amg-theta, --amg-smoother, --amg-degree, --block-size and --near-null are not sent to a server yet; solve locally, or use the defaults with --server")
+	if so.addr != "" && req.AMG.NearNull != nil {
+		// SolveRequest.amg carries θ, the smoother, its degree and the
+		// block size, not a near-null space: refuse rather than solve
+		// with it silently dropped.
+		return usageErrorf("solve: --near-null is not sent to a server yet; solve locally, or leave it out with --server (the other --amg-* options are sent)")
 	}
 	if so.addr != "" {
 		return remoteSolve(ctx, e, pos[0], req, o, so, *detach)

@@ -1102,8 +1102,13 @@ type SolveRequest struct {
 	// pattern the server computes once per B and keeps), or "none". The
 	// result's preconditioner set-up time is this request's own (the
 	// preconditioner depends on d).
-	Weights       *VectorRef `protobuf:"bytes,45,opt,name=weights,proto3" json:"weights,omitempty"`
-	Reg           float64    `protobuf:"fixed64,46,opt,name=reg,proto3" json:"reg,omitempty"`
+	Weights *VectorRef `protobuf:"bytes,45,opt,name=weights,proto3" json:"weights,omitempty"`
+	Reg     float64    `protobuf:"fixed64,46,opt,name=reg,proto3" json:"reg,omitempty"`
+	// Options of the "amg" preconditioner (smoothed-aggregation multigrid);
+	// absent or zero fields take their defaults (precond/amg documents
+	// each). A near-null space other than the constant vector cannot be
+	// sent yet.
+	Amg           *AMGOptions `protobuf:"bytes,47,opt,name=amg,proto3" json:"amg,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1271,6 +1276,297 @@ func (x *SolveRequest) GetReg() float64 {
 	return 0
 }
 
+func (x *SolveRequest) GetAmg() *AMGOptions {
+	if x != nil {
+		return x.Amg
+	}
+	return nil
+}
+
+// AMGOptions are the smoothed-aggregation settings of a solve.
+type AMGOptions struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The strength threshold θ, 0 < θ < 1 (default 0.08).
+	Theta float64 `protobuf:"fixed64,1,opt,name=theta,proto3" json:"theta,omitempty"`
+	// "chebyshev" (default) or "l1jacobi".
+	Smoother string `protobuf:"bytes,2,opt,name=smoother,proto3" json:"smoother,omitempty"`
+	// The Chebyshev degree, 1 to 8 (default 2).
+	Degree int32 `protobuf:"varint,3,opt,name=degree,proto3" json:"degree,omitempty"`
+	// Consecutive unknowns per node, e.g. 3 for 3D elasticity (default 1).
+	BlockSize     int32 `protobuf:"varint,4,opt,name=block_size,json=blockSize,proto3" json:"block_size,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *AMGOptions) Reset() {
+	*x = AMGOptions{}
+	mi := &file_residua_v1_residua_proto_msgTypes[13]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *AMGOptions) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*AMGOptions) ProtoMessage() {}
+
+func (x *AMGOptions) ProtoReflect() protoreflect.Message {
+	mi := &file_residua_v1_residua_proto_msgTypes[13]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use AMGOptions.ProtoReflect.Descriptor instead.
+func (*AMGOptions) Descriptor() ([]byte, []int) {
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{13}
+}
+
+func (x *AMGOptions) GetTheta() float64 {
+	if x != nil {
+		return x.Theta
+	}
+	return 0
+}
+
+func (x *AMGOptions) GetSmoother() string {
+	if x != nil {
+		return x.Smoother
+	}
+	return ""
+}
+
+func (x *AMGOptions) GetDegree() int32 {
+	if x != nil {
+		return x.Degree
+	}
+	return 0
+}
+
+func (x *AMGOptions) GetBlockSize() int32 {
+	if x != nil {
+		return x.BlockSize
+	}
+	return 0
+}
+
+// MultigridLevel is one level of a multigrid hierarchy.
+type MultigridLevel struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Rows          int64                  `protobuf:"varint,1,opt,name=rows,proto3" json:"rows,omitempty"`
+	Nnz           int64                  `protobuf:"varint,2,opt,name=nnz,proto3" json:"nnz,omitempty"`
+	Theta         float64                `protobuf:"fixed64,3,opt,name=theta,proto3" json:"theta,omitempty"`
+	Omega         float64                `protobuf:"fixed64,4,opt,name=omega,proto3" json:"omega,omitempty"`
+	LambdaMax     float64                `protobuf:"fixed64,5,opt,name=lambda_max,json=lambdaMax,proto3" json:"lambda_max,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *MultigridLevel) Reset() {
+	*x = MultigridLevel{}
+	mi := &file_residua_v1_residua_proto_msgTypes[14]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *MultigridLevel) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*MultigridLevel) ProtoMessage() {}
+
+func (x *MultigridLevel) ProtoReflect() protoreflect.Message {
+	mi := &file_residua_v1_residua_proto_msgTypes[14]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use MultigridLevel.ProtoReflect.Descriptor instead.
+func (*MultigridLevel) Descriptor() ([]byte, []int) {
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{14}
+}
+
+func (x *MultigridLevel) GetRows() int64 {
+	if x != nil {
+		return x.Rows
+	}
+	return 0
+}
+
+func (x *MultigridLevel) GetNnz() int64 {
+	if x != nil {
+		return x.Nnz
+	}
+	return 0
+}
+
+func (x *MultigridLevel) GetTheta() float64 {
+	if x != nil {
+		return x.Theta
+	}
+	return 0
+}
+
+func (x *MultigridLevel) GetOmega() float64 {
+	if x != nil {
+		return x.Omega
+	}
+	return 0
+}
+
+func (x *MultigridLevel) GetLambdaMax() float64 {
+	if x != nil {
+		return x.LambdaMax
+	}
+	return 0
+}
+
+// MultigridReport is what an "amg" set-up built and what it costs (the
+// summary's multigrid key).
+type MultigridReport struct {
+	state              protoimpl.MessageState `protogen:"open.v1"`
+	Smoother           string                 `protobuf:"bytes,1,opt,name=smoother,proto3" json:"smoother,omitempty"`
+	Degree             int32                  `protobuf:"varint,2,opt,name=degree,proto3" json:"degree,omitempty"`
+	Theta              float64                `protobuf:"fixed64,3,opt,name=theta,proto3" json:"theta,omitempty"`
+	NearNullVectors    int32                  `protobuf:"varint,4,opt,name=near_null_vectors,json=nearNullVectors,proto3" json:"near_null_vectors,omitempty"`
+	Levels             []*MultigridLevel      `protobuf:"bytes,5,rep,name=levels,proto3" json:"levels,omitempty"`
+	Coarsest           string                 `protobuf:"bytes,6,opt,name=coarsest,proto3" json:"coarsest,omitempty"`
+	OperatorComplexity float64                `protobuf:"fixed64,7,opt,name=operator_complexity,json=operatorComplexity,proto3" json:"operator_complexity,omitempty"`
+	GridComplexity     float64                `protobuf:"fixed64,8,opt,name=grid_complexity,json=gridComplexity,proto3" json:"grid_complexity,omitempty"`
+	SetupSeconds       float64                `protobuf:"fixed64,9,opt,name=setup_seconds,json=setupSeconds,proto3" json:"setup_seconds,omitempty"`
+	SetupSpmvs         float64                `protobuf:"fixed64,10,opt,name=setup_spmvs,json=setupSpmvs,proto3" json:"setup_spmvs,omitempty"`
+	ApplySpmvs         float64                `protobuf:"fixed64,11,opt,name=apply_spmvs,json=applySpmvs,proto3" json:"apply_spmvs,omitempty"`
+	Bytes              int64                  `protobuf:"varint,12,opt,name=bytes,proto3" json:"bytes,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
+}
+
+func (x *MultigridReport) Reset() {
+	*x = MultigridReport{}
+	mi := &file_residua_v1_residua_proto_msgTypes[15]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *MultigridReport) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*MultigridReport) ProtoMessage() {}
+
+func (x *MultigridReport) ProtoReflect() protoreflect.Message {
+	mi := &file_residua_v1_residua_proto_msgTypes[15]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use MultigridReport.ProtoReflect.Descriptor instead.
+func (*MultigridReport) Descriptor() ([]byte, []int) {
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{15}
+}
+
+func (x *MultigridReport) GetSmoother() string {
+	if x != nil {
+		return x.Smoother
+	}
+	return ""
+}
+
+func (x *MultigridReport) GetDegree() int32 {
+	if x != nil {
+		return x.Degree
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetTheta() float64 {
+	if x != nil {
+		return x.Theta
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetNearNullVectors() int32 {
+	if x != nil {
+		return x.NearNullVectors
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetLevels() []*MultigridLevel {
+	if x != nil {
+		return x.Levels
+	}
+	return nil
+}
+
+func (x *MultigridReport) GetCoarsest() string {
+	if x != nil {
+		return x.Coarsest
+	}
+	return ""
+}
+
+func (x *MultigridReport) GetOperatorComplexity() float64 {
+	if x != nil {
+		return x.OperatorComplexity
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetGridComplexity() float64 {
+	if x != nil {
+		return x.GridComplexity
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetSetupSeconds() float64 {
+	if x != nil {
+		return x.SetupSeconds
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetSetupSpmvs() float64 {
+	if x != nil {
+		return x.SetupSpmvs
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetApplySpmvs() float64 {
+	if x != nil {
+		return x.ApplySpmvs
+	}
+	return 0
+}
+
+func (x *MultigridReport) GetBytes() int64 {
+	if x != nil {
+		return x.Bytes
+	}
+	return 0
+}
+
 // JobEvent is one message of a Solve or Watch stream.
 type JobEvent struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -1292,7 +1588,7 @@ type JobEvent struct {
 
 func (x *JobEvent) Reset() {
 	*x = JobEvent{}
-	mi := &file_residua_v1_residua_proto_msgTypes[13]
+	mi := &file_residua_v1_residua_proto_msgTypes[16]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1304,7 +1600,7 @@ func (x *JobEvent) String() string {
 func (*JobEvent) ProtoMessage() {}
 
 func (x *JobEvent) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[13]
+	mi := &file_residua_v1_residua_proto_msgTypes[16]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1317,7 +1613,7 @@ func (x *JobEvent) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use JobEvent.ProtoReflect.Descriptor instead.
 func (*JobEvent) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{13}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{16}
 }
 
 func (x *JobEvent) GetSeq() uint64 {
@@ -1446,7 +1742,7 @@ type Queued struct {
 
 func (x *Queued) Reset() {
 	*x = Queued{}
-	mi := &file_residua_v1_residua_proto_msgTypes[14]
+	mi := &file_residua_v1_residua_proto_msgTypes[17]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1458,7 +1754,7 @@ func (x *Queued) String() string {
 func (*Queued) ProtoMessage() {}
 
 func (x *Queued) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[14]
+	mi := &file_residua_v1_residua_proto_msgTypes[17]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1471,7 +1767,7 @@ func (x *Queued) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Queued.ProtoReflect.Descriptor instead.
 func (*Queued) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{14}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{17}
 }
 
 func (x *Queued) GetPosition() int32 {
@@ -1515,7 +1811,7 @@ type Accepted struct {
 
 func (x *Accepted) Reset() {
 	*x = Accepted{}
-	mi := &file_residua_v1_residua_proto_msgTypes[15]
+	mi := &file_residua_v1_residua_proto_msgTypes[18]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1527,7 +1823,7 @@ func (x *Accepted) String() string {
 func (*Accepted) ProtoMessage() {}
 
 func (x *Accepted) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[15]
+	mi := &file_residua_v1_residua_proto_msgTypes[18]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1540,7 +1836,7 @@ func (x *Accepted) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Accepted.ProtoReflect.Descriptor instead.
 func (*Accepted) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{15}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{18}
 }
 
 func (x *Accepted) GetMatrixId() string {
@@ -1655,7 +1951,7 @@ type Progress struct {
 
 func (x *Progress) Reset() {
 	*x = Progress{}
-	mi := &file_residua_v1_residua_proto_msgTypes[16]
+	mi := &file_residua_v1_residua_proto_msgTypes[19]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1667,7 +1963,7 @@ func (x *Progress) String() string {
 func (*Progress) ProtoMessage() {}
 
 func (x *Progress) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[16]
+	mi := &file_residua_v1_residua_proto_msgTypes[19]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1680,7 +1976,7 @@ func (x *Progress) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Progress.ProtoReflect.Descriptor instead.
 func (*Progress) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{16}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{19}
 }
 
 func (x *Progress) GetRhs() int32 {
@@ -1745,7 +2041,7 @@ type Settings struct {
 
 func (x *Settings) Reset() {
 	*x = Settings{}
-	mi := &file_residua_v1_residua_proto_msgTypes[17]
+	mi := &file_residua_v1_residua_proto_msgTypes[20]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1757,7 +2053,7 @@ func (x *Settings) String() string {
 func (*Settings) ProtoMessage() {}
 
 func (x *Settings) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[17]
+	mi := &file_residua_v1_residua_proto_msgTypes[20]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1770,7 +2066,7 @@ func (x *Settings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Settings.ProtoReflect.Descriptor instead.
 func (*Settings) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{17}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{20}
 }
 
 func (x *Settings) GetRtol() float64 {
@@ -1910,13 +2206,15 @@ type SolveResult struct {
 	Operator       string   `protobuf:"bytes,46,opt,name=operator,proto3" json:"operator,omitempty"`
 	WeightRatio    *float64 `protobuf:"fixed64,47,opt,name=weight_ratio,json=weightRatio,proto3,oneof" json:"weight_ratio,omitempty"`
 	Regularization *float64 `protobuf:"fixed64,48,opt,name=regularization,proto3,oneof" json:"regularization,omitempty"`
-	unknownFields  protoimpl.UnknownFields
-	sizeCache      protoimpl.SizeCache
+	// The multigrid set-up report, for the "amg" preconditioner.
+	Multigrid     *MultigridReport `protobuf:"bytes,49,opt,name=multigrid,proto3" json:"multigrid,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *SolveResult) Reset() {
 	*x = SolveResult{}
-	mi := &file_residua_v1_residua_proto_msgTypes[18]
+	mi := &file_residua_v1_residua_proto_msgTypes[21]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1928,7 +2226,7 @@ func (x *SolveResult) String() string {
 func (*SolveResult) ProtoMessage() {}
 
 func (x *SolveResult) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[18]
+	mi := &file_residua_v1_residua_proto_msgTypes[21]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1941,7 +2239,7 @@ func (x *SolveResult) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SolveResult.ProtoReflect.Descriptor instead.
 func (*SolveResult) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{18}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{21}
 }
 
 func (x *SolveResult) GetRhs() int32 {
@@ -2266,6 +2564,13 @@ func (x *SolveResult) GetRegularization() float64 {
 	return 0
 }
 
+func (x *SolveResult) GetMultigrid() *MultigridReport {
+	if x != nil {
+		return x.Multigrid
+	}
+	return nil
+}
+
 // VectorChunk is a piece of a solution vector.
 type VectorChunk struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -2288,7 +2593,7 @@ type VectorChunk struct {
 
 func (x *VectorChunk) Reset() {
 	*x = VectorChunk{}
-	mi := &file_residua_v1_residua_proto_msgTypes[19]
+	mi := &file_residua_v1_residua_proto_msgTypes[22]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2300,7 +2605,7 @@ func (x *VectorChunk) String() string {
 func (*VectorChunk) ProtoMessage() {}
 
 func (x *VectorChunk) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[19]
+	mi := &file_residua_v1_residua_proto_msgTypes[22]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2313,7 +2618,7 @@ func (x *VectorChunk) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use VectorChunk.ProtoReflect.Descriptor instead.
 func (*VectorChunk) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{19}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{22}
 }
 
 func (x *VectorChunk) GetRhs() int32 {
@@ -2380,7 +2685,7 @@ type Finished struct {
 
 func (x *Finished) Reset() {
 	*x = Finished{}
-	mi := &file_residua_v1_residua_proto_msgTypes[20]
+	mi := &file_residua_v1_residua_proto_msgTypes[23]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2392,7 +2697,7 @@ func (x *Finished) String() string {
 func (*Finished) ProtoMessage() {}
 
 func (x *Finished) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[20]
+	mi := &file_residua_v1_residua_proto_msgTypes[23]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2405,7 +2710,7 @@ func (x *Finished) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Finished.ProtoReflect.Descriptor instead.
 func (*Finished) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{20}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{23}
 }
 
 func (x *Finished) GetState() JobState {
@@ -2485,7 +2790,7 @@ type Job struct {
 
 func (x *Job) Reset() {
 	*x = Job{}
-	mi := &file_residua_v1_residua_proto_msgTypes[21]
+	mi := &file_residua_v1_residua_proto_msgTypes[24]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2497,7 +2802,7 @@ func (x *Job) String() string {
 func (*Job) ProtoMessage() {}
 
 func (x *Job) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[21]
+	mi := &file_residua_v1_residua_proto_msgTypes[24]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2510,7 +2815,7 @@ func (x *Job) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Job.ProtoReflect.Descriptor instead.
 func (*Job) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{21}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{24}
 }
 
 func (x *Job) GetId() string {
@@ -2683,7 +2988,7 @@ type WatchRequest struct {
 
 func (x *WatchRequest) Reset() {
 	*x = WatchRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[22]
+	mi := &file_residua_v1_residua_proto_msgTypes[25]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2695,7 +3000,7 @@ func (x *WatchRequest) String() string {
 func (*WatchRequest) ProtoMessage() {}
 
 func (x *WatchRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[22]
+	mi := &file_residua_v1_residua_proto_msgTypes[25]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2708,7 +3013,7 @@ func (x *WatchRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use WatchRequest.ProtoReflect.Descriptor instead.
 func (*WatchRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{22}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{25}
 }
 
 func (x *WatchRequest) GetJobId() string {
@@ -2727,7 +3032,7 @@ type GetJobRequest struct {
 
 func (x *GetJobRequest) Reset() {
 	*x = GetJobRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[23]
+	mi := &file_residua_v1_residua_proto_msgTypes[26]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2739,7 +3044,7 @@ func (x *GetJobRequest) String() string {
 func (*GetJobRequest) ProtoMessage() {}
 
 func (x *GetJobRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[23]
+	mi := &file_residua_v1_residua_proto_msgTypes[26]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2752,7 +3057,7 @@ func (x *GetJobRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use GetJobRequest.ProtoReflect.Descriptor instead.
 func (*GetJobRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{23}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{26}
 }
 
 func (x *GetJobRequest) GetJobId() string {
@@ -2771,7 +3076,7 @@ type GetMatrixRequest struct {
 
 func (x *GetMatrixRequest) Reset() {
 	*x = GetMatrixRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[24]
+	mi := &file_residua_v1_residua_proto_msgTypes[27]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2783,7 +3088,7 @@ func (x *GetMatrixRequest) String() string {
 func (*GetMatrixRequest) ProtoMessage() {}
 
 func (x *GetMatrixRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[24]
+	mi := &file_residua_v1_residua_proto_msgTypes[27]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2796,7 +3101,7 @@ func (x *GetMatrixRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use GetMatrixRequest.ProtoReflect.Descriptor instead.
 func (*GetMatrixRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{24}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{27}
 }
 
 func (x *GetMatrixRequest) GetId() string {
@@ -2817,7 +3122,7 @@ type GetHistoryRequest struct {
 
 func (x *GetHistoryRequest) Reset() {
 	*x = GetHistoryRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[25]
+	mi := &file_residua_v1_residua_proto_msgTypes[28]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2829,7 +3134,7 @@ func (x *GetHistoryRequest) String() string {
 func (*GetHistoryRequest) ProtoMessage() {}
 
 func (x *GetHistoryRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[25]
+	mi := &file_residua_v1_residua_proto_msgTypes[28]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2842,7 +3147,7 @@ func (x *GetHistoryRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use GetHistoryRequest.ProtoReflect.Descriptor instead.
 func (*GetHistoryRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{25}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{28}
 }
 
 func (x *GetHistoryRequest) GetJobId() string {
@@ -2880,7 +3185,7 @@ type History struct {
 
 func (x *History) Reset() {
 	*x = History{}
-	mi := &file_residua_v1_residua_proto_msgTypes[26]
+	mi := &file_residua_v1_residua_proto_msgTypes[29]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2892,7 +3197,7 @@ func (x *History) String() string {
 func (*History) ProtoMessage() {}
 
 func (x *History) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[26]
+	mi := &file_residua_v1_residua_proto_msgTypes[29]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2905,7 +3210,7 @@ func (x *History) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use History.ProtoReflect.Descriptor instead.
 func (*History) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{26}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{29}
 }
 
 func (x *History) GetJobId() string {
@@ -2958,7 +3263,7 @@ type ListJobsRequest struct {
 
 func (x *ListJobsRequest) Reset() {
 	*x = ListJobsRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[27]
+	mi := &file_residua_v1_residua_proto_msgTypes[30]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2970,7 +3275,7 @@ func (x *ListJobsRequest) String() string {
 func (*ListJobsRequest) ProtoMessage() {}
 
 func (x *ListJobsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[27]
+	mi := &file_residua_v1_residua_proto_msgTypes[30]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2983,7 +3288,7 @@ func (x *ListJobsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListJobsRequest.ProtoReflect.Descriptor instead.
 func (*ListJobsRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{27}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{30}
 }
 
 type ListJobsResponse struct {
@@ -2995,7 +3300,7 @@ type ListJobsResponse struct {
 
 func (x *ListJobsResponse) Reset() {
 	*x = ListJobsResponse{}
-	mi := &file_residua_v1_residua_proto_msgTypes[28]
+	mi := &file_residua_v1_residua_proto_msgTypes[31]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3007,7 +3312,7 @@ func (x *ListJobsResponse) String() string {
 func (*ListJobsResponse) ProtoMessage() {}
 
 func (x *ListJobsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[28]
+	mi := &file_residua_v1_residua_proto_msgTypes[31]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3020,7 +3325,7 @@ func (x *ListJobsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListJobsResponse.ProtoReflect.Descriptor instead.
 func (*ListJobsResponse) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{28}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{31}
 }
 
 func (x *ListJobsResponse) GetJobs() []*Job {
@@ -3039,7 +3344,7 @@ type CancelJobRequest struct {
 
 func (x *CancelJobRequest) Reset() {
 	*x = CancelJobRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[29]
+	mi := &file_residua_v1_residua_proto_msgTypes[32]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3051,7 +3356,7 @@ func (x *CancelJobRequest) String() string {
 func (*CancelJobRequest) ProtoMessage() {}
 
 func (x *CancelJobRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[29]
+	mi := &file_residua_v1_residua_proto_msgTypes[32]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3064,7 +3369,7 @@ func (x *CancelJobRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CancelJobRequest.ProtoReflect.Descriptor instead.
 func (*CancelJobRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{29}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{32}
 }
 
 func (x *CancelJobRequest) GetJobId() string {
@@ -3087,7 +3392,7 @@ type DownloadSolutionRequest struct {
 
 func (x *DownloadSolutionRequest) Reset() {
 	*x = DownloadSolutionRequest{}
-	mi := &file_residua_v1_residua_proto_msgTypes[30]
+	mi := &file_residua_v1_residua_proto_msgTypes[33]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3099,7 +3404,7 @@ func (x *DownloadSolutionRequest) String() string {
 func (*DownloadSolutionRequest) ProtoMessage() {}
 
 func (x *DownloadSolutionRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_residua_v1_residua_proto_msgTypes[30]
+	mi := &file_residua_v1_residua_proto_msgTypes[33]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3112,7 +3417,7 @@ func (x *DownloadSolutionRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DownloadSolutionRequest.ProtoReflect.Descriptor instead.
 func (*DownloadSolutionRequest) Descriptor() ([]byte, []int) {
-	return file_residua_v1_residua_proto_rawDescGZIP(), []int{30}
+	return file_residua_v1_residua_proto_rawDescGZIP(), []int{33}
 }
 
 func (x *DownloadSolutionRequest) GetJobId() string {
@@ -3197,7 +3502,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"freedBytes\"r\n" +
 	"\x0eProgressPolicy\x12)\n" +
 	"\x10every_iterations\x18\x01 \x01(\x05R\x0feveryIterations\x125\n" +
-	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\xf8\x04\n" +
+	"\binterval\x18\x02 \x01(\v2\x19.google.protobuf.DurationR\binterval\"\xa2\x05\n" +
 	"\fSolveRequest\x12\x1b\n" +
 	"\tmatrix_id\x18\x01 \x01(\tR\bmatrixId\x12'\n" +
 	"\x03rhs\x18\x02 \x03(\v2\x15.residua.v1.VectorRefR\x03rhs\x12%\n" +
@@ -3219,7 +3524,38 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\x10 \x01(\x01R\x04damp\x12#\n" +
 	"\rleast_squares\x18\x11 \x01(\bR\fleastSquares\x12/\n" +
 	"\aweights\x18- \x01(\v2\x15.residua.v1.VectorRefR\aweights\x12\x10\n" +
-	"\x03reg\x18. \x01(\x01R\x03reg\"\xf0\x02\n" +
+	"\x03reg\x18. \x01(\x01R\x03reg\x12(\n" +
+	"\x03amg\x18/ \x01(\v2\x16.residua.v1.AMGOptionsR\x03amg\"u\n" +
+	"\n" +
+	"AMGOptions\x12\x14\n" +
+	"\x05theta\x18\x01 \x01(\x01R\x05theta\x12\x1a\n" +
+	"\bsmoother\x18\x02 \x01(\tR\bsmoother\x12\x16\n" +
+	"\x06degree\x18\x03 \x01(\x05R\x06degree\x12\x1d\n" +
+	"\n" +
+	"block_size\x18\x04 \x01(\x05R\tblockSize\"\x81\x01\n" +
+	"\x0eMultigridLevel\x12\x12\n" +
+	"\x04rows\x18\x01 \x01(\x03R\x04rows\x12\x10\n" +
+	"\x03nnz\x18\x02 \x01(\x03R\x03nnz\x12\x14\n" +
+	"\x05theta\x18\x03 \x01(\x01R\x05theta\x12\x14\n" +
+	"\x05omega\x18\x04 \x01(\x01R\x05omega\x12\x1d\n" +
+	"\n" +
+	"lambda_max\x18\x05 \x01(\x01R\tlambdaMax\"\xae\x03\n" +
+	"\x0fMultigridReport\x12\x1a\n" +
+	"\bsmoother\x18\x01 \x01(\tR\bsmoother\x12\x16\n" +
+	"\x06degree\x18\x02 \x01(\x05R\x06degree\x12\x14\n" +
+	"\x05theta\x18\x03 \x01(\x01R\x05theta\x12*\n" +
+	"\x11near_null_vectors\x18\x04 \x01(\x05R\x0fnearNullVectors\x122\n" +
+	"\x06levels\x18\x05 \x03(\v2\x1a.residua.v1.MultigridLevelR\x06levels\x12\x1a\n" +
+	"\bcoarsest\x18\x06 \x01(\tR\bcoarsest\x12/\n" +
+	"\x13operator_complexity\x18\a \x01(\x01R\x12operatorComplexity\x12'\n" +
+	"\x0fgrid_complexity\x18\b \x01(\x01R\x0egridComplexity\x12#\n" +
+	"\rsetup_seconds\x18\t \x01(\x01R\fsetupSeconds\x12\x1f\n" +
+	"\vsetup_spmvs\x18\n" +
+	" \x01(\x01R\n" +
+	"setupSpmvs\x12\x1f\n" +
+	"\vapply_spmvs\x18\v \x01(\x01R\n" +
+	"applySpmvs\x12\x14\n" +
+	"\x05bytes\x18\f \x01(\x03R\x05bytes\"\xf0\x02\n" +
 	"\bJobEvent\x12\x10\n" +
 	"\x03seq\x18\x01 \x01(\x04R\x03seq\x12\x15\n" +
 	"\x06job_id\x18\x02 \x01(\tR\x05jobId\x12,\n" +
@@ -3265,7 +3601,7 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\x04damp\x18\a \x01(\x01H\x02R\x04damp\x88\x01\x01B\a\n" +
 	"\x05_rtolB\a\n" +
 	"\x05_btolB\a\n" +
-	"\x05_damp\"\xc8\x0f\n" +
+	"\x05_damp\"\x83\x10\n" +
 	"\vSolveResult\x12\x10\n" +
 	"\x03rhs\x18\x01 \x01(\x05R\x03rhs\x12\x1c\n" +
 	"\tconverged\x18\x02 \x01(\bR\tconverged\x12\x16\n" +
@@ -3321,7 +3657,8 @@ const file_residua_v1_residua_proto_rawDesc = "" +
 	"\rmethod_reason\x18- \x01(\tR\fmethodReason\x12\x1a\n" +
 	"\boperator\x18. \x01(\tR\boperator\x12&\n" +
 	"\fweight_ratio\x18/ \x01(\x01H\fR\vweightRatio\x88\x01\x01\x12+\n" +
-	"\x0eregularization\x180 \x01(\x01H\rR\x0eregularization\x88\x01\x01B\x10\n" +
+	"\x0eregularization\x180 \x01(\x01H\rR\x0eregularization\x88\x01\x01\x129\n" +
+	"\tmultigrid\x181 \x01(\v2\x1b.residua.v1.MultigridReportR\tmultigridB\x10\n" +
 	"\x0e_residual_normB\x1a\n" +
 	"\x18_recursive_residual_normB\x1e\n" +
 	"\x1c_recursive_relative_residualB\b\n" +
@@ -3438,7 +3775,7 @@ func file_residua_v1_residua_proto_rawDescGZIP() []byte {
 }
 
 var file_residua_v1_residua_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_residua_v1_residua_proto_msgTypes = make([]protoimpl.MessageInfo, 31)
+var file_residua_v1_residua_proto_msgTypes = make([]protoimpl.MessageInfo, 34)
 var file_residua_v1_residua_proto_goTypes = []any{
 	(MatrixEncoding)(0),             // 0: residua.v1.MatrixEncoding
 	(JobState)(0),                   // 1: residua.v1.JobState
@@ -3455,79 +3792,85 @@ var file_residua_v1_residua_proto_goTypes = []any{
 	(*DeleteMatrixResponse)(nil),    // 12: residua.v1.DeleteMatrixResponse
 	(*ProgressPolicy)(nil),          // 13: residua.v1.ProgressPolicy
 	(*SolveRequest)(nil),            // 14: residua.v1.SolveRequest
-	(*JobEvent)(nil),                // 15: residua.v1.JobEvent
-	(*Queued)(nil),                  // 16: residua.v1.Queued
-	(*Accepted)(nil),                // 17: residua.v1.Accepted
-	(*Progress)(nil),                // 18: residua.v1.Progress
-	(*Settings)(nil),                // 19: residua.v1.Settings
-	(*SolveResult)(nil),             // 20: residua.v1.SolveResult
-	(*VectorChunk)(nil),             // 21: residua.v1.VectorChunk
-	(*Finished)(nil),                // 22: residua.v1.Finished
-	(*Job)(nil),                     // 23: residua.v1.Job
-	(*WatchRequest)(nil),            // 24: residua.v1.WatchRequest
-	(*GetJobRequest)(nil),           // 25: residua.v1.GetJobRequest
-	(*GetMatrixRequest)(nil),        // 26: residua.v1.GetMatrixRequest
-	(*GetHistoryRequest)(nil),       // 27: residua.v1.GetHistoryRequest
-	(*History)(nil),                 // 28: residua.v1.History
-	(*ListJobsRequest)(nil),         // 29: residua.v1.ListJobsRequest
-	(*ListJobsResponse)(nil),        // 30: residua.v1.ListJobsResponse
-	(*CancelJobRequest)(nil),        // 31: residua.v1.CancelJobRequest
-	(*DownloadSolutionRequest)(nil), // 32: residua.v1.DownloadSolutionRequest
-	(*durationpb.Duration)(nil),     // 33: google.protobuf.Duration
+	(*AMGOptions)(nil),              // 15: residua.v1.AMGOptions
+	(*MultigridLevel)(nil),          // 16: residua.v1.MultigridLevel
+	(*MultigridReport)(nil),         // 17: residua.v1.MultigridReport
+	(*JobEvent)(nil),                // 18: residua.v1.JobEvent
+	(*Queued)(nil),                  // 19: residua.v1.Queued
+	(*Accepted)(nil),                // 20: residua.v1.Accepted
+	(*Progress)(nil),                // 21: residua.v1.Progress
+	(*Settings)(nil),                // 22: residua.v1.Settings
+	(*SolveResult)(nil),             // 23: residua.v1.SolveResult
+	(*VectorChunk)(nil),             // 24: residua.v1.VectorChunk
+	(*Finished)(nil),                // 25: residua.v1.Finished
+	(*Job)(nil),                     // 26: residua.v1.Job
+	(*WatchRequest)(nil),            // 27: residua.v1.WatchRequest
+	(*GetJobRequest)(nil),           // 28: residua.v1.GetJobRequest
+	(*GetMatrixRequest)(nil),        // 29: residua.v1.GetMatrixRequest
+	(*GetHistoryRequest)(nil),       // 30: residua.v1.GetHistoryRequest
+	(*History)(nil),                 // 31: residua.v1.History
+	(*ListJobsRequest)(nil),         // 32: residua.v1.ListJobsRequest
+	(*ListJobsResponse)(nil),        // 33: residua.v1.ListJobsResponse
+	(*CancelJobRequest)(nil),        // 34: residua.v1.CancelJobRequest
+	(*DownloadSolutionRequest)(nil), // 35: residua.v1.DownloadSolutionRequest
+	(*durationpb.Duration)(nil),     // 36: google.protobuf.Duration
 }
 var file_residua_v1_residua_proto_depIdxs = []int32{
 	3,  // 0: residua.v1.UploadMatrixRequest.metadata:type_name -> residua.v1.UploadMetadata
 	0,  // 1: residua.v1.UploadMetadata.encoding:type_name -> residua.v1.MatrixEncoding
 	6,  // 2: residua.v1.UploadVectorRequest.metadata:type_name -> residua.v1.VectorMetadata
 	4,  // 3: residua.v1.ListMatricesResponse.matrices:type_name -> residua.v1.Matrix
-	33, // 4: residua.v1.ProgressPolicy.interval:type_name -> google.protobuf.Duration
+	36, // 4: residua.v1.ProgressPolicy.interval:type_name -> google.protobuf.Duration
 	8,  // 5: residua.v1.SolveRequest.rhs:type_name -> residua.v1.VectorRef
 	8,  // 6: residua.v1.SolveRequest.x0:type_name -> residua.v1.VectorRef
-	33, // 7: residua.v1.SolveRequest.time_limit:type_name -> google.protobuf.Duration
+	36, // 7: residua.v1.SolveRequest.time_limit:type_name -> google.protobuf.Duration
 	13, // 8: residua.v1.SolveRequest.progress:type_name -> residua.v1.ProgressPolicy
 	8,  // 9: residua.v1.SolveRequest.weights:type_name -> residua.v1.VectorRef
-	16, // 10: residua.v1.JobEvent.queued:type_name -> residua.v1.Queued
-	17, // 11: residua.v1.JobEvent.accepted:type_name -> residua.v1.Accepted
-	18, // 12: residua.v1.JobEvent.progress:type_name -> residua.v1.Progress
-	20, // 13: residua.v1.JobEvent.result:type_name -> residua.v1.SolveResult
-	21, // 14: residua.v1.JobEvent.solution:type_name -> residua.v1.VectorChunk
-	22, // 15: residua.v1.JobEvent.finished:type_name -> residua.v1.Finished
-	19, // 16: residua.v1.SolveResult.settings:type_name -> residua.v1.Settings
-	1,  // 17: residua.v1.Finished.state:type_name -> residua.v1.JobState
-	1,  // 18: residua.v1.Job.state:type_name -> residua.v1.JobState
-	18, // 19: residua.v1.Job.last_progress:type_name -> residua.v1.Progress
-	20, // 20: residua.v1.Job.results:type_name -> residua.v1.SolveResult
-	18, // 21: residua.v1.History.rows:type_name -> residua.v1.Progress
-	23, // 22: residua.v1.ListJobsResponse.jobs:type_name -> residua.v1.Job
-	2,  // 23: residua.v1.Solver.UploadMatrix:input_type -> residua.v1.UploadMatrixRequest
-	5,  // 24: residua.v1.Solver.UploadVector:input_type -> residua.v1.UploadVectorRequest
-	9,  // 25: residua.v1.Solver.ListMatrices:input_type -> residua.v1.ListMatricesRequest
-	26, // 26: residua.v1.Solver.GetMatrix:input_type -> residua.v1.GetMatrixRequest
-	11, // 27: residua.v1.Solver.DeleteMatrix:input_type -> residua.v1.DeleteMatrixRequest
-	14, // 28: residua.v1.Solver.Solve:input_type -> residua.v1.SolveRequest
-	24, // 29: residua.v1.Solver.Watch:input_type -> residua.v1.WatchRequest
-	25, // 30: residua.v1.Solver.GetJob:input_type -> residua.v1.GetJobRequest
-	27, // 31: residua.v1.Solver.GetHistory:input_type -> residua.v1.GetHistoryRequest
-	29, // 32: residua.v1.Solver.ListJobs:input_type -> residua.v1.ListJobsRequest
-	31, // 33: residua.v1.Solver.CancelJob:input_type -> residua.v1.CancelJobRequest
-	32, // 34: residua.v1.Solver.DownloadSolution:input_type -> residua.v1.DownloadSolutionRequest
-	4,  // 35: residua.v1.Solver.UploadMatrix:output_type -> residua.v1.Matrix
-	7,  // 36: residua.v1.Solver.UploadVector:output_type -> residua.v1.VectorInfo
-	10, // 37: residua.v1.Solver.ListMatrices:output_type -> residua.v1.ListMatricesResponse
-	4,  // 38: residua.v1.Solver.GetMatrix:output_type -> residua.v1.Matrix
-	12, // 39: residua.v1.Solver.DeleteMatrix:output_type -> residua.v1.DeleteMatrixResponse
-	15, // 40: residua.v1.Solver.Solve:output_type -> residua.v1.JobEvent
-	15, // 41: residua.v1.Solver.Watch:output_type -> residua.v1.JobEvent
-	23, // 42: residua.v1.Solver.GetJob:output_type -> residua.v1.Job
-	28, // 43: residua.v1.Solver.GetHistory:output_type -> residua.v1.History
-	30, // 44: residua.v1.Solver.ListJobs:output_type -> residua.v1.ListJobsResponse
-	23, // 45: residua.v1.Solver.CancelJob:output_type -> residua.v1.Job
-	21, // 46: residua.v1.Solver.DownloadSolution:output_type -> residua.v1.VectorChunk
-	35, // [35:47] is the sub-list for method output_type
-	23, // [23:35] is the sub-list for method input_type
-	23, // [23:23] is the sub-list for extension type_name
-	23, // [23:23] is the sub-list for extension extendee
-	0,  // [0:23] is the sub-list for field type_name
+	15, // 10: residua.v1.SolveRequest.amg:type_name -> residua.v1.AMGOptions
+	16, // 11: residua.v1.MultigridReport.levels:type_name -> residua.v1.MultigridLevel
+	19, // 12: residua.v1.JobEvent.queued:type_name -> residua.v1.Queued
+	20, // 13: residua.v1.JobEvent.accepted:type_name -> residua.v1.Accepted
+	21, // 14: residua.v1.JobEvent.progress:type_name -> residua.v1.Progress
+	23, // 15: residua.v1.JobEvent.result:type_name -> residua.v1.SolveResult
+	24, // 16: residua.v1.JobEvent.solution:type_name -> residua.v1.VectorChunk
+	25, // 17: residua.v1.JobEvent.finished:type_name -> residua.v1.Finished
+	22, // 18: residua.v1.SolveResult.settings:type_name -> residua.v1.Settings
+	17, // 19: residua.v1.SolveResult.multigrid:type_name -> residua.v1.MultigridReport
+	1,  // 20: residua.v1.Finished.state:type_name -> residua.v1.JobState
+	1,  // 21: residua.v1.Job.state:type_name -> residua.v1.JobState
+	21, // 22: residua.v1.Job.last_progress:type_name -> residua.v1.Progress
+	23, // 23: residua.v1.Job.results:type_name -> residua.v1.SolveResult
+	21, // 24: residua.v1.History.rows:type_name -> residua.v1.Progress
+	26, // 25: residua.v1.ListJobsResponse.jobs:type_name -> residua.v1.Job
+	2,  // 26: residua.v1.Solver.UploadMatrix:input_type -> residua.v1.UploadMatrixRequest
+	5,  // 27: residua.v1.Solver.UploadVector:input_type -> residua.v1.UploadVectorRequest
+	9,  // 28: residua.v1.Solver.ListMatrices:input_type -> residua.v1.ListMatricesRequest
+	29, // 29: residua.v1.Solver.GetMatrix:input_type -> residua.v1.GetMatrixRequest
+	11, // 30: residua.v1.Solver.DeleteMatrix:input_type -> residua.v1.DeleteMatrixRequest
+	14, // 31: residua.v1.Solver.Solve:input_type -> residua.v1.SolveRequest
+	27, // 32: residua.v1.Solver.Watch:input_type -> residua.v1.WatchRequest
+	28, // 33: residua.v1.Solver.GetJob:input_type -> residua.v1.GetJobRequest
+	30, // 34: residua.v1.Solver.GetHistory:input_type -> residua.v1.GetHistoryRequest
+	32, // 35: residua.v1.Solver.ListJobs:input_type -> residua.v1.ListJobsRequest
+	34, // 36: residua.v1.Solver.CancelJob:input_type -> residua.v1.CancelJobRequest
+	35, // 37: residua.v1.Solver.DownloadSolution:input_type -> residua.v1.DownloadSolutionRequest
+	4,  // 38: residua.v1.Solver.UploadMatrix:output_type -> residua.v1.Matrix
+	7,  // 39: residua.v1.Solver.UploadVector:output_type -> residua.v1.VectorInfo
+	10, // 40: residua.v1.Solver.ListMatrices:output_type -> residua.v1.ListMatricesResponse
+	4,  // 41: residua.v1.Solver.GetMatrix:output_type -> residua.v1.Matrix
+	12, // 42: residua.v1.Solver.DeleteMatrix:output_type -> residua.v1.DeleteMatrixResponse
+	18, // 43: residua.v1.Solver.Solve:output_type -> residua.v1.JobEvent
+	18, // 44: residua.v1.Solver.Watch:output_type -> residua.v1.JobEvent
+	26, // 45: residua.v1.Solver.GetJob:output_type -> residua.v1.Job
+	31, // 46: residua.v1.Solver.GetHistory:output_type -> residua.v1.History
+	33, // 47: residua.v1.Solver.ListJobs:output_type -> residua.v1.ListJobsResponse
+	26, // 48: residua.v1.Solver.CancelJob:output_type -> residua.v1.Job
+	24, // 49: residua.v1.Solver.DownloadSolution:output_type -> residua.v1.VectorChunk
+	38, // [38:50] is the sub-list for method output_type
+	26, // [26:38] is the sub-list for method input_type
+	26, // [26:26] is the sub-list for extension type_name
+	26, // [26:26] is the sub-list for extension extendee
+	0,  // [0:26] is the sub-list for field type_name
 }
 
 func init() { file_residua_v1_residua_proto_init() }
@@ -3547,7 +3890,7 @@ func file_residua_v1_residua_proto_init() {
 		(*VectorRef_Data)(nil),
 		(*VectorRef_VectorId)(nil),
 	}
-	file_residua_v1_residua_proto_msgTypes[13].OneofWrappers = []any{
+	file_residua_v1_residua_proto_msgTypes[16].OneofWrappers = []any{
 		(*JobEvent_Queued)(nil),
 		(*JobEvent_Accepted)(nil),
 		(*JobEvent_Progress)(nil),
@@ -3555,15 +3898,15 @@ func file_residua_v1_residua_proto_init() {
 		(*JobEvent_Solution)(nil),
 		(*JobEvent_Finished)(nil),
 	}
-	file_residua_v1_residua_proto_msgTypes[17].OneofWrappers = []any{}
-	file_residua_v1_residua_proto_msgTypes[18].OneofWrappers = []any{}
+	file_residua_v1_residua_proto_msgTypes[20].OneofWrappers = []any{}
+	file_residua_v1_residua_proto_msgTypes[21].OneofWrappers = []any{}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_residua_v1_residua_proto_rawDesc), len(file_residua_v1_residua_proto_rawDesc)),
 			NumEnums:      2,
-			NumMessages:   31,
+			NumMessages:   34,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -14,6 +14,18 @@ MATRIX_MARKET: MatrixEncoding
 QUEUED: JobState
 RUNNING: JobState
 
+class AMGOptions(_message.Message):
+    __slots__ = ["block_size", "degree", "smoother", "theta"]
+    BLOCK_SIZE_FIELD_NUMBER: _ClassVar[int]
+    DEGREE_FIELD_NUMBER: _ClassVar[int]
+    SMOOTHER_FIELD_NUMBER: _ClassVar[int]
+    THETA_FIELD_NUMBER: _ClassVar[int]
+    block_size: int
+    degree: int
+    smoother: str
+    theta: float
+    def __init__(self, theta: _Optional[float] = ..., smoother: _Optional[str] = ..., degree: _Optional[int] = ..., block_size: _Optional[int] = ...) -> None: ...
+
 class Accepted(_message.Message):
     __slots__ = ["detached", "from_cache", "matrix_id", "max_iter_ceiling", "method", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "rhs_count", "setup_seconds", "shift", "time_ceiling_seconds", "tries"]
     DETACHED_FIELD_NUMBER: _ClassVar[int]
@@ -240,6 +252,48 @@ class Matrix(_message.Message):
     upload_seconds: float
     def __init__(self, id: _Optional[str] = ..., name: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ..., symmetry: _Optional[str] = ..., bytes: _Optional[int] = ..., inspect_json: _Optional[str] = ..., already_stored: bool = ..., upload_seconds: _Optional[float] = ..., upload_bytes: _Optional[int] = ..., jobs_using: _Optional[int] = ...) -> None: ...
 
+class MultigridLevel(_message.Message):
+    __slots__ = ["lambda_max", "nnz", "omega", "rows", "theta"]
+    LAMBDA_MAX_FIELD_NUMBER: _ClassVar[int]
+    NNZ_FIELD_NUMBER: _ClassVar[int]
+    OMEGA_FIELD_NUMBER: _ClassVar[int]
+    ROWS_FIELD_NUMBER: _ClassVar[int]
+    THETA_FIELD_NUMBER: _ClassVar[int]
+    lambda_max: float
+    nnz: int
+    omega: float
+    rows: int
+    theta: float
+    def __init__(self, rows: _Optional[int] = ..., nnz: _Optional[int] = ..., theta: _Optional[float] = ..., omega: _Optional[float] = ..., lambda_max: _Optional[float] = ...) -> None: ...
+
+class MultigridReport(_message.Message):
+    __slots__ = ["apply_spmvs", "bytes", "coarsest", "degree", "grid_complexity", "levels", "near_null_vectors", "operator_complexity", "setup_seconds", "setup_spmvs", "smoother", "theta"]
+    APPLY_SPMVS_FIELD_NUMBER: _ClassVar[int]
+    BYTES_FIELD_NUMBER: _ClassVar[int]
+    COARSEST_FIELD_NUMBER: _ClassVar[int]
+    DEGREE_FIELD_NUMBER: _ClassVar[int]
+    GRID_COMPLEXITY_FIELD_NUMBER: _ClassVar[int]
+    LEVELS_FIELD_NUMBER: _ClassVar[int]
+    NEAR_NULL_VECTORS_FIELD_NUMBER: _ClassVar[int]
+    OPERATOR_COMPLEXITY_FIELD_NUMBER: _ClassVar[int]
+    SETUP_SECONDS_FIELD_NUMBER: _ClassVar[int]
+    SETUP_SPMVS_FIELD_NUMBER: _ClassVar[int]
+    SMOOTHER_FIELD_NUMBER: _ClassVar[int]
+    THETA_FIELD_NUMBER: _ClassVar[int]
+    apply_spmvs: float
+    bytes: int
+    coarsest: str
+    degree: int
+    grid_complexity: float
+    levels: _containers.RepeatedCompositeFieldContainer[MultigridLevel]
+    near_null_vectors: int
+    operator_complexity: float
+    setup_seconds: float
+    setup_spmvs: float
+    smoother: str
+    theta: float
+    def __init__(self, smoother: _Optional[str] = ..., degree: _Optional[int] = ..., theta: _Optional[float] = ..., near_null_vectors: _Optional[int] = ..., levels: _Optional[_Iterable[_Union[MultigridLevel, _Mapping]]] = ..., coarsest: _Optional[str] = ..., operator_complexity: _Optional[float] = ..., grid_complexity: _Optional[float] = ..., setup_seconds: _Optional[float] = ..., setup_spmvs: _Optional[float] = ..., apply_spmvs: _Optional[float] = ..., bytes: _Optional[int] = ...) -> None: ...
+
 class Progress(_message.Message):
     __slots__ = ["elapsed_seconds", "iteration", "normal_residual_norm", "relative_residual", "residual_norm", "rhs"]
     ELAPSED_SECONDS_FIELD_NUMBER: _ClassVar[int]
@@ -289,7 +343,8 @@ class Settings(_message.Message):
     def __init__(self, rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit_seconds: _Optional[float] = ..., refresh_every: _Optional[int] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ...) -> None: ...
 
 class SolveRequest(_message.Message):
-    __slots__ = ["atol", "btol", "damp", "detach", "keep_solution", "label", "least_squares", "matrix_id", "max_iter", "method", "preconditioner", "progress", "refresh_every", "reg", "rhs", "rtol", "time_limit", "weights", "x0"]
+    __slots__ = ["amg", "atol", "btol", "damp", "detach", "keep_solution", "label", "least_squares", "matrix_id", "max_iter", "method", "preconditioner", "progress", "refresh_every", "reg", "rhs", "rtol", "time_limit", "weights", "x0"]
+    AMG_FIELD_NUMBER: _ClassVar[int]
     ATOL_FIELD_NUMBER: _ClassVar[int]
     BTOL_FIELD_NUMBER: _ClassVar[int]
     DAMP_FIELD_NUMBER: _ClassVar[int]
@@ -309,6 +364,7 @@ class SolveRequest(_message.Message):
     TIME_LIMIT_FIELD_NUMBER: _ClassVar[int]
     WEIGHTS_FIELD_NUMBER: _ClassVar[int]
     X0_FIELD_NUMBER: _ClassVar[int]
+    amg: AMGOptions
     atol: float
     btol: float
     damp: float
@@ -328,10 +384,10 @@ class SolveRequest(_message.Message):
     time_limit: _duration_pb2.Duration
     weights: VectorRef
     x0: _containers.RepeatedCompositeFieldContainer[VectorRef]
-    def __init__(self, matrix_id: _Optional[str] = ..., rhs: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., x0: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit: _Optional[_Union[_duration_pb2.Duration, _Mapping]] = ..., refresh_every: _Optional[int] = ..., progress: _Optional[_Union[ProgressPolicy, _Mapping]] = ..., detach: bool = ..., keep_solution: bool = ..., label: _Optional[str] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ..., least_squares: bool = ..., weights: _Optional[_Union[VectorRef, _Mapping]] = ..., reg: _Optional[float] = ...) -> None: ...
+    def __init__(self, matrix_id: _Optional[str] = ..., rhs: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., x0: _Optional[_Iterable[_Union[VectorRef, _Mapping]]] = ..., method: _Optional[str] = ..., preconditioner: _Optional[str] = ..., rtol: _Optional[float] = ..., atol: _Optional[float] = ..., max_iter: _Optional[int] = ..., time_limit: _Optional[_Union[_duration_pb2.Duration, _Mapping]] = ..., refresh_every: _Optional[int] = ..., progress: _Optional[_Union[ProgressPolicy, _Mapping]] = ..., detach: bool = ..., keep_solution: bool = ..., label: _Optional[str] = ..., btol: _Optional[float] = ..., damp: _Optional[float] = ..., least_squares: bool = ..., weights: _Optional[_Union[VectorRef, _Mapping]] = ..., reg: _Optional[float] = ..., amg: _Optional[_Union[AMGOptions, _Mapping]] = ...) -> None: ...
 
 class SolveResult(_message.Message):
-    __slots__ = ["a_norm_estimate", "advice", "cols", "cond", "converged", "error", "forward_error_estimate", "forward_error_note", "from_cache", "headline", "iterations", "lambda_max", "lambda_min", "matrix", "matrix_id", "method", "method_reason", "nonzeros", "normal_residual_norm", "operator", "per_iteration_seconds", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "recursive_relative_residual", "recursive_residual_norm", "regularization", "relative_residual", "residual_norm", "resumed_from_iteration", "rhs", "rhs_norm", "rows", "settings", "setup_seconds", "shift", "shift_tries", "solve_seconds", "status", "stopped_by", "true_residual_norm", "warning", "warning_text", "weight_ratio", "x_norm", "zero_columns"]
+    __slots__ = ["a_norm_estimate", "advice", "cols", "cond", "converged", "error", "forward_error_estimate", "forward_error_note", "from_cache", "headline", "iterations", "lambda_max", "lambda_min", "matrix", "matrix_id", "method", "method_reason", "multigrid", "nonzeros", "normal_residual_norm", "operator", "per_iteration_seconds", "preconditioner", "preconditioner_bytes", "preconditioner_reason", "recursive_relative_residual", "recursive_residual_norm", "regularization", "relative_residual", "residual_norm", "resumed_from_iteration", "rhs", "rhs_norm", "rows", "settings", "setup_seconds", "shift", "shift_tries", "solve_seconds", "status", "stopped_by", "true_residual_norm", "warning", "warning_text", "weight_ratio", "x_norm", "zero_columns"]
     ADVICE_FIELD_NUMBER: _ClassVar[int]
     A_NORM_ESTIMATE_FIELD_NUMBER: _ClassVar[int]
     COLS_FIELD_NUMBER: _ClassVar[int]
@@ -349,6 +405,7 @@ class SolveResult(_message.Message):
     MATRIX_ID_FIELD_NUMBER: _ClassVar[int]
     METHOD_FIELD_NUMBER: _ClassVar[int]
     METHOD_REASON_FIELD_NUMBER: _ClassVar[int]
+    MULTIGRID_FIELD_NUMBER: _ClassVar[int]
     NONZEROS_FIELD_NUMBER: _ClassVar[int]
     NORMAL_RESIDUAL_NORM_FIELD_NUMBER: _ClassVar[int]
     OPERATOR_FIELD_NUMBER: _ClassVar[int]
@@ -395,6 +452,7 @@ class SolveResult(_message.Message):
     matrix_id: str
     method: str
     method_reason: str
+    multigrid: MultigridReport
     nonzeros: int
     normal_residual_norm: float
     operator: str
@@ -424,7 +482,7 @@ class SolveResult(_message.Message):
     weight_ratio: float
     x_norm: float
     zero_columns: _containers.RepeatedScalarFieldContainer[int]
-    def __init__(self, rhs: _Optional[int] = ..., converged: bool = ..., status: _Optional[str] = ..., headline: _Optional[str] = ..., method: _Optional[str] = ..., iterations: _Optional[int] = ..., relative_residual: _Optional[float] = ..., residual_norm: _Optional[float] = ..., true_residual_norm: _Optional[float] = ..., rhs_norm: _Optional[float] = ..., recursive_residual_norm: _Optional[float] = ..., recursive_relative_residual: _Optional[float] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., shift_tries: _Optional[int] = ..., preconditioner_bytes: _Optional[int] = ..., setup_seconds: _Optional[float] = ..., solve_seconds: _Optional[float] = ..., per_iteration_seconds: _Optional[float] = ..., lambda_min: _Optional[float] = ..., lambda_max: _Optional[float] = ..., cond: _Optional[float] = ..., settings: _Optional[_Union[Settings, _Mapping]] = ..., from_cache: bool = ..., error: _Optional[str] = ..., normal_residual_norm: _Optional[float] = ..., x_norm: _Optional[float] = ..., a_norm_estimate: _Optional[float] = ..., stopped_by: _Optional[str] = ..., zero_columns: _Optional[_Iterable[int]] = ..., forward_error_estimate: _Optional[float] = ..., forward_error_note: _Optional[str] = ..., warning: _Optional[str] = ..., warning_text: _Optional[str] = ..., advice: _Optional[str] = ..., matrix: _Optional[str] = ..., matrix_id: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ..., resumed_from_iteration: _Optional[int] = ..., method_reason: _Optional[str] = ..., operator: _Optional[str] = ..., weight_ratio: _Optional[float] = ..., regularization: _Optional[float] = ...) -> None: ...
+    def __init__(self, rhs: _Optional[int] = ..., converged: bool = ..., status: _Optional[str] = ..., headline: _Optional[str] = ..., method: _Optional[str] = ..., iterations: _Optional[int] = ..., relative_residual: _Optional[float] = ..., residual_norm: _Optional[float] = ..., true_residual_norm: _Optional[float] = ..., rhs_norm: _Optional[float] = ..., recursive_residual_norm: _Optional[float] = ..., recursive_relative_residual: _Optional[float] = ..., preconditioner: _Optional[str] = ..., preconditioner_reason: _Optional[str] = ..., shift: _Optional[float] = ..., shift_tries: _Optional[int] = ..., preconditioner_bytes: _Optional[int] = ..., setup_seconds: _Optional[float] = ..., solve_seconds: _Optional[float] = ..., per_iteration_seconds: _Optional[float] = ..., lambda_min: _Optional[float] = ..., lambda_max: _Optional[float] = ..., cond: _Optional[float] = ..., settings: _Optional[_Union[Settings, _Mapping]] = ..., from_cache: bool = ..., error: _Optional[str] = ..., normal_residual_norm: _Optional[float] = ..., x_norm: _Optional[float] = ..., a_norm_estimate: _Optional[float] = ..., stopped_by: _Optional[str] = ..., zero_columns: _Optional[_Iterable[int]] = ..., forward_error_estimate: _Optional[float] = ..., forward_error_note: _Optional[str] = ..., warning: _Optional[str] = ..., warning_text: _Optional[str] = ..., advice: _Optional[str] = ..., matrix: _Optional[str] = ..., matrix_id: _Optional[str] = ..., rows: _Optional[int] = ..., cols: _Optional[int] = ..., nonzeros: _Optional[int] = ..., resumed_from_iteration: _Optional[int] = ..., method_reason: _Optional[str] = ..., operator: _Optional[str] = ..., weight_ratio: _Optional[float] = ..., regularization: _Optional[float] = ..., multigrid: _Optional[_Union[MultigridReport, _Mapping]] = ...) -> None: ...
 
 class UploadMatrixRequest(_message.Message):
     __slots__ = ["chunk", "metadata"]
