@@ -331,30 +331,11 @@ func (w *cgWork) iterate(ctx context.Context, op *cgOperator, b, x []float64, m 
 	}
 
 	// r₀ = b − A·x₀; its product is not an iteration.
-	var rr float64
-	if s.X0 != nil {
-		copy(x, s.X0)
-		st.products++
-		rr = op.residual(r, b, x)
-	} else {
-		clear(x)
-		copy(r, b)
-		rr = bb
+	rr, status, done, err := st.begin(op, b, x, r, bb, tol)
+	if done {
+		return status, err
 	}
 	rnorm := math.Sqrt(rr)
-	st.rnorm, st.trueNorm, st.trueFresh = rnorm, rnorm, true
-	if !cgFinite(rnorm) {
-		if s.X0 != nil && cgFirstNotFinite(s.X0) >= 0 {
-			return Breakdown, cgNotFinite(0, "start X0", s.X0, "", 0)
-		}
-		return Breakdown, cgNotFinite(0, "initial residual r", r, "‖r‖₂", rnorm)
-	}
-	if err := st.record(0, rnorm); err != nil {
-		return Cancelled, err
-	}
-	if rnorm <= tol {
-		return Converged, nil
-	}
 
 	rho := rr
 	if m != nil {
@@ -583,4 +564,37 @@ func cgNotFinite(k int, name string, v []float64, scalar string, value float64) 
 		return &BreakdownError{Iteration: k, Quantity: fmt.Sprintf("%s, entry %d", name, i), Value: v[i], Err: ErrNotFinite}
 	}
 	return &BreakdownError{Iteration: k, Quantity: scalar, Value: value, Err: ErrNotFinite}
+}
+
+// begin forms the initial residual r₀ = b − A·x₀ in r (x₀ = Settings.X0,
+// copied into x, or zero; its product is not an iteration), records row 0,
+// and says whether the solve ended there (done): converged at the start,
+// or broken down on a non-finite start or residual. rr is r₀ᵀr₀. CG and
+// MINRES begin alike.
+func (st *cgState) begin(op *cgOperator, b, x, r []float64, bb, tol float64) (rr float64, status Status, done bool, err error) {
+	s := &st.s
+	if s.X0 != nil {
+		copy(x, s.X0)
+		st.products++
+		rr = op.residual(r, b, x)
+	} else {
+		clear(x)
+		copy(r, b)
+		rr = bb
+	}
+	rnorm := math.Sqrt(rr)
+	st.rnorm, st.trueNorm, st.trueFresh = rnorm, rnorm, true
+	if !cgFinite(rnorm) {
+		if s.X0 != nil && cgFirstNotFinite(s.X0) >= 0 {
+			return rr, Breakdown, true, cgNotFinite(0, "start X0", s.X0, "", 0)
+		}
+		return rr, Breakdown, true, cgNotFinite(0, "initial residual r", r, "‖r‖₂", rnorm)
+	}
+	if err := st.record(0, rnorm); err != nil {
+		return rr, Cancelled, true, err
+	}
+	if rnorm <= tol {
+		return rr, Converged, true, nil
+	}
+	return rr, 0, false, nil
 }

@@ -276,30 +276,11 @@ func (w *minresWork) iterate(ctx context.Context, op *cgOperator, b, x []float64
 	tol := max(s.RelTol*st.bnorm, s.AbsTol)
 
 	// v̂₁ = r₀ = b − A·x₀ (τ₁ = 1).
-	var rr float64
-	if s.X0 != nil {
-		copy(x, s.X0)
-		st.products++
-		rr = op.residual(vCur, b, x)
-	} else {
-		clear(x)
-		copy(vCur, b)
-		rr = bb
+	rr, status, done, err := st.begin(op, b, x, vCur, bb, tol)
+	if done {
+		return status, err
 	}
 	rnorm := math.Sqrt(rr)
-	st.rnorm, st.trueNorm, st.trueFresh = rnorm, rnorm, true
-	if !cgFinite(rnorm) {
-		if s.X0 != nil && cgFirstNotFinite(s.X0) >= 0 {
-			return Breakdown, cgNotFinite(0, "start X0", s.X0, "", 0)
-		}
-		return Breakdown, cgNotFinite(0, "initial residual r", vCur, "‖r‖₂", rnorm)
-	}
-	if err := st.record(0, rnorm); err != nil {
-		return Cancelled, err
-	}
-	if rnorm <= tol {
-		return Converged, nil
-	}
 
 	z := vCur
 	rho := rr
