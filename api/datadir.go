@@ -176,35 +176,52 @@ func (d *dataDir) put(id string, a *sparse.CSR, info *pb.Matrix) error {
 		return err
 	}
 	size := csrfile.Bytes(csrfile.Matrix, a.Rows, a.NNZ(), id, raw)
-	d.mu.Lock()
-	if f, ok := d.files[id]; ok {
-		f.lastUse = time.Now()
-		d.mu.Unlock()
-		return nil
-	}
-	if err := d.makeRoomLocked(size, "matrix "+info.GetName()); err != nil {
-		d.mu.Unlock()
+	f := &diskFile{id: id, bytes: size, info: meta}
+	stored, err := d.storeFile(id, f, "matrix", info.GetName(), func() error {
+		_, err := csrfile.WriteMatrix(d.path(id), a, id, raw)
+		return err
+	})
+	if err != nil || !stored {
 		return err
 	}
-	// The bytes are counted before the write, so that concurrent uploads
-	// do not both take the same room.
-	d.used += size
-	d.mu.Unlock()
-	if _, err := csrfile.WriteMatrix(d.path(id), a, id, raw); err != nil {
-		d.mu.Lock()
-		d.used -= size
-		d.mu.Unlock()
-		if errors.Is(err, syscall.ENOSPC) || errors.Is(err, syscall.EDQUOT) {
-			return limitf("the data folder's disk is full: matrix %s needs %s; the folder holds %s of its %s budget (%v)",
-				info.GetName(), human(size), human(d.usedBytes()), human(d.budget), err)
-		}
-		return fmt.Errorf("storing matrix %s in the data folder: %w", id, err)
-	}
-	d.mu.Lock()
-	d.files[id] = &diskFile{id: id, bytes: size, info: meta, lastUse: time.Now()}
-	d.mu.Unlock()
 	d.log.Info("data folder: matrix stored", "matrix", id, "bytes", size)
 	return nil
+}
+
+// storeFile adds f (its bytes set) to the folder under key unless key is
+// held already (then only its use time is refreshed, and stored is false):
+// it makes room in the budget, reserves the bytes before write runs so
+// that concurrent uploads cannot take the same room, and gives them back
+// if write fails. A full disk is ErrLimit with the figures; kind and name
+// ("matrix", its upload name) go into the messages.
+func (d *dataDir) storeFile(key string, f *diskFile, kind, name string, write func() error) (stored bool, err error) {
+	d.mu.Lock()
+	if old, ok := d.files[key]; ok {
+		old.lastUse = time.Now()
+		d.mu.Unlock()
+		return false, nil
+	}
+	if err := d.makeRoomLocked(f.bytes, kind+" "+name); err != nil {
+		d.mu.Unlock()
+		return false, err
+	}
+	d.used += f.bytes
+	d.mu.Unlock()
+	if err := write(); err != nil {
+		d.mu.Lock()
+		d.used -= f.bytes
+		d.mu.Unlock()
+		if errors.Is(err, syscall.ENOSPC) || errors.Is(err, syscall.EDQUOT) {
+			return false, limitf("the data folder's disk is full: %s %s needs %s; the folder holds %s of its %s budget (%v)",
+				kind, name, human(f.bytes), human(d.usedBytes()), human(d.budget), err)
+		}
+		return false, fmt.Errorf("storing %s %s in the data folder: %w", kind, f.id, err)
+	}
+	f.lastUse = time.Now()
+	d.mu.Lock()
+	d.files[key] = f
+	d.mu.Unlock()
+	return true, nil
 }
 
 func (d *dataDir) usedBytes() int64 {

@@ -1,12 +1,10 @@
 package api
 
 import (
-	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
-	"syscall"
 	"time"
 
 	"google.golang.org/protobuf/proto"
@@ -74,32 +72,11 @@ func (d *dataDir) putVector(x []float64, info *pb.VectorInfo) error {
 	}
 	id := info.GetId()
 	size := csrfile.Bytes(csrfile.Vector, len(x), len(x), id, raw)
-	d.mu.Lock()
-	if f, ok := d.files["v:"+id]; ok {
-		f.lastUse = time.Now()
-		d.mu.Unlock()
-		return nil
-	}
-	if err := d.makeRoomLocked(size, "vector "+info.GetName()); err != nil {
-		d.mu.Unlock()
+	_, err = d.storeFile("v:"+id, &diskFile{id: id, bytes: size, vinfo: info}, "vector", info.GetName(), func() error {
+		_, err := csrfile.WriteVector(d.vpath(id), x, id, raw)
 		return err
-	}
-	d.used += size
-	d.mu.Unlock()
-	if _, err := csrfile.WriteVector(d.vpath(id), x, id, raw); err != nil {
-		d.mu.Lock()
-		d.used -= size
-		d.mu.Unlock()
-		if errors.Is(err, syscall.ENOSPC) || errors.Is(err, syscall.EDQUOT) {
-			return limitf("the data folder's disk is full: vector %s needs %s; the folder holds %s of its %s budget (%v)",
-				info.GetName(), human(size), human(d.usedBytes()), human(d.budget), err)
-		}
-		return fmt.Errorf("storing vector %s in the data folder: %w", id, err)
-	}
-	d.mu.Lock()
-	d.files["v:"+id] = &diskFile{id: id, bytes: size, vinfo: info, lastUse: time.Now()}
-	d.mu.Unlock()
-	return nil
+	})
+	return err
 }
 
 // loadVector brings a stored vector into memory for a job, pinned, or is
